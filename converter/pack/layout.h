@@ -1,0 +1,69 @@
+// Layout planning: where every tensor, record and section of a .sprig file goes.
+//
+// The hot section holds every unrouted tensor and the hot rows of routed ones, each aligned to
+// 64 bytes. Each routed layer gets one record section; a record holds one leaf's, expert's or
+// path-tree chunk's rows of every routed tensor of that layer (each part 64-byte aligned).
+// Records are placed page-aware: a record of B bytes is started where it touches no more than
+// ceil(B / 4096) pages, unless the padding that costs exceeds 2% of the section, in which case
+// records are packed back to back (64-byte aligned) and touch at most ceil(B / 4096) + 1.
+#pragma once
+
+#include <cstdint>
+#include <string>
+#include <vector>
+
+#include "format/row_map.h"
+#include "model/tensor_spec.h"
+#include "sprig/config.h"
+
+namespace sprig::convert {
+
+struct PlannedTensor {
+  TensorSpec spec;
+  DType dtype = DType::kF32;
+  uint64_t rows = 0;       // shape[0] (1 for a 0-d tensor)
+  uint64_t row_bytes = 0;  // stored bytes per row
+  uint64_t hot_rows = 0;
+  uint64_t hot_offset = 0;  // file offset of the hot rows
+  int record_set = -1;
+  uint64_t part_offset = 0;  // inside each record
+  uint64_t part_size = 0;
+};
+
+struct PlannedRecordSet {
+  uint32_t layer = 0;
+  uint32_t section = 0;
+  format::RowMapInfo map;
+  uint64_t record_size = 0;
+  std::vector<uint64_t> offsets;  // file offset of each record
+  std::vector<size_t> tensors;    // indices into LayoutPlan::tensors, in part order
+};
+
+struct PlannedSection {
+  std::string name;
+  bool records = false;
+  uint64_t offset = 0;
+  uint64_t size = 0;
+  uint64_t padding = 0;
+  int layer = -1;
+};
+
+struct LayoutPlan {
+  uint64_t data_start = 0;  // first byte after the reserved header space (page-aligned)
+  uint64_t file_size = 0;
+  std::vector<PlannedSection> sections;
+  std::vector<PlannedTensor> tensors;
+  std::vector<PlannedRecordSet> record_sets;
+};
+
+// Plans the data of `specs` (in the order given) starting at `data_start`, storing every tensor
+// as `dtype`.
+LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& specs,
+                      DType dtype, uint64_t data_start);
+
+// Offsets for `count` records of `record_size` bytes starting at page-aligned `start`;
+// returns the end. See the file comment for the rule.
+uint64_t PlaceRecords(uint64_t start, uint64_t record_size, uint64_t count,
+                      std::vector<uint64_t>* offsets);
+
+}  // namespace sprig::convert

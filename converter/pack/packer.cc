@@ -1,0 +1,235 @@
+#include "converter/pack/packer.h"
+
+#include <sys/stat.h>
+
+#include <chrono>
+#include <cstring>
+
+#include "converter/io/atomic_file.h"
+#include "converter/io/tensor_archive.h"
+#include "converter/pack/convert.h"
+#include "converter/pack/layout.h"
+#include "format/header_config.h"
+#include "format/preamble.h"
+#include "sprig_schema/model_generated.h"
+
+namespace sprig::convert {
+namespace {
+
+using format::kPageSize;
+
+constexpr const char* kProducer = "sprig 0.1.0";
+
+struct Checksums {
+  std::vector<uint32_t> hot;                 // per planned tensor
+  std::vector<std::vector<uint32_t>> records;  // per record set, per record
+};
+
+std::vector<uint8_t> BuildHeader(const ModelConfig& config, const LayoutPlan& plan,
+                                 const Checksums& crc) {
+  flatbuffers::FlatBufferBuilder b(1 << 16);
+  // Every field is written even at its default, so the header's size depends only on the
+  // model's structure, not on offsets or checksums: the packer reserves that space up front.
+  b.ForceDefaults(true);
+  auto cfg = format::BuildConfig(b, config);
+  auto json = b.CreateString(ConfigToJson(config));
+  auto producer = b.CreateString(kProducer);
+  std::vector<flatbuffers::Offset<fb::Section>> sections;
+  for (const PlannedSection& s : plan.sections) {
+    sections.push_back(fb::CreateSection(b, b.CreateString(s.name),
+                                         s.records ? fb::SectionKind::Records : fb::SectionKind::Hot,
+                                         s.offset, s.size, s.padding, s.layer));
+  }
+  auto sections_vec = b.CreateVector(sections);
+  std::vector<flatbuffers::Offset<fb::Tensor>> tensors;
+  for (size_t i = 0; i < plan.tensors.size(); ++i) {
+    const PlannedTensor& t = plan.tensors[i];
+    tensors.push_back(fb::CreateTensor(
+        b, b.CreateString(t.spec.name), static_cast<fb::DType>(t.dtype),
+        b.CreateVector(t.spec.shape), t.hot_offset, t.hot_rows, t.hot_rows * t.row_bytes,
+        crc.hot[i], t.record_set, t.part_offset, t.part_size, t.spec.layer));
+  }
+  auto tensors_vec = b.CreateVector(tensors);
+  std::vector<flatbuffers::Offset<fb::RecordSet>> sets;
+  for (size_t si = 0; si < plan.record_sets.size(); ++si) {
+    const PlannedRecordSet& rs = plan.record_sets[si];
+    std::vector<fb::RecordRef> refs;
+    refs.reserve(rs.offsets.size());
+    for (size_t r = 0; r < rs.offsets.size(); ++r) {
+      refs.emplace_back(rs.offsets[r], crc.records[si][r], 0);
+    }
+    auto refs_vec = b.CreateVectorOfStructs(refs);
+    sets.push_back(fb::CreateRecordSet(
+        b, rs.layer, rs.section, rs.map.subtree ? fb::RowMap::Subtree : fb::RowMap::Contiguous,
+        rs.map.rows_per_record, rs.map.hot_levels, rs.map.chunk_levels, rs.record_size, refs_vec));
+  }
+  auto sets_vec = b.CreateVector(sets);
+  auto header =
+      fb::CreateHeader(b, cfg, json, producer, sections_vec, tensors_vec, sets_vec);
+  fb::FinishHeaderBuffer(b, header);
+  return std::vector<uint8_t>(b.GetBufferPointer(), b.GetBufferPointer() + b.GetSize());
+}
+
+// Streams converted tensor data to the output in file order, zero-filling gaps.
+class DataWriter {
+ public:
+  DataWriter(io::AtomicFile& file, const PackOptions& options, uint64_t total)
+      : file_(file), options_(options), total_(total) {}
+
+  Status PadTo(uint64_t offset) {
+    if (offset < file_.size()) return Status::InvalidArgument("internal: layout goes backwards");
+    return file_.WriteZeros(offset - file_.size());
+  }
+  Status Put(const void* data, size_t size) {
+    SPRIG_RETURN_IF_ERROR(file_.Write(data, size));
+    done_ += size;
+    if (options_.progress && (done_ - reported_ >= (64u << 20) || done_ == total_)) {
+      reported_ = done_;
+      options_.progress(done_, total_);
+    }
+    return Status::Ok();
+  }
+
+ private:
+  io::AtomicFile& file_;
+  const PackOptions& options_;
+  uint64_t total_;
+  uint64_t done_ = 0;
+  uint64_t reported_ = 0;
+};
+
+uint64_t SourceRowBytes(const io::NdArray& a) {
+  const uint64_t rows = a.shape.empty() ? 1 : a.shape[0];
+  return rows == 0 ? 0 : a.nbytes() / rows;
+}
+
+Status WriteHot(const LayoutPlan& plan, const std::vector<const io::NdArray*>& sources,
+                DataWriter& out, Checksums& crc, std::vector<uint8_t>& buffer) {
+  for (size_t i = 0; i < plan.tensors.size(); ++i) {
+    const PlannedTensor& t = plan.tensors[i];
+    const uint64_t bytes = t.hot_rows * t.row_bytes;
+    if (bytes == 0) continue;
+    const io::NdArray& src = *sources[i];
+    const uint64_t elements = bytes / DTypeSize(t.dtype);
+    buffer.resize(bytes);
+    ConvertElements(src.type, src.data, t.dtype, buffer.data(), elements);
+    crc.hot[i] = format::Crc32(buffer.data(), bytes);
+    SPRIG_RETURN_IF_ERROR(out.PadTo(t.hot_offset));
+    SPRIG_RETURN_IF_ERROR(out.Put(buffer.data(), bytes));
+  }
+  return Status::Ok();
+}
+
+Status WriteRecords(const LayoutPlan& plan, const std::vector<const io::NdArray*>& sources,
+                    DataWriter& out, Checksums& crc, std::vector<uint8_t>& record) {
+  for (size_t si = 0; si < plan.record_sets.size(); ++si) {
+    const PlannedRecordSet& rs = plan.record_sets[si];
+    crc.records[si].resize(rs.offsets.size());
+    record.resize(rs.record_size);
+    for (size_t r = 0; r < rs.offsets.size(); ++r) {
+      std::memset(record.data(), 0, record.size());
+      for (size_t ti : rs.tensors) {
+        const PlannedTensor& t = plan.tensors[ti];
+        const io::NdArray& src = *sources[ti];
+        const uint64_t src_row = SourceRowBytes(src);
+        const uint64_t elements = t.row_bytes / DTypeSize(t.dtype);
+        for (uint64_t local = 0; local < rs.map.rows_per_record; ++local) {
+          const uint64_t row = format::RowOf(rs.map, r, local);
+          if (row >= t.rows) continue;  // a final partial record keeps zeros
+          ConvertElements(src.type, src.data + row * src_row, t.dtype,
+                          record.data() + t.part_offset + local * t.row_bytes, elements);
+        }
+      }
+      crc.records[si][r] = format::Crc32(record.data(), record.size());
+      SPRIG_RETURN_IF_ERROR(out.PadTo(rs.offsets[r]));
+      SPRIG_RETURN_IF_ERROR(out.Put(record.data(), record.size()));
+    }
+  }
+  return Status::Ok();
+}
+
+// True when a and b name the same existing file.
+bool SameFile(const std::string& a, const std::string& b) {
+  struct stat sa, sb;
+  if (stat(a.c_str(), &sa) != 0 || stat(b.c_str(), &sb) != 0) return false;
+  return sa.st_dev == sb.st_dev && sa.st_ino == sb.st_ino;
+}
+
+}  // namespace
+
+Result<DType> ParseStorageType(const std::string& text) {
+  if (text == "f32") return DType::kF32;
+  if (text == "f16") return DType::kF16;
+  if (text == "bf16") return DType::kBF16;
+  if (text == "i8") {
+    return Status::NotSupported("--dtype i8 is not available yet; use f32, f16 or bf16");
+  }
+  return Status::InvalidArgument("--dtype must be f32, f16 or bf16, got \"" + text + "\"");
+}
+
+Result<PackSummary> PackTensors(const ModelConfig& config,
+                                const std::vector<MatchedTensor>& tensors,
+                                const std::string& out_path, const PackOptions& options) {
+  const auto start = std::chrono::steady_clock::now();
+  std::vector<TensorSpec> specs;
+  std::vector<const io::NdArray*> sources;
+  PackSummary summary;
+  for (const MatchedTensor& m : tensors) {
+    specs.push_back(m.spec);
+    sources.push_back(m.source);
+    summary.input_bytes += m.source->nbytes();
+  }
+  // Reserve header space from a draft whose size equals the final one (see BuildHeader).
+  LayoutPlan plan = PlanLayout(config, specs, options.dtype, kPageSize);
+  Checksums crc{std::vector<uint32_t>(plan.tensors.size()), {}};
+  for (const PlannedRecordSet& rs : plan.record_sets) {
+    crc.records.emplace_back(rs.offsets.size());
+  }
+  const size_t header_size = BuildHeader(config, plan, crc).size();
+  const uint64_t data_start =
+      format::AlignUp(format::kPreambleSize + header_size, kPageSize);
+  plan = PlanLayout(config, specs, options.dtype, data_start);
+
+  for (const PlannedTensor& t : plan.tensors) summary.tensor_bytes += t.rows * t.row_bytes;
+  SPRIG_ASSIGN_OR_RETURN(io::AtomicFile file, io::AtomicFile::Create(out_path, options.overwrite));
+  SPRIG_RETURN_IF_ERROR(file.WriteZeros(data_start));
+  DataWriter writer(file, options, summary.tensor_bytes);
+  std::vector<uint8_t> buffer;
+  SPRIG_RETURN_IF_ERROR(WriteHot(plan, sources, writer, crc, buffer));
+  SPRIG_RETURN_IF_ERROR(WriteRecords(plan, sources, writer, crc, buffer));
+  SPRIG_RETURN_IF_ERROR(writer.PadTo(plan.file_size));
+
+  const std::vector<uint8_t> header = BuildHeader(config, plan, crc);
+  if (format::kPreambleSize + header.size() > data_start) {
+    return Status::InvalidArgument("internal: the header grew after layout planning");
+  }
+  format::Preamble pre;
+  pre.header_offset = format::kPreambleSize;
+  pre.header_size = header.size();
+  pre.file_size = file.size();
+  pre.header_crc32 = format::Crc32(header.data(), header.size());
+  uint8_t pre_bytes[format::kPreambleSize];
+  format::EncodePreamble(pre, pre_bytes);
+  SPRIG_RETURN_IF_ERROR(file.WriteAt(format::kPreambleSize, header.data(), header.size()));
+  SPRIG_RETURN_IF_ERROR(file.WriteAt(0, pre_bytes, sizeof(pre_bytes)));
+  SPRIG_RETURN_IF_ERROR(file.Commit());
+  summary.file_size = pre.file_size;
+  summary.seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  return summary;
+}
+
+Result<PackSummary> PackFiles(const std::string& config_path, const std::string& weights_path,
+                              const std::string& out_path, const PackOptions& options) {
+  if (SameFile(out_path, config_path) || SameFile(out_path, weights_path)) {
+    return Status::InvalidArgument("the output " + out_path +
+                                   " is one of the inputs; choose another output path");
+  }
+  SPRIG_ASSIGN_OR_RETURN(ModelConfig config, ReadConfigFile(config_path));
+  SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, io::TensorArchive::Open(weights_path));
+  SPRIG_ASSIGN_OR_RETURN(std::vector<MatchedTensor> matched,
+                         MatchTensors(config, archive, options.rename));
+  return PackTensors(config, matched, out_path, options);
+}
+
+}  // namespace sprig::convert

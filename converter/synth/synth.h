@@ -1,0 +1,34 @@
+// sprig synth: random weights for a config, for benchmarks, tests and demos.
+//
+// Weights are N(0, 1/in) (the usual fan-in scaling, so activations keep unit scale), biases
+// N(0, 0.01²), norm weights 1 and norm biases 0, embeddings N(0, 1), learned positions
+// N(0, 0.1²). Routing nodes and routers get zero-mean hyperplanes with small biases, so rows of
+// unit-scale inputs split evenly and routing is not degenerate. Deterministic for a seed on
+// every platform (our own generator and normal sampler, not the standard library's).
+#pragma once
+
+#include <cstdint>
+#include <vector>
+
+#include "converter/io/ndarray.h"
+#include "sprig/config.h"
+
+namespace sprig::convert {
+
+std::vector<io::NdArray> SynthesizeWeights(const ModelConfig& config, uint64_t seed);
+
+// A small deterministic generator (xoshiro256** seeded by splitmix64), also used by tests.
+class Random {
+ public:
+  explicit Random(uint64_t seed);
+  uint64_t Next();
+  double Uniform();  // [0, 1)
+  float Normal();    // standard normal (Box-Muller)
+
+ private:
+  uint64_t s_[4];
+  bool has_spare_ = false;
+  float spare_ = 0;
+};
+
+}  // namespace sprig::convert

@@ -1,0 +1,93 @@
+// The configuration of a sprig model: the families, layer kinds and fields that a config.json
+// describes and a .sprig header stores. These are plain values (copyable, thread-safe to read).
+// The meaning of each field is the model semantics documented in the project's README and
+// schema/README.md.
+#pragma once
+
+#include <cstdint>
+#include <string>
+#include <vector>
+
+namespace sprig {
+
+enum class Family : uint8_t { kStack, kTransformer };
+enum class LayerKind : uint8_t { kDense, kTree, kExperts };
+enum class TreeMode : uint8_t { kLeaf, kPath };
+enum class Activation : uint8_t { kRelu, kGelu, kGeluTanh, kSilu };
+enum class NormKind : uint8_t { kLayerNorm, kRmsNorm };
+enum class Positions : uint8_t { kLearned, kRope, kNone };
+enum class HeadKind : uint8_t { kLm, kClassifier, kNone };
+enum class Pool : uint8_t { kMean, kFirst, kLast };
+enum class Tokenizer : uint8_t { kNone, kByte };
+
+// Storage type of a tensor in a .sprig file. Compute is always float32.
+enum class DType : uint8_t { kF32, kF16, kBF16, kI8 };
+
+// One feed-forward entry of `layers`.
+struct LayerConfig {
+  LayerKind kind = LayerKind::kDense;
+  TreeMode mode = TreeMode::kLeaf;   // tree only
+  uint32_t width = 0;                // dense and experts: hidden units (per expert)
+  uint32_t depth = 0;                // tree only
+  uint32_t leaf_width = 0;           // tree, leaf mode: hidden units per leaf
+  uint32_t experts = 0;              // experts only
+  uint32_t top_k = 0;                // experts only
+  bool renormalize = true;           // experts only
+  Activation activation = Activation::kRelu;
+  bool gated = false;                // dense, tree leaf, experts
+  bool bias = true;                  // false: the layer has no bias tensors (all biases zero)
+  uint32_t in = 0;                   // input width (d_model in a transformer)
+  uint32_t out = 0;                  // output width (d_model in a transformer)
+};
+
+struct HeadConfig {
+  HeadKind kind = HeadKind::kNone;
+  uint32_t classes = 0;  // classifier only
+  Pool pool = Pool::kMean;  // classifier only
+};
+
+struct ModelConfig {
+  Family family = Family::kStack;
+  std::string name;
+  std::string description;
+  std::vector<LayerConfig> layers;
+
+  // Stack family.
+  uint32_t input_dim = 0;
+
+  // Transformer family.
+  uint32_t vocab_size = 0;
+  uint32_t d_model = 0;
+  uint32_t n_heads = 0;
+  uint32_t n_kv_heads = 0;  // 0 in a parsed config means "same as n_heads" until validated
+  uint32_t max_seq = 0;
+  NormKind norm = NormKind::kLayerNorm;
+  float norm_eps = 1e-5f;
+  Positions positions = Positions::kLearned;
+  float rope_base = 10000.0f;
+  bool causal = true;
+  bool tie_embeddings = false;
+  bool attn_bias = true;
+  Tokenizer tokenizer = Tokenizer::kNone;
+  HeadConfig head;
+
+  // Width of the model's output per row or token.
+  uint32_t output_dim() const;
+};
+
+// Names used in config.json, error messages and inspect output.
+const char* ToString(Family v);
+const char* ToString(LayerKind v);
+const char* ToString(TreeMode v);
+const char* ToString(Activation v);
+const char* ToString(NormKind v);
+const char* ToString(Positions v);
+const char* ToString(HeadKind v);
+const char* ToString(Pool v);
+const char* ToString(Tokenizer v);
+const char* ToString(DType v);
+
+// Bytes per element of a storage type (i8 counts its values only, not its scales).
+size_t DTypeSize(DType v);
+
+}  // namespace sprig

@@ -1,0 +1,315 @@
+#include "format/model_file.h"
+
+#include <fcntl.h>
+#include <sys/mman.h>
+#include <sys/stat.h>
+#include <unistd.h>
+
+#include <cerrno>
+#include <cstring>
+#include <map>
+#include <set>
+
+#include "format/header_config.h"
+#include "format/preamble.h"
+#include "model/config_check.h"
+#include "model/tensor_spec.h"
+#include "sprig_schema/model_generated.h"
+
+namespace sprig::format {
+namespace {
+
+// True when [off, off + len) lies inside [lo, hi), computed without overflow.
+bool Inside(uint64_t off, uint64_t len, uint64_t lo, uint64_t hi) {
+  return off >= lo && off <= hi && len <= hi - off;
+}
+
+// a * b, or false on overflow.
+bool MulOk(uint64_t a, uint64_t b, uint64_t* out) { return !__builtin_mul_overflow(a, b, out); }
+
+std::string Num(uint64_t v) { return std::to_string(v); }
+
+}  // namespace
+
+ModelFile::~ModelFile() {
+  if (base_ != nullptr) munmap(const_cast<uint8_t*>(base_), size_);
+  if (fd_ >= 0) close(fd_);
+}
+
+Result<std::unique_ptr<ModelFile>> ModelFile::Open(const std::string& path,
+                                                   const OpenFileOptions& options) {
+  std::unique_ptr<ModelFile> f(new ModelFile());
+  f->path_ = path;
+  f->fd_ = open(path.c_str(), O_RDONLY | O_CLOEXEC);
+  if (f->fd_ < 0) {
+    const int err = errno;
+    if (err == ENOENT) return Status::NotFound(path + " does not exist");
+    return Status::IOError("cannot open " + path + ": " + std::strerror(err));
+  }
+  struct stat st;
+  if (fstat(f->fd_, &st) != 0 || !S_ISREG(st.st_mode)) {
+    return Status::InvalidArgument(path + " is not a regular file");
+  }
+  f->size_ = static_cast<uint64_t>(st.st_size);
+  if (f->size_ < kPreambleSize) {
+    // Still distinguish "not ours" from "ours but cut short" for the message.
+    uint8_t head[kPreambleSize] = {};
+    const ssize_t n = pread(f->fd_, head, sizeof(head), 0);
+    auto r = DecodePreamble(head, n < 0 ? 0 : static_cast<uint64_t>(n), f->size_, path.c_str());
+    return r.ok() ? Status::Corruption(path + " is truncated") : r.status();
+  }
+  void* map = mmap(nullptr, f->size_, PROT_READ, MAP_SHARED, f->fd_, 0);
+  if (map == MAP_FAILED) {
+    return Status::IOError("cannot map " + path + ": " + std::strerror(errno));
+  }
+  f->base_ = static_cast<const uint8_t*>(map);
+  SPRIG_RETURN_IF_ERROR(f->Index(path));
+  if (options.advise_random_records) {
+    for (const SectionInfo& s : f->sections_) {
+      if (s.records && s.size > 0) {
+        // Best effort: a failure only costs read-ahead.
+        madvise(const_cast<uint8_t*>(f->base_) + s.offset, s.size, MADV_RANDOM);
+      }
+    }
+  }
+  return f;
+}
+
+Status ModelFile::Index(const std::string& src) {
+  SPRIG_ASSIGN_OR_RETURN(Preamble pre, DecodePreamble(base_, size_, size_, src.c_str()));
+  version_ = pre.version;
+  header_size_ = pre.header_size;
+  const uint8_t* header = base_ + pre.header_offset;
+  if (Crc32(header, pre.header_size) != pre.header_crc32) {
+    return Status::Corruption(src + ": the header's checksum does not match (the file is "
+                                    "damaged)");
+  }
+  flatbuffers::Verifier verifier(header, pre.header_size,
+                                 /*max_depth=*/64, /*max_tables=*/1u << 24);
+  if (!fb::VerifyHeaderBuffer(verifier)) {
+    return Status::Corruption(src + ": the header is not a valid sprig header (FlatBuffers "
+                                    "verification failed)");
+  }
+  const fb::Header* h = fb::GetHeader(header);
+  SPRIG_ASSIGN_OR_RETURN(config_, ReadConfig(*h->config(), src));
+  SPRIG_RETURN_IF_ERROR(ValidateConfig(config_, src + " header"));
+  if (h->config_json()) config_json_ = h->config_json()->str();
+  if (h->producer()) producer_ = h->producer()->str();
+  const uint64_t data_start = pre.header_offset + pre.header_size;
+
+  // Sections: page-aligned, after the header, inside the file, not overlapping.
+  if (h->sections()) {
+    for (const fb::Section* s : *h->sections()) {
+      SectionInfo si;
+      si.name = s->name() ? s->name()->str() : "";
+      si.records = s->kind() == fb::SectionKind::Records;
+      si.offset = s->offset();
+      si.size = s->size();
+      si.padding = s->padding();
+      si.layer = s->layer();
+      const std::string which = "section " + Num(sections_.size()) + " (" + si.name + ")";
+      if (static_cast<uint8_t>(s->kind()) > static_cast<uint8_t>(fb::SectionKind::Records)) {
+        return Status::Corruption(src + ": " + which + " has an unknown kind");
+      }
+      if (si.offset % kPageSize != 0 || !Inside(si.offset, si.size, data_start, size_) ||
+          si.padding > si.size) {
+        return Status::Corruption(src + ": " + which + " (offset " + Num(si.offset) + ", size " +
+                                  Num(si.size) + ") is not page-aligned inside the file's data");
+      }
+      if (!sections_.empty() && si.offset < sections_.back().offset + sections_.back().size) {
+        return Status::Corruption(src + ": " + which + " overlaps the section before it");
+      }
+      if (si.records && (si.layer < 0 || static_cast<size_t>(si.layer) >= config_.layers.size())) {
+        return Status::Corruption(src + ": " + which + " names a layer that does not exist");
+      }
+      sections_.push_back(si);
+    }
+  }
+
+  // Record sets.
+  if (h->record_sets()) {
+    for (const fb::RecordSet* r : *h->record_sets()) {
+      RecordSetInfo rs;
+      const std::string which = "record set " + Num(record_sets_.size());
+      rs.layer = r->layer();
+      rs.section = r->section();
+      if (rs.layer >= config_.layers.size() || rs.section >= sections_.size() ||
+          !sections_[rs.section].records) {
+        return Status::Corruption(src + ": " + which + " names a layer or section that does not "
+                                                       "exist");
+      }
+      const LayerConfig& layer = config_.layers[rs.layer];
+      if (r->row_map() == fb::RowMap::Subtree) {
+        if (layer.kind != LayerKind::kTree || layer.mode != TreeMode::kPath) {
+          return Status::Corruption(src + ": " + which + " uses a subtree map on a layer that "
+                                                         "is not a path tree");
+        }
+        rs.map = SubtreeMapFor(layer.depth + 1);
+        if (r->hot_levels() != rs.map.hot_levels || r->chunk_levels() != rs.map.chunk_levels) {
+          return Status::NotSupported(src + ": " + which + " uses a path-tree chunking this "
+                                                           "build does not read");
+        }
+      } else if (r->row_map() == fb::RowMap::Contiguous) {
+        rs.map.rows_per_record = r->rows_per_record();
+        if (rs.map.rows_per_record == 0) {
+          return Status::Corruption(src + ": " + which + " has 0 rows per record");
+        }
+      } else {
+        return Status::Corruption(src + ": " + which + " has an unknown row map");
+      }
+      rs.record_size = r->record_size();
+      const SectionInfo& sec = sections_[rs.section];
+      if (r->records()) {
+        rs.offsets.reserve(r->records()->size());
+        rs.crc32.reserve(r->records()->size());
+        for (const fb::RecordRef* ref : *r->records()) {
+          if (!Inside(ref->offset(), rs.record_size, sec.offset, sec.offset + sec.size)) {
+            return Status::Corruption(src + ": record " + Num(rs.offsets.size()) + " of " +
+                                      which + " lies outside its section");
+          }
+          rs.offsets.push_back(ref->offset());
+          rs.crc32.push_back(ref->crc32());
+        }
+      }
+      record_sets_.push_back(std::move(rs));
+    }
+  }
+
+  // Tensors: exactly the config's, each range inside its section or record.
+  std::map<std::string, TensorSpec> expected;
+  for (TensorSpec& t : ExpectedTensors(config_)) expected.emplace(t.name, std::move(t));
+  const SectionInfo* hot = nullptr;
+  for (const SectionInfo& s : sections_) {
+    if (!s.records) hot = &s;
+  }
+  std::set<std::string> seen;
+  if (h->tensors()) {
+    for (const fb::Tensor* ft : *h->tensors()) {
+      TensorInfo t;
+      t.name = ft->name()->str();
+      const std::string which = src + ": tensor " + t.name;
+      auto it = expected.find(t.name);
+      if (it == expected.end()) return Status::Corruption(which + " is not one the config needs");
+      if (!seen.insert(t.name).second) return Status::Corruption(which + " is listed twice");
+      if (ft->shape()) t.shape.assign(ft->shape()->begin(), ft->shape()->end());
+      if (t.shape != it->second.shape) {
+        return Status::Corruption(which + " has shape " + ShapeToString(t.shape) +
+                                  " but the config needs " + ShapeToString(it->second.shape));
+      }
+      const auto raw_dtype = static_cast<uint8_t>(ft->dtype());
+      if (raw_dtype > static_cast<uint8_t>(DType::kBF16)) {
+        return Status::NotSupported(which + " uses a storage type this build does not read");
+      }
+      t.dtype = static_cast<DType>(raw_dtype);
+      t.layer = it->second.layer;
+      const uint64_t rows = t.shape.empty() ? 1 : t.shape[0];
+      uint64_t elements_per_row = 1;
+      for (size_t d = 1; d < t.shape.size(); ++d) elements_per_row *= t.shape[d];
+      t.row_bytes = elements_per_row * DTypeSize(t.dtype);  // bounded by the config limits
+      t.hot_rows = ft->hot_rows();
+      t.hot_size = ft->hot_size();
+      t.hot_crc32 = ft->hot_crc32();
+      uint64_t hot_bytes = 0;
+      if (t.hot_rows > rows || !MulOk(t.hot_rows, t.row_bytes, &hot_bytes) ||
+          hot_bytes != t.hot_size) {
+        return Status::Corruption(which + " has a hot size that does not match its shape");
+      }
+      if (t.hot_size > 0) {
+        if (hot == nullptr || !Inside(ft->hot_offset(), t.hot_size, hot->offset,
+                                      hot->offset + hot->size)) {
+          return Status::Corruption(which + " lies outside the hot section");
+        }
+        t.hot = base_ + ft->hot_offset();
+      }
+      t.record_set = ft->record_set();
+      if (t.hot_rows < rows) {
+        if (t.record_set < 0 || static_cast<size_t>(t.record_set) >= record_sets_.size()) {
+          return Status::Corruption(which + " has rows outside the hot section but no record set");
+        }
+        RecordSetInfo& rs = record_sets_[t.record_set];
+        if (rs.layer != static_cast<uint32_t>(t.layer) || !it->second.routed) {
+          return Status::Corruption(which + " is stored in another layer's records");
+        }
+        // Leaves and experts keep no rows hot; a path tree keeps exactly its top levels.
+        if (t.hot_rows != rs.map.hot_rows) {
+          return Status::Corruption(which + " keeps a different number of hot rows than its "
+                                            "record set");
+        }
+        t.part_offset = ft->record_part_offset();
+        t.part_size = ft->record_part_size();
+        uint64_t part_bytes = 0;
+        if (!MulOk(rs.map.rows_per_record, t.row_bytes, &part_bytes) ||
+            part_bytes != t.part_size || !Inside(t.part_offset, t.part_size, 0, rs.record_size)) {
+          return Status::Corruption(which + " has a record part outside its record");
+        }
+        if (RecordCount(rs.map, rows) != rs.offsets.size()) {
+          return Status::Corruption(which + " needs " + Num(RecordCount(rs.map, rows)) +
+                                    " records but its record set has " + Num(rs.offsets.size()));
+        }
+      } else {
+        t.record_set = -1;
+      }
+      tensors_.push_back(std::move(t));
+    }
+  }
+  if (seen.size() != expected.size()) {
+    for (const auto& [name, spec] : expected) {
+      if (!seen.count(name)) {
+        return Status::Corruption(src + ": the header has no tensor " + name + " " +
+                                  ShapeToString(spec.shape) + ", which the config needs");
+      }
+    }
+  }
+  return Status::Ok();
+}
+
+const TensorInfo* ModelFile::Find(const std::string& name) const {
+  for (const TensorInfo& t : tensors_) {
+    if (t.name == name) return &t;
+  }
+  return nullptr;
+}
+
+const uint8_t* ModelFile::Row(const TensorInfo& t, uint64_t row) const {
+  if (row < t.hot_rows) return t.hot + row * t.row_bytes;
+  const RecordSetInfo& rs = record_sets_[t.record_set];
+  const RowLocation loc = LocateRow(rs.map, row);
+  return base_ + rs.offsets[loc.record] + t.part_offset + loc.local_row * t.row_bytes;
+}
+
+std::vector<uint8_t> ModelFile::Gather(const TensorInfo& t) const {
+  const uint64_t rows = t.shape.empty() ? 1 : t.shape[0];
+  std::vector<uint8_t> out(rows * t.row_bytes);
+  for (uint64_t r = 0; r < rows; ++r) {
+    std::memcpy(out.data() + r * t.row_bytes, Row(t, r), t.row_bytes);
+  }
+  return out;
+}
+
+Status ModelFile::VerifyChecksums() const {
+  std::vector<std::string> bad;
+  size_t total_bad = 0;
+  auto note = [&](std::string what) {
+    if (++total_bad <= 20) bad.push_back(std::move(what));
+  };
+  for (const TensorInfo& t : tensors_) {
+    if (t.hot_size > 0 && Crc32(t.hot, t.hot_size) != t.hot_crc32) {
+      note("tensor " + t.name + " (hot section)");
+    }
+  }
+  for (const RecordSetInfo& rs : record_sets_) {
+    for (size_t i = 0; i < rs.offsets.size(); ++i) {
+      if (Crc32(base_ + rs.offsets[i], rs.record_size) != rs.crc32[i]) {
+        note("record " + Num(i) + " of layer " + Num(rs.layer));
+      }
+    }
+  }
+  if (total_bad == 0) return Status::Ok();
+  std::string msg = path_ + ": " + Num(total_bad) + " checksum mismatch" +
+                    (total_bad == 1 ? "" : "es") + ": ";
+  for (size_t i = 0; i < bad.size(); ++i) msg += (i ? ", " : "") + bad[i];
+  if (total_bad > bad.size()) msg += ", ...";
+  return Status::CheckFailed(msg);
+}
+
+}  // namespace sprig::format

@@ -1,0 +1,108 @@
+// ModelFile: a .sprig file mapped read-only, its header verified and indexed.
+//
+// Open() maps the file, checks the preamble, the header checksum, the FlatBuffers verifier and
+// every offset and size against the file (overflow-safe), and that the tensors are exactly the
+// ones the stored config requires. It reads no tensor data: weights are paged in by the
+// kernels as they touch them. Immutable after Open(); safe to share between threads.
+#pragma once
+
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "format/row_map.h"
+#include "sprig/config.h"
+#include "sprig/status.h"
+
+namespace sprig::format {
+
+struct SectionInfo {
+  std::string name;
+  bool records = false;  // false: the hot section
+  uint64_t offset = 0;
+  uint64_t size = 0;
+  uint64_t padding = 0;
+  int layer = -1;
+};
+
+struct RecordSetInfo {
+  uint32_t layer = 0;
+  uint32_t section = 0;
+  RowMapInfo map;
+  uint64_t record_size = 0;
+  std::vector<uint64_t> offsets;  // file offset of each record
+  std::vector<uint32_t> crc32;    // checksum of each record
+};
+
+struct TensorInfo {
+  std::string name;
+  DType dtype = DType::kF32;
+  std::vector<uint64_t> shape;
+  uint64_t row_bytes = 0;  // bytes of one row along axis 0 (the whole tensor for a 0-d one)
+  int layer = -1;
+  const uint8_t* hot = nullptr;  // the first hot_rows rows
+  uint64_t hot_rows = 0;
+  uint64_t hot_size = 0;
+  uint32_t hot_crc32 = 0;
+  int record_set = -1;
+  uint64_t part_offset = 0;  // inside each record
+  uint64_t part_size = 0;
+};
+
+struct OpenFileOptions {
+  // Advise the kernel that record sections are read at random (no read-ahead of neighbours).
+  bool advise_random_records = true;
+};
+
+class ModelFile {
+ public:
+  static Result<std::unique_ptr<ModelFile>> Open(const std::string& path,
+                                                 const OpenFileOptions& options = {});
+  ~ModelFile();
+  ModelFile(const ModelFile&) = delete;
+  ModelFile& operator=(const ModelFile&) = delete;
+
+  const std::string& path() const { return path_; }
+  const ModelConfig& config() const { return config_; }
+  const std::string& config_json() const { return config_json_; }
+  const std::string& producer() const { return producer_; }
+  uint32_t format_version() const { return version_; }
+  uint64_t file_size() const { return size_; }
+  uint64_t header_size() const { return header_size_; }
+  const uint8_t* base() const { return base_; }
+
+  const std::vector<SectionInfo>& sections() const { return sections_; }
+  const std::vector<TensorInfo>& tensors() const { return tensors_; }
+  const std::vector<RecordSetInfo>& record_sets() const { return record_sets_; }
+  const TensorInfo* Find(const std::string& name) const;
+
+  // Pointer to row `row` of a tensor, wherever it is stored.
+  const uint8_t* Row(const TensorInfo& t, uint64_t row) const;
+
+  // A tensor's stored bytes in logical (C) order, gathered from the hot section and records.
+  std::vector<uint8_t> Gather(const TensorInfo& t) const;
+
+  // Verifies the checksum of every hot tensor and every record (reads the whole file).
+  // Returns CheckFailed naming each mismatch (up to 20), or Ok.
+  Status VerifyChecksums() const;
+
+ private:
+  ModelFile() = default;
+  Status Index(const std::string& source);
+
+  std::string path_;
+  int fd_ = -1;
+  const uint8_t* base_ = nullptr;
+  uint64_t size_ = 0;
+  uint32_t version_ = 0;
+  uint64_t header_size_ = 0;
+  ModelConfig config_;
+  std::string config_json_;
+  std::string producer_;
+  std::vector<SectionInfo> sections_;
+  std::vector<TensorInfo> tensors_;
+  std::vector<RecordSetInfo> record_sets_;
+};
+
+}  // namespace sprig::format

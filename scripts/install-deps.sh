@@ -1,0 +1,32 @@
+#!/usr/bin/env bash
+# Installs the Debian packages sprig needs to build, test and benchmark.
+# Only packages that are missing are installed; nothing is fetched from anywhere but apt.
+set -euo pipefail
+
+PACKAGES=(
+  build-essential cmake pkg-config git
+  libxsimd-dev libflatbuffers-dev flatbuffers-compiler
+  libspdlog-dev libfmt-dev nlohmann-json3-dev libcli11-dev zlib1g-dev
+  libgtest-dev libgmock-dev googletest libbenchmark-dev libopenblas-dev
+  python3-numpy python3-torch python3-sklearn
+  clang clang-format
+)
+
+missing=()
+for p in "${PACKAGES[@]}"; do
+  if ! dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed"; then
+    missing+=("$p")
+  fi
+done
+
+if [ ${#missing[@]} -eq 0 ]; then
+  exit 0
+fi
+
+echo "sprig: installing missing Debian packages: ${missing[*]}"
+SUDO=""
+if [ "$(id -u)" -ne 0 ]; then
+  SUDO="sudo"
+fi
+$SUDO apt-get update -qq
+DEBIAN_FRONTEND=noninteractive $SUDO apt-get install -y -qq --no-install-recommends "${missing[@]}"

@@ -1,0 +1,71 @@
+#include "support/test_util.h"
+
+#include <stdio.h>
+#include <stdlib.h>
+#include <sys/wait.h>
+
+#include <filesystem>
+#include <fstream>
+#include <sstream>
+#include <stdexcept>
+
+namespace sprig::testing {
+
+TempDir::TempDir() {
+  std::string tmpl = (std::filesystem::temp_directory_path() / "sprig-test-XXXXXX").string();
+  if (mkdtemp(tmpl.data()) == nullptr) throw std::runtime_error("mkdtemp failed");
+  path_ = tmpl;
+}
+
+TempDir::~TempDir() {
+  std::error_code ec;
+  std::filesystem::remove_all(path_, ec);
+}
+
+std::string Quote(const std::string& s) {
+  std::string out = "'";
+  for (char c : s) {
+    if (c == '\'') {
+      out += "'\\''";
+    } else {
+      out += c;
+    }
+  }
+  return out + "'";
+}
+
+CommandResult Run(const std::string& command_line) {
+  CommandResult r;
+  FILE* p = popen((command_line + " 2>&1").c_str(), "r");
+  if (p == nullptr) return r;
+  char buf[4096];
+  size_t n;
+  while ((n = fread(buf, 1, sizeof(buf), p)) > 0) r.output.append(buf, n);
+  const int status = pclose(p);
+  r.exit_code = WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
+  return r;
+}
+
+std::string SprigCli() { return SPRIG_CLI_PATH; }
+std::string Python() { return "/usr/bin/python3"; }
+
+CommandResult RunPython(const std::string& script, const std::vector<std::string>& args) {
+  std::string cmd = "PYTHONPATH=" + Quote(std::string(SPRIG_SOURCE_DIR) + "/converter/python") +
+                    " " + Python() + " -c " + Quote(script);
+  for (const auto& a : args) cmd += " " + Quote(a);
+  return Run(cmd);
+}
+
+std::string ReadFile(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  std::stringstream ss;
+  ss << in.rdbuf();
+  return ss.str();
+}
+
+void WriteFile(const std::string& path, const std::string& contents) {
+  std::ofstream out(path, std::ios::binary);
+  out << contents;
+}
+
+}  // namespace sprig::testing

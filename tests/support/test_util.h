@@ -1,0 +1,41 @@
+// Small helpers shared by the tests: temporary folders, running commands, file contents.
+#pragma once
+
+#include <string>
+#include <vector>
+
+namespace sprig::testing {
+
+// A fresh folder under the system temp dir, removed with everything in it on destruction.
+class TempDir {
+ public:
+  TempDir();
+  ~TempDir();
+  TempDir(const TempDir&) = delete;
+  TempDir& operator=(const TempDir&) = delete;
+  const std::string& path() const { return path_; }
+  std::string File(const std::string& name) const { return path_ + "/" + name; }
+
+ private:
+  std::string path_;
+};
+
+struct CommandResult {
+  int exit_code = -1;
+  std::string output;  // stdout and stderr together
+};
+
+// Runs a shell command line and captures what it prints.
+CommandResult Run(const std::string& command_line);
+
+// The sprig program built with the tests, and Debian's Python (with NumPy and PyTorch).
+std::string SprigCli();
+std::string Python();
+// Runs `/usr/bin/python3 -c SCRIPT` (arguments appended, shell-quoted).
+CommandResult RunPython(const std::string& script, const std::vector<std::string>& args = {});
+
+std::string Quote(const std::string& s);
+std::string ReadFile(const std::string& path);
+void WriteFile(const std::string& path, const std::string& contents);
+
+}  // namespace sprig::testing

@@ -1,0 +1,53 @@
+// Shared pieces of the sprig command-line verbs: exit codes, error reporting, progress, sizes.
+#pragma once
+
+#include <CLI/CLI.hpp>
+
+#include <chrono>
+#include <cstdint>
+#include <string>
+
+#include "sprig/status.h"
+
+namespace sprig::cli {
+
+// DESIGN: 0 success, 1 a check failed, 2 bad usage or input.
+inline constexpr int kExitOk = 0;
+inline constexpr int kExitCheckFailed = 1;
+inline constexpr int kExitBadInput = 2;
+
+// Prints "sprig VERB: message" to stderr and returns the exit code for the status.
+int Fail(const std::string& verb, const Status& status);
+
+// "1.5 MiB", "312 B"
+std::string HumanBytes(uint64_t bytes);
+// "1.23 G", "456 k" (FLOPs, parameters)
+std::string HumanCount(uint64_t count);
+
+// Progress on stderr for long work: silent for the first second, then a line that updates in
+// place on a terminal (or a line every few seconds when stderr is not a terminal).
+class Progress {
+ public:
+  explicit Progress(std::string label);
+  void Update(uint64_t done, uint64_t total);
+  void Finish();
+
+ private:
+  std::string label_;
+  std::chrono::steady_clock::time_point start_;
+  std::chrono::steady_clock::time_point last_;
+  bool shown_ = false;
+  bool tty_ = false;
+};
+
+// Each verb registers its subcommand and returns a runner invoked if it was chosen.
+struct Verb {
+  CLI::App* command = nullptr;
+  std::function<int()> run;
+};
+
+Verb AddPack(CLI::App& app);
+Verb AddInspect(CLI::App& app);
+Verb AddSynth(CLI::App& app);
+
+}  // namespace sprig::cli

@@ -1,0 +1,29 @@
+// sprig: the command-line program. Each verb is a thin layer over the libraries.
+#include <cstdio>
+#include <vector>
+
+#include "cli.h"
+
+int main(int argc, char** argv) {
+  CLI::App app{
+      "sprig runs tree-routed and expert-routed feed-forward models on laptop CPUs.\n"
+      "Run 'sprig VERB --help' for a verb's options."};
+  app.require_subcommand(1);
+  app.set_version_flag("--version", "sprig 0.1.0");
+  std::vector<sprig::cli::Verb> verbs = {
+      sprig::cli::AddPack(app),
+      sprig::cli::AddInspect(app),
+      sprig::cli::AddSynth(app),
+  };
+  try {
+    app.parse(argc, argv);
+  } catch (const CLI::ParseError& e) {
+    const int code = app.exit(e);
+    // CLI11 returns 0 for --help and --version; any real usage error is our exit code 2.
+    return code == 0 ? 0 : sprig::cli::kExitBadInput;
+  }
+  for (const auto& verb : verbs) {
+    if (verb.command->parsed()) return verb.run();
+  }
+  return sprig::cli::kExitBadInput;
+}

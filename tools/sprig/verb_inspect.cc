@@ -1,0 +1,203 @@
+// sprig inspect MODEL [--check] [--json] [--tensors]
+#include <cstdio>
+#include <memory>
+#include <nlohmann/json.hpp>
+
+#include "cli.h"
+#include "format/model_file.h"
+#include "format/preamble.h"
+#include "model/flops.h"
+#include "model/tensor_spec.h"
+#include "sprig/model.h"
+
+namespace sprig::cli {
+namespace {
+
+struct InspectArgs {
+  std::string model;
+  bool check = false, json = false, tensors = false;
+};
+
+std::string Describe(const LayerConfig& l) {
+  std::string s = ToString(l.kind);
+  char buf[160];
+  switch (l.kind) {
+    case LayerKind::kDense:
+      std::snprintf(buf, sizeof(buf), " width %u", l.width);
+      break;
+    case LayerKind::kTree:
+      if (l.mode == TreeMode::kLeaf) {
+        std::snprintf(buf, sizeof(buf), " leaf depth %u, leaf width %u", l.depth, l.leaf_width);
+      } else {
+        std::snprintf(buf, sizeof(buf), " path depth %u", l.depth);
+      }
+      break;
+    case LayerKind::kExperts:
+      std::snprintf(buf, sizeof(buf), " %u experts, top %u, width %u", l.experts, l.top_k,
+                    l.width);
+      break;
+  }
+  s += buf;
+  s += std::string(", ") + ToString(l.activation) + (l.gated ? ", gated" : "");
+  return s;
+}
+
+const format::RecordSetInfo* RecordsOf(const format::ModelFile& f, size_t layer) {
+  for (const auto& rs : f.record_sets()) {
+    if (rs.layer == layer) return &rs;
+  }
+  return nullptr;
+}
+
+uint64_t PagesPerRecord(uint64_t size) {
+  return (size + format::kPageSize - 1) / format::kPageSize;
+}
+
+nlohmann::json ToJson(const format::ModelFile& f) {
+  nlohmann::json j;
+  j["file"] = {{"path", f.path()},
+               {"size", f.file_size()},
+               {"format_version", f.format_version()},
+               {"producer", f.producer()},
+               {"header_size", f.header_size()}};
+  j["config"] = nlohmann::json::parse(f.config_json(), nullptr, false);
+  for (const auto& s : f.sections()) {
+    j["sections"].push_back({{"name", s.name},
+                             {"kind", s.records ? "records" : "hot"},
+                             {"offset", s.offset},
+                             {"size", s.size},
+                             {"padding", s.padding},
+                             {"layer", s.layer}});
+  }
+  const ModelConfig& c = f.config();
+  for (size_t i = 0; i < c.layers.size(); ++i) {
+    const LayerCost cost = CostOf(c.layers[i]);
+    nlohmann::json l = {{"index", i},
+                        {"kind", ToString(c.layers[i].kind)},
+                        {"description", Describe(c.layers[i])},
+                        {"params", cost.params},
+                        {"flops_per_token", cost.flops_per_token},
+                        {"dense_width", cost.dense_width},
+                        {"dense_flops_per_token", cost.dense_flops_per_token}};
+    if (const auto* rs = RecordsOf(f, i)) {
+      l["records"] = {{"count", rs->offsets.size()},
+                      {"record_size", rs->record_size},
+                      {"pages_per_record", PagesPerRecord(rs->record_size)}};
+    }
+    j["layers"].push_back(l);
+  }
+  const ModelCost total = CostOf(c, c.family == Family::kTransformer ? c.max_seq / 2 : 0);
+  j["totals"] = {{"params", total.params},
+                 {"ffn_flops_per_token", total.ffn_flops},
+                 {"ffn_dense_flops_per_token", total.ffn_dense_flops},
+                 {"other_flops_per_token", total.other_flops}};
+  for (const auto& t : f.tensors()) {
+    j["tensors"].push_back({{"name", t.name},
+                            {"dtype", ToString(t.dtype)},
+                            {"shape", t.shape},
+                            {"hot_rows", t.hot_rows},
+                            {"record_set", t.record_set}});
+  }
+  return j;
+}
+
+void PrintHuman(const format::ModelFile& f, bool list_tensors) {
+  const ModelConfig& c = f.config();
+  std::printf("%s: sprig format %u, written by %s\n", f.path().c_str(), f.format_version(),
+              f.producer().c_str());
+  if (!c.name.empty()) std::printf("  name         %s\n", c.name.c_str());
+  if (!c.description.empty()) std::printf("  description  %s\n", c.description.c_str());
+  if (c.family == Family::kStack) {
+    std::printf("  family       stack: %u inputs -> %u outputs, %zu layers\n", c.input_dim,
+                c.output_dim(), c.layers.size());
+  } else {
+    std::printf("  family       transformer: %zu blocks, d_model %u, %u heads (%u kv), vocab %u, "
+                "max_seq %u, %s, %s positions, head %s\n",
+                c.layers.size(), c.d_model, c.n_heads, c.n_kv_heads, c.vocab_size, c.max_seq,
+                ToString(c.norm), ToString(c.positions), ToString(c.head.kind));
+  }
+  std::printf("  file         %s (header %s)\n\n", HumanBytes(f.file_size()).c_str(),
+              HumanBytes(f.header_size()).c_str());
+
+  std::printf("sections\n  %-18s %12s %12s %10s\n", "name", "offset", "size", "padding");
+  for (const auto& s : f.sections()) {
+    const double pct = s.size ? 100.0 * static_cast<double>(s.padding) / s.size : 0.0;
+    std::printf("  %-18s %12llu %12s %9.2f%%\n", s.name.c_str(),
+                static_cast<unsigned long long>(s.offset), HumanBytes(s.size).c_str(), pct);
+  }
+
+  std::printf("\nlayers (FLOPs per token; a multiply-add is 2)\n");
+  std::printf("  %-3s %-44s %10s %10s %12s %9s\n", "#", "kind", "params", "FLOPs", "dense FLOPs",
+              "saving");
+  for (size_t i = 0; i < c.layers.size(); ++i) {
+    const LayerCost cost = CostOf(c.layers[i]);
+    const double ratio = cost.flops_per_token
+                             ? static_cast<double>(cost.dense_flops_per_token) /
+                                   static_cast<double>(cost.flops_per_token)
+                             : 0.0;
+    std::printf("  %-3zu %-44s %10s %10s %12s %8.1fx\n", i, Describe(c.layers[i]).c_str(),
+                HumanCount(cost.params).c_str(), HumanCount(cost.flops_per_token).c_str(),
+                HumanCount(cost.dense_flops_per_token).c_str(), ratio);
+    if (const auto* rs = RecordsOf(f, i)) {
+      std::printf("      %zu records of %s (%llu pages each)\n", rs->offsets.size(),
+                  HumanBytes(rs->record_size).c_str(),
+                  static_cast<unsigned long long>(PagesPerRecord(rs->record_size)));
+    }
+  }
+  const ModelCost total = CostOf(c, c.family == Family::kTransformer ? c.max_seq / 2 : 0);
+  std::printf("\n  parameters %s; feed-forward FLOPs per token %s (dense equivalent %s)",
+              HumanCount(total.params).c_str(), HumanCount(total.ffn_flops).c_str(),
+              HumanCount(total.ffn_dense_flops).c_str());
+  if (c.family == Family::kTransformer) {
+    std::printf("; attention and head %s (at position %u)", HumanCount(total.other_flops).c_str(),
+                c.max_seq / 2);
+  }
+  std::printf("\n");
+  if (list_tensors) {
+    std::printf("\ntensors\n");
+    for (const auto& t : f.tensors()) {
+      const char* where = t.record_set < 0 ? "hot" : (t.hot_rows ? "hot+records" : "records");
+      std::printf("  %-40s %-5s %-20s %s\n", t.name.c_str(), ToString(t.dtype),
+                  ShapeToString(t.shape).c_str(), where);
+    }
+  }
+}
+
+int RunInspect(const InspectArgs& a) {
+  auto model = Model::open(a.model);
+  if (!model.ok()) return Fail("inspect", model.status());
+  const format::ModelFile& f = (*model)->file();
+  Status check;
+  if (a.check) check = f.VerifyChecksums();
+  if (a.json) {
+    nlohmann::json j = ToJson(f);
+    if (a.check) j["check"] = {{"ok", check.ok()}, {"message", check.message()}};
+    std::printf("%s\n", j.dump(2).c_str());
+  } else {
+    PrintHuman(f, a.tensors);
+    if (a.check) {
+      if (check.ok()) {
+        std::printf("\ncheck: every checksum matches (%zu tensors, %zu record sets)\n",
+                    f.tensors().size(), f.record_sets().size());
+      }
+    }
+  }
+  if (!check.ok()) return Fail("inspect", check);
+  return kExitOk;
+}
+
+}  // namespace
+
+Verb AddInspect(CLI::App& app) {
+  auto args = std::make_shared<InspectArgs>();
+  CLI::App* c = app.add_subcommand(
+      "inspect", "Show a .sprig file's config, sections, sizes and per-layer FLOPs per token.");
+  c->add_option("MODEL", args->model, "the .sprig file")->required();
+  c->add_flag("--check", args->check, "verify every checksum (reads the whole file); exit 1 on a "
+                                      "mismatch");
+  c->add_flag("--json", args->json, "print JSON instead of tables");
+  c->add_flag("--tensors", args->tensors, "also list every tensor");
+  return {c, [args] { return RunInspect(*args); }};
+}
+
+}  // namespace sprig::cli
