@@ -11,12 +11,14 @@
 
 namespace sprig::io {
 
+// clang-format off
 enum class ElementType : uint8_t {
   kF64, kF32, kF16, kBF16,
   kI64, kI32, kI16, kI8,
   kU64, kU32, kU16, kU8,
   kBool,
 };
+// clang-format on
 
 // Bytes per element.
 size_t ElementSize(ElementType t);
@@ -28,7 +30,9 @@ struct NdArray {
   std::string name;
   ElementType type = ElementType::kF32;
   std::vector<uint64_t> shape;
-  const uint8_t* data = nullptr;  // nbytes() bytes, little-endian, C order
+  // nbytes() bytes, little-endian, C order. Not necessarily aligned to the element size (an
+  // .npz member or a safetensors tensor may start at any byte), so read it with memcpy.
+  const uint8_t* data = nullptr;
   std::shared_ptr<const void> keepalive;
 
   uint64_t elements() const;

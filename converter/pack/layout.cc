@@ -32,7 +32,19 @@ uint64_t TightPlacement(uint64_t start, uint64_t b, uint64_t count, std::vector<
   return pos;
 }
 
+bool EndsWith(const std::string& s, const std::string& suffix) {
+  return s.size() >= suffix.size() && s.compare(s.size() - suffix.size(), suffix.size(), suffix) == 0;
+}
+
 }  // namespace
+
+DType StoredType(const TensorSpec& spec, DType requested) {
+  const std::string& n = spec.name;
+  const bool norm = EndsWith(n, "norm.weight") || EndsWith(n, "norm1.weight") ||
+                    EndsWith(n, "norm2.weight");
+  if (EndsWith(n, "bias") || norm) return DType::kF32;
+  return requested;
+}
 
 uint64_t PlaceRecords(uint64_t start, uint64_t b, uint64_t count, std::vector<uint64_t>* out) {
   const uint64_t tight_end = TightPlacement(start, b, count, nullptr);
@@ -55,11 +67,11 @@ LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& 
   for (const TensorSpec& s : specs) {
     PlannedTensor t;
     t.spec = s;
-    t.dtype = dtype;
+    t.dtype = StoredType(s, dtype);
     t.rows = s.shape.empty() ? 1 : s.shape[0];
     uint64_t per_row = 1;
     for (size_t d = 1; d < s.shape.size(); ++d) per_row *= s.shape[d];
-    t.row_bytes = per_row * DTypeSize(dtype);
+    t.row_bytes = per_row * DTypeSize(t.dtype);
     t.hot_rows = t.rows;
     if (s.routed) {
       int& set = set_of_layer[s.layer];

@@ -56,8 +56,13 @@ struct LayoutPlan {
   std::vector<PlannedRecordSet> record_sets;
 };
 
-// Plans the data of `specs` (in the order given) starting at `data_start`, storing every tensor
-// as `dtype`.
+// The type a tensor is stored as when the weights are packed as `requested`: biases and norm
+// weights stay float32 whatever is requested (they are tiny, and the kernels add them in
+// float32); weight matrices, embeddings and routing nodes take `requested`.
+DType StoredType(const TensorSpec& spec, DType requested);
+
+// Plans the data of `specs` (in the order given) starting at `data_start`, storing each tensor
+// as StoredType(spec, dtype).
 LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& specs,
                       DType dtype, uint64_t data_start);
 

@@ -49,5 +49,7 @@ struct Verb {
 Verb AddPack(CLI::App& app);
 Verb AddInspect(CLI::App& app);
 Verb AddSynth(CLI::App& app);
+Verb AddRun(CLI::App& app);
+Verb AddRoutes(CLI::App& app);
 
 }  // namespace sprig::cli

@@ -14,6 +14,8 @@ int main(int argc, char** argv) {
       sprig::cli::AddPack(app),
       sprig::cli::AddInspect(app),
       sprig::cli::AddSynth(app),
+      sprig::cli::AddRun(app),
+      sprig::cli::AddRoutes(app),
   };
   try {
     app.parse(argc, argv);

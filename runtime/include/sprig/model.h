@@ -9,6 +9,7 @@
 #include <cstdint>
 #include <memory>
 #include <string>
+#include <vector>
 
 #include "sprig/config.h"
 #include "sprig/status.h"
@@ -17,6 +18,9 @@ namespace sprig {
 
 namespace format {
 class ModelFile;
+}
+namespace layers {
+class FeedForward;
 }
 
 struct OpenOptions {
@@ -42,12 +46,14 @@ class Model {
   // the damaged tensors and records. Thread-safe; may take a while on large files.
   Status verify_checksums() const;
 
-  // The underlying file, for sprig's own tools and layers. Not part of the stable API.
+  // The underlying file and bound layers, for sprig's own tools. Not part of the stable API.
   const format::ModelFile& file() const { return *file_; }
+  const std::vector<std::unique_ptr<layers::FeedForward>>& layers() const { return layers_; }
 
  private:
   explicit Model(std::unique_ptr<format::ModelFile> file);
   std::unique_ptr<format::ModelFile> file_;
+  std::vector<std::unique_ptr<layers::FeedForward>> layers_;
 };
 
 }  // namespace sprig

@@ -1,6 +1,8 @@
 #include "sprig/model.h"
 
 #include "format/model_file.h"
+#include "layers/feed_forward.h"
+#include "model/tensor_spec.h"
 
 namespace sprig {
 
@@ -12,7 +14,14 @@ Result<std::shared_ptr<const Model>> Model::open(const std::string& path,
   format::OpenFileOptions file_options;
   file_options.advise_random_records = options.advise_random_records;
   SPRIG_ASSIGN_OR_RETURN(auto file, format::ModelFile::Open(path, file_options));
-  return std::shared_ptr<const Model>(new Model(std::move(file)));
+  std::shared_ptr<Model> model(new Model(std::move(file)));
+  // Binding only records pointers into the mapping; no weight is read.
+  const format::ModelFile& f = *model->file_;
+  for (size_t i = 0; i < f.config().layers.size(); ++i) {
+    SPRIG_ASSIGN_OR_RETURN(auto layer, layers::BindLayer(f, i, LayerPrefix(f.config(), i)));
+    model->layers_.push_back(std::move(layer));
+  }
+  return std::shared_ptr<const Model>(std::move(model));
 }
 
 const ModelConfig& Model::config() const { return file_->config(); }

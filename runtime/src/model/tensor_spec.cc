@@ -54,12 +54,12 @@ std::vector<TensorSpec> LayerTensors(const LayerConfig& layer, const std::string
       const uint64_t nodes = TreeNodeCount(layer);
       if (layer.mode == TreeMode::kLeaf) {
         out.push_back({prefix + "nodes.weight", {nodes, in}, index, false});
-        out.push_back({prefix + "nodes.bias", {nodes}, index, false});
+        if (layer.bias) out.push_back({prefix + "nodes.bias", {nodes}, index, false});
         AddMlpTensors(out, prefix + "leaves.", index, {uint64_t{1} << layer.depth},
                       layer.leaf_width, in, outw, layer.gated, layer.bias, true);
       } else {
         out.push_back({prefix + "nodes.weight", {nodes, in}, index, true});
-        out.push_back({prefix + "nodes.bias", {nodes}, index, true});
+        if (layer.bias) out.push_back({prefix + "nodes.bias", {nodes}, index, true});
         out.push_back({prefix + "nodes.out", {nodes, outw}, index, true});
         if (layer.bias) out.push_back({prefix + "out_bias", {outw}, index, false});
       }

@@ -1,0 +1,195 @@
+"""Export of reference models to sprig's input contract, and reference outputs to verify.
+
+`export` writes, into one directory:
+
+* ``config.json``  the model's config (a stack's layers with their ``in``/``out`` spelled out);
+* ``weights.npz``  the state dict as float32 arrays under the tensor names of DESIGN.md §4;
+* ``reference.npz`` ``inputs`` (as given), ``outputs`` (hard mode, float32) and, for each
+  routed layer i, ``routes.layer{i}`` (int32: [tokens] leaves or [tokens, k] experts) and
+  ``margins.layer{i}`` (float32 [tokens]: how far each row was from another route; see
+  sprig_torch.layers).
+
+The reference outputs are computed in float64 from the float32 weights, so they are the exact
+model of the stored numbers, not one float32 evaluation order.
+
+Command line (with ``PYTHONPATH=converter/python``)::
+
+    python3 -m sprig_torch.export --config C.json --seed S --rows N --out DIR
+
+builds `random_model(config, S)`, draws inputs (stack: float32 [N, input_dim] from N(0, 1);
+transformer: int64 tokens [1, N] uniform over the vocabulary) and exports all three files.
+"""
+
+import argparse
+import copy
+import json
+import math
+import os
+import sys
+
+import numpy as np
+import torch
+
+from sprig_torch.layers import DenseFF, ExpertsFF, TreeFF
+from sprig_torch.models import (Attention, LayerNorm, RMSNorm, StackModel, TransformerModel,
+                                build_model)
+
+# Spread of "small" random biases: enough to matter, small beside the weight terms.
+_BIAS_STD = 0.05
+
+
+def weight_arrays(model, rename=None):
+    """The state dict as float32 NumPy arrays, keyed by our tensor names.
+
+    `rename` maps a name written in the file to our name (the direction of `sprig pack
+    --rename`): each of our tensors named as a value is written under its key instead.
+    """
+    arrays = {name: t.detach().to(torch.float32).cpu().numpy()
+              for name, t in model.state_dict().items()}
+    if not rename:
+        return arrays
+    theirs_for_ours = {}
+    for theirs, ours in rename.items():
+        if ours not in arrays:
+            raise ValueError(f"rename maps {theirs!r} to {ours!r}, which is not a tensor")
+        if ours in theirs_for_ours:
+            raise ValueError(f"rename maps two names to {ours!r}")
+        theirs_for_ours[ours] = theirs
+    out = {theirs_for_ours.get(name, name): a for name, a in arrays.items()}
+    if len(out) != len(arrays):
+        raise ValueError("rename makes two tensors share one name")
+    return out
+
+
+def reference_arrays(model, inputs):
+    """`inputs`, hard-mode `outputs` and per-layer routes/margins, as NumPy arrays."""
+    inputs = np.asarray(inputs)
+    reference = copy.deepcopy(model).to(torch.float64).eval()
+    x = torch.from_numpy(inputs)
+    x = x.to(torch.float64) if x.is_floating_point() else x.to(torch.int64)
+    with torch.no_grad():
+        y, routes, margins = reference(x, hard=True, return_routes=True)
+    arrays = {"inputs": inputs, "outputs": y.to(torch.float32).numpy()}
+    for i in sorted(routes):
+        arrays[f"routes.layer{i}"] = routes[i].to(torch.int32).numpy()
+        arrays[f"margins.layer{i}"] = margins[i].to(torch.float32).numpy()
+    return arrays
+
+
+def export(model, out_dir, inputs, *, config=None, rename=None):
+    """Writes config.json, weights.npz and reference.npz for `model` into `out_dir`.
+
+    `config` overrides the written config (default: the model's own); `rename` is as in
+    `weight_arrays`. Returns the paths written.
+    """
+    os.makedirs(out_dir, exist_ok=True)
+    paths = {name: os.path.join(out_dir, name)
+             for name in ("config.json", "weights.npz", "reference.npz")}
+    with open(paths["config.json"], "w", encoding="utf-8") as f:
+        json.dump(model.config if config is None else config, f, indent=2)
+        f.write("\n")
+    np.savez(paths["weights.npz"], **weight_arrays(model, rename))
+    np.savez(paths["reference.npz"], **reference_arrays(model, inputs))
+    return paths
+
+
+def _normal_(t, std, gen, mean=0.0):
+    with torch.no_grad():
+        t.copy_(mean + std * torch.randn(t.shape, generator=gen, dtype=t.dtype))
+
+
+def _init_linear(params, fan_in, gen):
+    """Weight N(0, 1/fan_in) keeps unit-scale inputs at unit scale; small biases."""
+    _normal_(params.weight, 1.0 / math.sqrt(max(fan_in, 1)), gen)
+    if getattr(params, "bias", None) is not None:
+        _normal_(params.bias, _BIAS_STD, gen)
+
+
+def _init_mlps(bank, gen):
+    for params in (bank.fc1, bank.gate, bank.fc2):
+        if params is not None:
+            _init_linear(params, params.weight.shape[-1], gen)
+
+
+def _init_module(m, gen):
+    if isinstance(m, DenseFF):
+        for lin in (m.fc1, m.gate, m.fc2):
+            if lin is not None:
+                _init_linear(lin, lin.in_features, gen)
+    elif isinstance(m, TreeFF):
+        # Node logits of unit-scale inputs are then ~N(0, 1): rows spread over all leaves.
+        _init_linear(m.nodes, m.in_features, gen)
+        if m.mode == "leaf":
+            _init_mlps(m.leaves, gen)
+        else:
+            _normal_(m.nodes.out, 1.0 / math.sqrt(m.depth + 1), gen)
+            if m.out_bias is not None:
+                _normal_(m.out_bias, _BIAS_STD, gen)
+    elif isinstance(m, ExpertsFF):
+        _init_linear(m.router, m.in_features, gen)
+        _init_mlps(m.experts, gen)
+    elif isinstance(m, Attention):
+        for lin in (m.q, m.k, m.v, m.o):
+            _init_linear(lin, lin.in_features, gen)
+    elif isinstance(m, (LayerNorm, RMSNorm)):
+        _normal_(m.weight, 0.1, gen, mean=1.0)
+        if isinstance(m, LayerNorm):
+            _normal_(m.bias, _BIAS_STD, gen)
+
+
+def random_model(config, seed):
+    """A model for `config` with seeded random float32 weights whose routing is spread out.
+
+    Node and router weights are N(0, 1/in) with small biases, so unit-scale inputs reach
+    every leaf or expert rather than one; MLP weights are N(0, 1/fan_in).
+    """
+    gen = torch.Generator().manual_seed(seed)
+    model = build_model(config)
+    for m in model.modules():
+        _init_module(m, gen)
+    if isinstance(model, TransformerModel):
+        _normal_(model.embed.weight, 1.0, gen)
+        if model.pos is not None:
+            _normal_(model.pos.weight, 0.3, gen)
+        if model.head is not None:
+            _init_linear(model.head, model.head.weight.shape[1], gen)
+    return model.eval()
+
+
+def random_inputs(model, rows, seed):
+    """Stack: float32 [rows, input_dim] ~ N(0, 1); transformer: int64 tokens [1, rows]."""
+    rng = np.random.default_rng(seed)
+    if isinstance(model, StackModel):
+        return rng.standard_normal((rows, model.input_dim)).astype(np.float32)
+    c = model.full_config
+    if rows > c["max_seq"]:
+        raise ValueError(f"--rows {rows} is longer than max_seq {c['max_seq']}")
+    return rng.integers(0, c["vocab_size"], size=(1, rows), dtype=np.int64)
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(
+        prog="python3 -m sprig_torch.export",
+        description="Build a random reference model for a config and export config.json, "
+        "weights.npz and reference.npz.")
+    parser.add_argument("--config", required=True, help="config.json to build")
+    parser.add_argument("--seed", type=int, default=0, help="seed of weights and inputs")
+    parser.add_argument("--rows", type=int, default=16,
+                        help="input rows (stack) or tokens (transformer)")
+    parser.add_argument("--out", required=True, help="directory to write")
+    args = parser.parse_args(argv)
+    try:
+        with open(args.config, encoding="utf-8") as f:
+            config = json.load(f)
+        if args.rows < 1:
+            raise ValueError(f"--rows must be >= 1, got {args.rows}")
+        model = random_model(config, args.seed)
+        export(model, args.out, random_inputs(model, args.rows, args.seed + 1))
+    except (OSError, ValueError) as e:
+        print(f"{args.config}: {e}", file=sys.stderr)
+        return 2
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

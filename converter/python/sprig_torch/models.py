@@ -1,0 +1,331 @@
+"""Reference models of sprig: the `stack` and `transformer` families (DESIGN.md §3).
+
+Like `layers`, this module is the reference for sprig's model semantics, written from the
+formulas with torch primitives; ``state_dict()`` keys are the tensor names of DESIGN.md §4
+(`layers.{i}.…` in a stack; `embed.weight`, `pos.weight`, `blocks.{i}.…`, `norm.*`, `head.*`
+in a transformer).
+
+``forward(inputs, hard=None, return_routes=False)`` returns the output or, with
+``return_routes``, ``(output, routes, margins)`` where both are dicts from the index of each
+routed layer (stack layer or transformer block) to the layer's routes/margins; a transformer
+flattens its tokens in [B*T] order (batch-major).
+
+Conventions that DESIGN.md leaves implicit and that are fixed here:
+
+* grouped-query attention: query head h uses key/value head h // (n_heads / n_kv_heads), so
+  consecutive query heads share one key/value head;
+* rotary positions: token t of a sequence has position t (0-based), also with a batch;
+* a sequence may not be longer than max_seq, whatever `positions` is.
+"""
+
+import copy
+import math
+
+import torch
+import torch.nn.functional as F
+from torch import nn
+
+from sprig_torch.layers import Params, build_layer
+
+_STACK_KEYS = {"family", "name", "description", "input_dim", "layers"}
+_TRANSFORMER_KEYS = {
+    "family", "name", "description", "vocab_size", "d_model", "n_heads", "n_kv_heads",
+    "max_seq", "norm", "norm_eps", "positions", "rope_base", "causal", "tie_embeddings",
+    "attn_bias", "tokenizer", "head", "layers"
+}
+_TRANSFORMER_DEFAULTS = {
+    "norm": "layernorm", "norm_eps": 1e-5, "positions": "learned", "rope_base": 10000.0,
+    "causal": True, "tie_embeddings": False, "attn_bias": True, "tokenizer": "none",
+    "head": {"kind": "lm"}
+}
+
+
+def _check_keys(config, allowed, what):
+    unknown = set(config) - allowed
+    if unknown:
+        raise ValueError(f"{what} config has unknown fields {sorted(unknown)}")
+
+
+def _int_field(config, key, minimum=1):
+    value = config.get(key)
+    if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
+        raise ValueError(f"config field {key!r} must be an integer >= {minimum}, got {value!r}")
+    return value
+
+
+def _choice(config, key, choices):
+    value = config[key]
+    if value not in choices:
+        raise ValueError(f"config field {key!r} must be one of {choices}, got {value!r}")
+    return value
+
+
+def _collect(result, index, routes, margins):
+    y, r, m = result
+    if r is not None:
+        routes[index] = r
+        margins[index] = m
+    return y
+
+
+class StackModel(nn.Module):
+    """`family: stack`: float rows [N, input_dim] through `layers` in order -> [N, out]."""
+
+    def __init__(self, config):
+        super().__init__()
+        _check_keys(config, _STACK_KEYS, "stack")
+        if config.get("family") != "stack":
+            raise ValueError(f"StackModel needs family 'stack', got {config.get('family')!r}")
+        width = _int_field(config, "input_dim")
+        if not config.get("layers"):
+            raise ValueError("config field 'layers' must be a non-empty list")
+        self.config = copy.deepcopy(config)
+        modules = []
+        for i, entry in enumerate(config["layers"]):
+            try:
+                layer = build_layer(entry, in_features=width)
+            except ValueError as e:
+                raise ValueError(f"layers[{i}]: {e}") from None
+            # The exported config spells out each layer's in/out.
+            self.config["layers"][i]["in"] = layer.in_features
+            self.config["layers"][i]["out"] = layer.out_features
+            modules.append(layer)
+            width = layer.out_features
+        self.layers = nn.ModuleList(modules)
+        self.input_dim = config["input_dim"]
+        self.output_dim = width
+
+    def forward(self, x, hard=None, return_routes=False):
+        routes, margins = {}, {}
+        for i, layer in enumerate(self.layers):
+            x = _collect(layer(x, hard=hard, return_routes=True), i, routes, margins)
+        return (x, routes, margins) if return_routes else x
+
+
+class LayerNorm(nn.Module):
+    """(x - mean) / sqrt(var + eps) * weight + bias, biased variance, over the last axis."""
+
+    def __init__(self, dim, eps):
+        super().__init__()
+        self.eps = eps
+        self.weight = nn.Parameter(torch.ones(dim))
+        self.bias = nn.Parameter(torch.zeros(dim))
+
+    def forward(self, x):
+        # Source: torch.nn.functional.layer_norm (biased variance, eps inside the sqrt).
+        return F.layer_norm(x, (x.shape[-1],), self.weight, self.bias, self.eps)
+
+
+class RMSNorm(nn.Module):
+    """x / sqrt(mean(x^2) + eps) * weight over the last axis (no bias)."""
+
+    def __init__(self, dim, eps):
+        super().__init__()
+        self.eps = eps
+        self.weight = nn.Parameter(torch.ones(dim))
+
+    def forward(self, x):
+        return x * torch.rsqrt(x.pow(2).mean(dim=-1, keepdim=True) + self.eps) * self.weight
+
+
+def rope_angles(positions, head_dim, base, dtype=torch.float64):
+    """Angles [len(positions), head_dim / 2]: t * base^(-2i / head_dim) for pair i."""
+    i = torch.arange(head_dim // 2, dtype=dtype)
+    inv_freq = base ** (-2.0 * i / head_dim)
+    return positions.to(dtype)[:, None] * inv_freq[None, :]
+
+
+def apply_rope(x, base):
+    """Rotary positions in rotate-half form on x [B, H, T, head_dim]; token t has position t.
+
+    Pair (i, i + head_dim/2) is rotated by angle t * base^(-2i/head_dim):
+    x'_i = x_i cos - x_{i+h} sin, x'_{i+h} = x_{i+h} cos + x_i sin.
+    """
+    t, head_dim = x.shape[-2], x.shape[-1]
+    half = head_dim // 2
+    angles = rope_angles(torch.arange(t), head_dim, base)
+    cos, sin = angles.cos().to(x.dtype), angles.sin().to(x.dtype)
+    lo, hi = x[..., :half], x[..., half:]
+    return torch.cat([lo * cos - hi * sin, hi * cos + lo * sin], dim=-1)
+
+
+class Attention(nn.Module):
+    """Multi-head self-attention with grouped key/value heads and optional rotary positions.
+
+    Input and output [B, T, d_model]; q/k/v/o are nn.Linear layers (`attn.q.weight`, …), k and
+    v of n_kv_heads * head_dim outputs. Scores q·k / sqrt(head_dim), causal mask optional.
+    """
+
+    def __init__(self, d_model, n_heads, n_kv_heads, bias, causal, rope_base=None):
+        super().__init__()
+        self.n_heads, self.n_kv_heads = n_heads, n_kv_heads
+        self.head_dim = d_model // n_heads
+        self.causal, self.rope_base = causal, rope_base
+        kv = n_kv_heads * self.head_dim
+        self.q = nn.Linear(d_model, d_model, bias=bias)
+        self.k = nn.Linear(d_model, kv, bias=bias)
+        self.v = nn.Linear(d_model, kv, bias=bias)
+        self.o = nn.Linear(d_model, d_model, bias=bias)
+
+    def _heads(self, t, count):
+        b, n, _ = t.shape
+        return t.reshape(b, n, count, self.head_dim).transpose(1, 2)  # [B, heads, T, hd]
+
+    def forward(self, x):
+        b, t, d = x.shape
+        q = self._heads(self.q(x), self.n_heads)
+        k = self._heads(self.k(x), self.n_kv_heads)
+        v = self._heads(self.v(x), self.n_kv_heads)
+        if self.rope_base is not None:
+            q, k = apply_rope(q, self.rope_base), apply_rope(k, self.rope_base)
+        group = self.n_heads // self.n_kv_heads
+        # Consecutive query heads share a key/value head.
+        k = k.repeat_interleave(group, dim=1)
+        v = v.repeat_interleave(group, dim=1)
+        scores = q @ k.transpose(-1, -2) / math.sqrt(self.head_dim)
+        if self.causal:
+            future = torch.ones(t, t, dtype=torch.bool, device=x.device).triu(1)
+            scores = scores.masked_fill(future, -math.inf)
+        out = torch.softmax(scores, dim=-1) @ v  # [B, H, T, hd]
+        return self.o(out.transpose(1, 2).reshape(b, t, d))
+
+
+class Block(nn.Module):
+    """Pre-norm block: h = x + attn(norm1(x)); x = h + ffn(norm2(h))."""
+
+    def __init__(self, config, ffn_config):
+        super().__init__()
+        d = config["d_model"]
+        norm = LayerNorm if config["norm"] == "layernorm" else RMSNorm
+        self.norm1 = norm(d, config["norm_eps"])
+        rope = config["rope_base"] if config["positions"] == "rope" else None
+        self.attn = Attention(d, config["n_heads"], config["n_kv_heads"], config["attn_bias"],
+                              config["causal"], rope)
+        self.norm2 = norm(d, config["norm_eps"])
+        self.ffn = build_layer(ffn_config, in_features=d, out_features=d)
+
+    def forward(self, x, hard=None):
+        """x [B, T, D] -> (x, (routes, margins) of the ffn over [B*T] rows or None)."""
+        h = x + self.attn(self.norm1(x))
+        b, t, d = h.shape
+        y, routes, margins = self.ffn(self.norm2(h).reshape(b * t, d), hard=hard,
+                                      return_routes=True)
+        return h + y.reshape(b, t, d), routes, margins
+
+
+def normalize_transformer_config(config):
+    """Validates a transformer config and returns a copy with every default filled in."""
+    _check_keys(config, _TRANSFORMER_KEYS, "transformer")
+    c = copy.deepcopy(_TRANSFORMER_DEFAULTS)
+    c.update(copy.deepcopy(config))
+    if c.get("family") != "transformer":
+        raise ValueError(f"family must be 'transformer', got {c.get('family')!r}")
+    _choice(c, "tokenizer", ["none", "byte"])
+    if c["tokenizer"] == "byte":
+        c.setdefault("vocab_size", 256)
+        if c["vocab_size"] != 256:
+            raise ValueError(f"tokenizer 'byte' needs vocab_size 256, got {c['vocab_size']!r}")
+    for key in ("vocab_size", "d_model", "n_heads", "max_seq"):
+        _int_field(c, key)
+    c.setdefault("n_kv_heads", c["n_heads"])
+    _int_field(c, "n_kv_heads")
+    if c["d_model"] % c["n_heads"] or c["n_heads"] % c["n_kv_heads"]:
+        raise ValueError(f"n_heads ({c['n_heads']}) must divide d_model ({c['d_model']}) and "
+                         f"n_kv_heads ({c['n_kv_heads']}) must divide n_heads")
+    _choice(c, "norm", ["layernorm", "rmsnorm"])
+    _choice(c, "positions", ["learned", "rope", "none"])
+    if c["positions"] == "rope" and (c["d_model"] // c["n_heads"]) % 2:
+        raise ValueError("positions 'rope' needs an even head_dim (d_model / n_heads)")
+    head = c["head"]
+    if not isinstance(head, dict) or head.get("kind") not in ("lm", "classifier", "none"):
+        raise ValueError(f"head must be {{'kind': lm|classifier|none, ...}}, got {head!r}")
+    if head["kind"] == "classifier":
+        _int_field(head, "classes")
+        head.setdefault("pool", "mean")
+        _choice(head, "pool", ["mean", "first", "last"])
+    if c["tie_embeddings"] and head["kind"] != "lm":
+        raise ValueError("tie_embeddings needs head kind 'lm'")
+    if not c.get("layers"):
+        raise ValueError("config field 'layers' must be a non-empty list")
+    for i, entry in enumerate(c["layers"]):
+        if isinstance(entry, dict) and ("in" in entry or "out" in entry):
+            raise ValueError(f"layers[{i}]: in/out are d_model in a transformer; omit them")
+    return c
+
+
+class TransformerModel(nn.Module):
+    """`family: transformer`: tokens [B, T] (or [T], read as B = 1) through embedding,
+    positions, one pre-norm block per `layers` entry, the final norm and the head.
+
+    Output: lm logits [B, T, V], classifier logits [B, C] or hidden states [B, T, D].
+    """
+
+    def __init__(self, config):
+        super().__init__()
+        self.config = copy.deepcopy(config)
+        c = self.full_config = normalize_transformer_config(config)
+        d, v = c["d_model"], c["vocab_size"]
+        self.embed = Params(weight=(v, d))
+        self.pos = Params(weight=(c["max_seq"], d)) if c["positions"] == "learned" else None
+        blocks = []
+        for i, entry in enumerate(c["layers"]):
+            try:
+                blocks.append(Block(c, entry))
+            except ValueError as e:
+                raise ValueError(f"layers[{i}]: {e}") from None
+        self.blocks = nn.ModuleList(blocks)
+        self.norm = (LayerNorm if c["norm"] == "layernorm" else RMSNorm)(d, c["norm_eps"])
+        head = c["head"]
+        if head["kind"] == "lm":
+            self.head = None if c["tie_embeddings"] else Params(weight=(v, d))
+        elif head["kind"] == "classifier":
+            self.head = nn.Linear(d, head["classes"])
+        else:
+            self.head = None
+
+    def forward(self, tokens, hard=None, return_routes=False):
+        c = self.full_config
+        if tokens.dim() == 1:
+            tokens = tokens[None, :]
+        if tokens.dim() != 2 or tokens.dtype not in (torch.int32, torch.int64):
+            raise ValueError(f"tokens must be integers [B, T] or [T], got {tokens.dtype} "
+                             f"{list(tokens.shape)}")
+        b, t = tokens.shape
+        if t > c["max_seq"]:
+            raise ValueError(f"sequence of {t} tokens is longer than max_seq {c['max_seq']}")
+        if tokens.numel() and (tokens.min() < 0 or tokens.max() >= c["vocab_size"]):
+            raise ValueError(f"tokens must be in [0, {c['vocab_size']})")
+        x = F.embedding(tokens.long(), self.embed.weight)
+        if self.pos is not None:
+            x = x + self.pos.weight[:t]
+        routes, margins = {}, {}
+        for i, block in enumerate(self.blocks):
+            x = _collect(block(x, hard=hard), i, routes, margins)
+        y = self._head(self.norm(x))
+        return (y, routes, margins) if return_routes else y
+
+    def _head(self, x):
+        head = self.full_config["head"]
+        if head["kind"] == "lm":
+            w = self.embed.weight if self.head is None else self.head.weight
+            return x @ w.t()
+        if head["kind"] == "classifier":
+            pooled = {"mean": lambda: x.mean(dim=1), "first": lambda: x[:, 0],
+                      "last": lambda: x[:, -1]}[head["pool"]]()
+            return self.head(pooled)
+        return x
+
+
+def byte_tokens(text):
+    """Tokenizer `byte`: one token per UTF-8 byte of `text`, as an int64 tensor [T]."""
+    return torch.tensor(list(text.encode("utf-8")), dtype=torch.int64)
+
+
+def build_model(config):
+    """StackModel or TransformerModel according to config['family']."""
+    family = config.get("family") if isinstance(config, dict) else None
+    if family == "stack":
+        return StackModel(config)
+    if family == "transformer":
+        return TransformerModel(config)
+    raise ValueError(f"config field 'family' must be 'stack' or 'transformer', got {family!r}")

@@ -1,0 +1,149 @@
+// Compute kernels: the few vector routines every layer is built from, in one implementation per
+// instruction set, chosen at run time.
+//
+// A KernelTable is a struct of function pointers. There is one table per KernelPath: kScalar is
+// plain C++ (always present, the reference every other path is tested against), the others are
+// the same algorithms written once over xsimd and compiled per instruction set in their own
+// files (kernels_sse42.cc, kernels_avx2.cc, kernels_avx512.cc, kernels_neon.cc). Only files
+// compiled for an instruction set ever execute its instructions; this file's dispatcher is
+// baseline code.
+//
+// Conventions for every kernel: activations and results are float32, accumulation is float32,
+// weights are stored as float32, f16 or bf16 (raw uint16_t bits, see numeric/half.h) in the
+// PyTorch nn.Linear layout W[out, in] (row-major, one output per row). Pointers need no
+// alignment. n, rows, out or in may be 0 (nothing is read; outputs of a 0-length reduction are
+// the bias or 0). Outputs must not overlap inputs unless a kernel says so.
+//
+// Results of different paths agree to rounding: vector paths sum in a different order and use
+// vector erf/exp/tanh, so they are not bit-identical to the scalar path (the converters are).
+// Tables are immutable; every function is thread-safe.
+#pragma once
+
+#include <cassert>
+#include <cstddef>
+#include <cstdint>
+#include <string_view>
+#include <vector>
+
+#include "sprig/config.h"
+#include "sprig/status.h"
+
+namespace sprig::kernels {
+
+enum class KernelPath : uint8_t { kScalar, kSse42, kAvx2, kAvx512, kNeon };
+
+// Kernels for one weight storage type W (float for f32, uint16_t bits for f16 and bf16).
+template <typename W>
+struct WeightKernels {
+  // Returns Σ_i x[i]·w[i], i < n.
+  float (*dot)(const float* x, const W* w, size_t n);
+  // y[o] = Σ_i w[o·in + i]·x[i] + bias[o], o < out. `bias` may be null (zero).
+  void (*gemv)(const W* w, const float* x, const float* bias, float* y, size_t out, size_t in);
+  // Y[r, o] = Σ_i X[r, i]·W[o, i] + bias[o] for r < rows: X is [rows, in], Y is [rows, out],
+  // both row-major and contiguous. Meant for small row counts (a leaf or expert evaluated over
+  // the group of rows routed to it); `bias` may be null.
+  void (*gemm_rows)(const W* w, const float* x, const float* bias, float* y, size_t rows,
+                    size_t out, size_t in);
+  // y[i] += a·w[i], i < n.
+  void (*axpy)(float a, const W* w, float* y, size_t n);
+};
+
+struct KernelTable {
+  KernelPath path;
+  WeightKernels<float> f32;
+  WeightKernels<uint16_t> f16;
+  WeightKernels<uint16_t> bf16;
+
+  // x[i] = act(x[i]), in place. relu(x) = max(x, 0) (NaN stays NaN); gelu is the exact form
+  // 0.5·x·(1 + erf(x/√2)); gelu_tanh is 0.5·x·(1 + tanh(√(2/π)·(x + 0.044715·x³))); silu is
+  // x·sigmoid(x).
+  void (*activate)(Activation act, float* x, size_t n);
+  // h[i] = act(gate[i])·up[i]. `h` may be `gate` or `up`.
+  void (*gated_activate)(Activation act, const float* gate, const float* up, float* h, size_t n);
+  // x = softmax(x) in place, computed as exp(x - max x) / Σ exp(x - max x).
+  void (*softmax)(float* x, size_t n);
+  // y = (x - mean)/sqrt(var + eps)·weight + bias with the biased variance. `weight` and `bias`
+  // may be null (1 and 0); `y` may be `x`.
+  void (*layer_norm)(const float* x, const float* weight, const float* bias, float eps, float* y,
+                     size_t n);
+  // y = x/sqrt(mean(x²) + eps)·weight. `weight` may be null (1); `y` may be `x`.
+  void (*rms_norm)(const float* x, const float* weight, float eps, float* y, size_t n);
+
+  // Array converters, bit-identical on every path to numeric::FloatToHalf and friends.
+  void (*f32_to_f16)(const float* src, uint16_t* dst, size_t n);
+  void (*f16_to_f32)(const uint16_t* src, float* dst, size_t n);
+  void (*f32_to_bf16)(const float* src, uint16_t* dst, size_t n);
+  void (*bf16_to_f32)(const uint16_t* src, float* dst, size_t n);
+};
+
+// "scalar", "sse42", "avx2", "avx512", "neon".
+const char* ToString(KernelPath path);
+// The inverse of ToString; an unknown name is InvalidArgument.
+Result<KernelPath> ParseKernelPath(std::string_view name);
+
+// True when `path` is compiled into this build and this CPU (and OS) supports it: sse42 needs
+// SSE4.2; avx2 needs AVX2, FMA and F16C; avx512 needs AVX-512 F, BW, DQ and VL; neon is
+// always there on aarch64.
+bool IsPathAvailable(KernelPath path);
+// Every available path, kScalar first, in the order of the enum.
+std::vector<KernelPath> AvailablePaths();
+// The fastest available path, from the CPU's features alone.
+KernelPath DetectBestPath();
+
+// The path a request names: null or "" means DetectBestPath(); otherwise the named path, which
+// must be available (InvalidArgument names the request and what this CPU offers).
+Result<KernelPath> ResolvePath(const char* requested);
+
+// The path used by ActiveKernels(): ResolvePath(getenv("SPRIG_KERNEL_PATH")). A request this
+// CPU cannot honour is refused: one warning line goes to stderr and DetectBestPath() is used.
+KernelPath BestAvailablePath();
+
+// The table of `path`. Precondition: IsPathAvailable(path); otherwise the scalar table is
+// returned (never code this CPU cannot run).
+const KernelTable& Kernels(KernelPath path);
+// The table of BestAvailablePath(), chosen once on first use.
+const KernelTable& ActiveKernels();
+
+// Type-erased access for layers that hold a storage type and a raw weight pointer. `type` must
+// be kF32, kF16 or kBF16 (i8 rows are dequantised by the caller).
+inline float Dot(const KernelTable& k, DType type, const float* x, const void* w, size_t n) {
+  assert(type != DType::kI8);
+  switch (type) {
+    case DType::kF16: return k.f16.dot(x, static_cast<const uint16_t*>(w), n);
+    case DType::kBF16: return k.bf16.dot(x, static_cast<const uint16_t*>(w), n);
+    default: return k.f32.dot(x, static_cast<const float*>(w), n);
+  }
+}
+
+inline void Gemv(const KernelTable& k, DType type, const void* w, const float* x,
+                 const float* bias, float* y, size_t out, size_t in) {
+  assert(type != DType::kI8);
+  switch (type) {
+    case DType::kF16: return k.f16.gemv(static_cast<const uint16_t*>(w), x, bias, y, out, in);
+    case DType::kBF16: return k.bf16.gemv(static_cast<const uint16_t*>(w), x, bias, y, out, in);
+    default: return k.f32.gemv(static_cast<const float*>(w), x, bias, y, out, in);
+  }
+}
+
+inline void GemmRows(const KernelTable& k, DType type, const void* w, const float* x,
+                     const float* bias, float* y, size_t rows, size_t out, size_t in) {
+  assert(type != DType::kI8);
+  switch (type) {
+    case DType::kF16:
+      return k.f16.gemm_rows(static_cast<const uint16_t*>(w), x, bias, y, rows, out, in);
+    case DType::kBF16:
+      return k.bf16.gemm_rows(static_cast<const uint16_t*>(w), x, bias, y, rows, out, in);
+    default: return k.f32.gemm_rows(static_cast<const float*>(w), x, bias, y, rows, out, in);
+  }
+}
+
+inline void Axpy(const KernelTable& k, DType type, float a, const void* w, float* y, size_t n) {
+  assert(type != DType::kI8);
+  switch (type) {
+    case DType::kF16: return k.f16.axpy(a, static_cast<const uint16_t*>(w), y, n);
+    case DType::kBF16: return k.bf16.axpy(a, static_cast<const uint16_t*>(w), y, n);
+    default: return k.f32.axpy(a, static_cast<const float*>(w), y, n);
+  }
+}
+
+}  // namespace sprig::kernels

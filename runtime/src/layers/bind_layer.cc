@@ -1,0 +1,22 @@
+#include "layers/layer_kinds.h"
+
+namespace sprig::layers {
+
+Result<std::unique_ptr<FeedForward>> BindLayer(const format::ModelFile& file, size_t index,
+                                               const std::string& prefix) {
+  const LayerConfig& c = file.config().layers[index];
+  Binder b(file, prefix);
+  switch (c.kind) {
+    case LayerKind::kDense:
+      return std::unique_ptr<FeedForward>(new DenseLayer(b, c));
+    case LayerKind::kTree:
+      if (c.mode == TreeMode::kLeaf) return std::unique_ptr<FeedForward>(new LeafTreeLayer(b, c));
+      return std::unique_ptr<FeedForward>(new PathTreeLayer(b, c));
+    case LayerKind::kExperts:
+      return std::unique_ptr<FeedForward>(new ExpertsLayer(b, c));
+  }
+  return Status::NotSupported(file.path() + ": layer " + std::to_string(index) +
+                              " has a kind this build cannot run");
+}
+
+}  // namespace sprig::layers

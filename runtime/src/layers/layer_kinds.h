@@ -1,0 +1,95 @@
+// The concrete feed-forward layers. Semantics: the model definition in README.md ("Model
+// semantics"); the PyTorch reference in converter/python/sprig_torch/layers.py is the
+// executable form the tests compare against.
+#pragma once
+
+#include "layers/bind.h"
+
+namespace sprig::layers {
+
+class DenseLayer final : public FeedForward {
+ public:
+  DenseLayer(const Binder& b, const LayerConfig& c);
+  void Forward(const Exec& e, const float* x, size_t rows, float* y,
+               int32_t* routes) const override;
+
+ private:
+  MlpView mlp_;
+};
+
+// Hard descent to one leaf MLP (fast feedforward inference).
+class LeafTreeLayer final : public FeedForward {
+ public:
+  LeafTreeLayer(const Binder& b, const LayerConfig& c);
+  void Forward(const Exec& e, const float* x, size_t rows, float* y,
+               int32_t* routes) const override;
+  size_t route_width() const override { return 1; }
+  uint64_t unit_count() const override { return uint64_t{1} << config_.depth; }
+
+ private:
+  uint32_t Descend(const kernels::KernelTable& k, const float* x, bool prefetch) const;
+  MlpView Leaf(uint64_t leaf) const { return MlpOf(binder_, leaves_, leaf, config_, config_.leaf_width); }
+
+  Binder binder_;
+  LayerConfig config_;
+  MatrixView nodes_;
+  const float* node_bias_ = nullptr;
+  MlpTensors leaves_;
+};
+
+// Every neuron on the root-to-leaf path contributes (conditional matrix multiplication form).
+class PathTreeLayer final : public FeedForward {
+ public:
+  PathTreeLayer(const Binder& b, const LayerConfig& c);
+  void Forward(const Exec& e, const float* x, size_t rows, float* y,
+               int32_t* routes) const override;
+  size_t route_width() const override { return 1; }
+  uint64_t unit_count() const override { return uint64_t{1} << config_.depth; }
+
+ private:
+  // One neuron for one row: y += act(w·x + b)·out; returns the pre-activation. With
+  // `prefetch_child`, the chosen child's rows are prefetched before the output row is added.
+  float Step(const kernels::KernelTable& k, uint64_t node, const float* x, float* y,
+             bool prefetch_child) const;
+  void Prefetch(uint64_t node) const;
+
+  Binder binder_;
+  LayerConfig config_;
+  const format::TensorInfo* weight_ = nullptr;
+  const format::TensorInfo* bias_ = nullptr;
+  const format::TensorInfo* out_rows_ = nullptr;
+  const float* out_bias_ = nullptr;
+};
+
+// Top-k mixture of experts with a softmax router.
+class ExpertsLayer final : public FeedForward {
+ public:
+  ExpertsLayer(const Binder& b, const LayerConfig& c);
+  void Forward(const Exec& e, const float* x, size_t rows, float* y,
+               int32_t* routes) const override;
+  size_t route_width() const override { return config_.top_k; }
+  uint64_t unit_count() const override { return config_.experts; }
+
+ private:
+  // Chooses top_k experts for one row from its router logits (overwritten with probabilities);
+  // writes indices and mixing weights in descending weight order, ties to the lower index.
+  void Choose(const kernels::KernelTable& k, float* logits, int32_t* chosen, float* weights) const;
+  static constexpr size_t kMaxExpertsOnStack = 256;
+  MlpView Expert(uint64_t j) const { return MlpOf(binder_, experts_, j, config_, config_.width); }
+
+  Binder binder_;
+  LayerConfig config_;
+  MatrixView router_;
+  const float* router_bias_ = nullptr;
+  MlpTensors experts_;
+};
+
+// Orders rows by unit: order[] lists rows grouped by unit (rows ascending within a unit),
+// groups[] the (unit, begin, end) of each non-empty group in unit order.
+struct RowGroup {
+  uint32_t unit, begin, end;
+};
+void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& order,
+                 std::vector<RowGroup>& groups);
+
+}  // namespace sprig::layers

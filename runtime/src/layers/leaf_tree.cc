@@ -1,0 +1,98 @@
+// Tree in leaf mode: d node decisions, then one leaf MLP.
+#include <algorithm>
+#include <cstring>
+
+#include "layers/layer_kinds.h"
+
+namespace sprig::layers {
+
+LeafTreeLayer::LeafTreeLayer(const Binder& b, const LayerConfig& c) : binder_(b), config_(c) {
+  in_ = c.in;
+  out_ = c.out;
+  if (c.depth > 0) {
+    nodes_ = b.Matrix(b.Find("nodes.weight"));
+    node_bias_ = b.FloatRow(b.Find("nodes.bias"), 0);
+  }
+  leaves_ = FindMlp(b, "leaves");
+}
+
+uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
+                                bool prefetch) const {
+  uint64_t n = 0;
+  const uint64_t first_leaf = (uint64_t{1} << config_.depth) - 1;
+  for (uint32_t level = 0; level < config_.depth; ++level) {
+    if (prefetch) {
+      // While this node's dot product runs, start loading whichever comes next: both child
+      // nodes, or at the last level both candidate leaves.
+      if (level + 1 == config_.depth) {
+        PrefetchMlp(Leaf(2 * n + 1 - first_leaf));
+        PrefetchMlp(Leaf(2 * n + 2 - first_leaf));
+      } else {
+        __builtin_prefetch(nodes_.row(2 * n + 1), 0, 1);
+        __builtin_prefetch(nodes_.row(2 * n + 2), 0, 1);
+      }
+    }
+    const float logit = kernels::Dot(k, nodes_.type, x, nodes_.row(n), in_) +
+                        (node_bias_ ? node_bias_[n] : 0.0f);
+    // A logit of exactly 0 (or NaN) goes left.
+    n = 2 * n + 1 + (logit > 0.0f ? 1 : 0);
+  }
+  return static_cast<uint32_t>(n - first_leaf);
+}
+
+void LeafTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y,
+                            int32_t* routes) const {
+  const kernels::KernelTable& k = *e.k;
+  Scratch& s0 = (*e.scratch)[0];
+  if (e.single_row) {
+    const uint32_t leaf = Descend(k, x, true);
+    if (routes) routes[0] = static_cast<int32_t>(leaf);
+    MlpForward(k, Leaf(leaf), x, 1, y, s0, true);
+    return;
+  }
+  // Descend every row (rows are independent), then evaluate each touched leaf once over the
+  // rows routed to it, as a small matrix product.
+  std::vector<uint32_t> leaf_of(rows);
+  const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
+  e.ParallelFor(chunks, [&](size_t c, Scratch&) {
+    for (size_t r = c * kRowChunk; r < std::min(rows, (c + 1) * kRowChunk); ++r) {
+      leaf_of[r] = Descend(k, x + r * in_, false);
+    }
+  });
+  if (routes) {
+    for (size_t r = 0; r < rows; ++r) routes[r] = static_cast<int32_t>(leaf_of[r]);
+  }
+  std::vector<uint32_t> order;
+  std::vector<RowGroup> groups;
+  GroupByUnit(leaf_of.data(), rows, order, groups);
+  e.ParallelFor(groups.size(), [&](size_t gi, Scratch& s) {
+    const RowGroup& g = groups[gi];
+    const size_t n = g.end - g.begin;
+    if (s.c.size() < n * in_) s.c.resize(n * in_);
+    if (s.d.size() < n * out_) s.d.resize(n * out_);
+    for (size_t i = 0; i < n; ++i) {
+      std::memcpy(s.c.data() + i * in_, x + order[g.begin + i] * in_, in_ * sizeof(float));
+    }
+    MlpForward(k, Leaf(g.unit), s.c.data(), n, s.d.data(), s, false);
+    for (size_t i = 0; i < n; ++i) {
+      std::memcpy(y + order[g.begin + i] * out_, s.d.data() + i * out_, out_ * sizeof(float));
+    }
+  });
+}
+
+void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& order,
+                 std::vector<RowGroup>& groups) {
+  order.resize(count);
+  for (size_t i = 0; i < count; ++i) order[i] = static_cast<uint32_t>(i);
+  std::stable_sort(order.begin(), order.end(),
+                   [&](uint32_t a, uint32_t b) { return unit_of[a] < unit_of[b]; });
+  groups.clear();
+  for (size_t i = 0; i < count;) {
+    size_t j = i;
+    while (j < count && unit_of[order[j]] == unit_of[order[i]]) ++j;
+    groups.push_back({unit_of[order[i]], static_cast<uint32_t>(i), static_cast<uint32_t>(j)});
+    i = j;
+  }
+}
+
+}  // namespace sprig::layers

@@ -1,0 +1,27 @@
+// The MLP every layer kind is built from: h = act(fc1 x + b1) (⊙ (gate…) when gated),
+// y = fc2 h + b2. Leaves and experts are MLPs whose weights live in one record.
+#pragma once
+
+#include "layers/feed_forward.h"
+
+namespace sprig::layers {
+
+struct MlpView {
+  MatrixView fc1, gate, fc2;  // gate.data is null when ungated
+  const float* fc1_bias = nullptr;
+  const float* gate_bias = nullptr;
+  const float* fc2_bias = nullptr;
+  Activation activation = Activation::kRelu;
+  size_t width = 0, in = 0, out = 0;
+};
+
+// y[rows, out] = mlp(x[rows, in]). Uses scratch.a and scratch.b. `vector_kernels` picks the
+// matrix-vector kernels (only for calls of one row: the two kernel families round
+// differently, and a row's result must not depend on how its batch was split).
+void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* x, size_t rows,
+                float* y, Scratch& scratch, bool vector_kernels);
+
+// Hints the CPU to start loading the first cache lines of a unit's weights.
+void PrefetchMlp(const MlpView& mlp);
+
+}  // namespace sprig::layers

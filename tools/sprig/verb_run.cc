@@ -1,0 +1,271 @@
+// sprig run MODEL --input IN.npy --output OUT.npy [--routes R.npz] [--batch N] [--threads N]
+// sprig routes MODEL --input IN.npy [--json]
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <cstring>
+#include <memory>
+#include <nlohmann/json.hpp>
+
+#include "cli.h"
+#include "converter/io/tensor_archive.h"
+#include "layers/feed_forward.h"
+#include "sprig/session.h"
+
+namespace sprig::cli {
+namespace {
+
+struct RunArgs {
+  std::string model, input, output, routes;
+  size_t batch = 64;
+  size_t threads = 1;
+  bool json = false;
+};
+
+// Reads float rows [N, in] (or one row [in]) from a .npy file as float32.
+Result<std::vector<float>> ReadRows(const std::string& path, size_t in, size_t* rows) {
+  SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, io::TensorArchive::Open(path));
+  if (archive.arrays().size() != 1) {
+    return Status::InvalidArgument(path + " holds " + std::to_string(archive.arrays().size()) +
+                                   " arrays; --input takes one array of rows");
+  }
+  const io::NdArray& a = archive.arrays()[0];
+  if (a.type != io::ElementType::kF32 && a.type != io::ElementType::kF64) {
+    return Status::InvalidArgument(path + " holds " + std::string(io::ElementTypeName(a.type)) +
+                                   " values; this model takes float32 or float64 rows");
+  }
+  const bool one_row = a.shape.size() == 1;
+  if ((a.shape.size() != 2 && !one_row) || a.shape.back() != in) {
+    std::string shape = "[";
+    for (size_t i = 0; i < a.shape.size(); ++i) shape += (i ? ", " : "") + std::to_string(a.shape[i]);
+    return Status::InvalidArgument(path + " has shape " + shape + "]; the model takes rows of " +
+                                   std::to_string(in) + " values, shape [N, " +
+                                   std::to_string(in) + "]");
+  }
+  *rows = one_row ? 1 : a.shape[0];
+  std::vector<float> out(*rows * in);
+  for (size_t i = 0; i < out.size(); ++i) {
+    if (a.type == io::ElementType::kF32) {
+      std::memcpy(&out[i], a.data + 4 * i, 4);
+    } else {
+      double d;
+      std::memcpy(&d, a.data + 8 * i, 8);
+      out[i] = static_cast<float>(d);
+    }
+    if (!std::isfinite(out[i])) {
+      return Status::InvalidArgument(path + ": row " + std::to_string(i / in) + ", column " +
+                                     std::to_string(i % in) + " is not a finite number");
+    }
+  }
+  return out;
+}
+
+struct RunResult {
+  std::vector<float> output;
+  Routes routes;  // concatenated over batches
+  size_t rows = 0;
+};
+
+Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
+  SPRIG_ASSIGN_OR_RETURN(auto model, Model::open(a.model));
+  const ModelConfig& c = model->config();
+  if (c.family != Family::kStack) {
+    return Status::InvalidArgument(a.model + " is a transformer model; it takes int tokens, "
+                                             "not float rows");
+  }
+  if (a.batch == 0) return Status::InvalidArgument("--batch must be at least 1");
+  RunResult r;
+  SPRIG_ASSIGN_OR_RETURN(std::vector<float> x, ReadRows(a.input, c.input_dim, &r.rows));
+  SessionOptions options;
+  options.threads = a.threads;
+  SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model, options));
+  const size_t out = c.output_dim();
+  r.output.resize(r.rows * out);
+  Progress progress("running " + a.model);
+  for (size_t r0 = 0; r0 < r.rows; r0 += a.batch) {
+    const size_t n = std::min(a.batch, r.rows - r0);
+    Routes batch_routes;
+    SPRIG_RETURN_IF_ERROR(session->forward(x.data() + r0 * c.input_dim, n,
+                                           r.output.data() + r0 * out,
+                                           want_routes ? &batch_routes : nullptr));
+    if (want_routes) {
+      if (r.routes.layers.empty()) {
+        r.routes = std::move(batch_routes);
+      } else {
+        for (size_t l = 0; l < batch_routes.layers.size(); ++l) {
+          auto& dst = r.routes.layers[l].choices;
+          const auto& src = batch_routes.layers[l].choices;
+          dst.insert(dst.end(), src.begin(), src.end());
+        }
+      }
+    }
+    progress.Update((r0 + n) * c.input_dim * 4, r.rows * c.input_dim * 4);
+  }
+  progress.Finish();
+  return r;
+}
+
+int RunRun(const RunArgs& a) {
+  auto r = RunModel(a, !a.routes.empty());
+  if (!r.ok()) return Fail("run", r.status());
+  const size_t out = r->rows ? r->output.size() / r->rows : 0;
+  std::vector<uint8_t> bytes(r->output.size() * 4);
+  std::memcpy(bytes.data(), r->output.data(), bytes.size());
+  Status s = io::WriteNpy(a.output,
+                          io::NdArray::Owned("output", io::ElementType::kF32,
+                                             {r->rows, out}, std::move(bytes)),
+                          /*overwrite=*/true);
+  if (!s.ok()) return Fail("run", s);
+  if (!a.routes.empty()) {
+    std::vector<io::NdArray> arrays;
+    for (const LayerRoutes& lr : r->routes.layers) {
+      std::vector<uint8_t> rb(lr.choices.size() * 4);
+      std::memcpy(rb.data(), lr.choices.data(), rb.size());
+      std::vector<uint64_t> shape = {r->rows};
+      if (lr.width > 1) shape.push_back(lr.width);
+      arrays.push_back(io::NdArray::Owned("layer" + std::to_string(lr.layer),
+                                          io::ElementType::kI32, shape, std::move(rb)));
+    }
+    s = io::WriteNpz(a.routes, arrays, false, /*overwrite=*/true);
+    if (!s.ok()) return Fail("run", s);
+  }
+  std::fprintf(stderr, "ran %zu rows -> %s [%zu, %zu]%s\n", r->rows, a.output.c_str(), r->rows,
+               out, a.routes.empty() ? "" : (", routes -> " + a.routes).c_str());
+  return kExitOk;
+}
+
+// ---- routes: usage statistics ----
+
+struct Usage {
+  size_t layer = 0;
+  std::vector<uint64_t> counts;
+  uint64_t total = 0;
+  double entropy_bits = 0, max_entropy_bits = 0, top1pct_share = 0, imbalance = 0;
+  uint64_t dead = 0;
+};
+
+Usage Summarise(const LayerRoutes& lr, uint64_t units) {
+  Usage u;
+  u.layer = lr.layer;
+  u.counts.assign(units, 0);
+  for (int32_t c : lr.choices) {
+    if (c >= 0 && static_cast<uint64_t>(c) < units) ++u.counts[c];
+  }
+  u.total = lr.choices.size();
+  u.max_entropy_bits = std::log2(static_cast<double>(units));
+  uint64_t max_count = 0;
+  for (uint64_t c : u.counts) {
+    if (c == 0) ++u.dead;
+    max_count = std::max(max_count, c);
+    if (c > 0 && u.total > 0) {
+      const double p = static_cast<double>(c) / static_cast<double>(u.total);
+      u.entropy_bits -= p * std::log2(p);
+    }
+  }
+  std::vector<uint64_t> sorted = u.counts;
+  std::sort(sorted.rbegin(), sorted.rend());
+  const size_t top = std::max<size_t>(1, (units + 99) / 100);
+  uint64_t top_sum = 0;
+  for (size_t i = 0; i < top && i < sorted.size(); ++i) top_sum += sorted[i];
+  u.top1pct_share = u.total ? static_cast<double>(top_sum) / static_cast<double>(u.total) : 0;
+  const double mean = static_cast<double>(u.total) / static_cast<double>(units);
+  u.imbalance = mean > 0 ? static_cast<double>(max_count) / mean : 0;
+  return u;
+}
+
+void PrintHistogram(const Usage& u) {
+  const size_t bins = std::min<size_t>(32, u.counts.size());
+  const size_t per_bin = (u.counts.size() + bins - 1) / bins;
+  std::vector<uint64_t> b(bins, 0);
+  for (size_t i = 0; i < u.counts.size(); ++i) b[i / per_bin] += u.counts[i];
+  const uint64_t peak = *std::max_element(b.begin(), b.end());
+  for (size_t i = 0; i < bins; ++i) {
+    const size_t first = i * per_bin, last = std::min(u.counts.size(), first + per_bin) - 1;
+    const int bar = peak ? static_cast<int>(40.0 * static_cast<double>(b[i]) / peak + 0.5) : 0;
+    char label[48];
+    if (first == last) {
+      std::snprintf(label, sizeof(label), "%zu", first);
+    } else {
+      std::snprintf(label, sizeof(label), "%zu-%zu", first, last);
+    }
+    std::printf("    %-11s %8llu %s\n", label, static_cast<unsigned long long>(b[i]),
+                std::string(bar, '#').c_str());
+  }
+}
+
+int RunRoutes(const RunArgs& a) {
+  auto r = RunModel(a, true);
+  if (!r.ok()) return Fail("routes", r.status());
+  auto model = Model::open(a.model);
+  if (!model.ok()) return Fail("routes", model.status());
+  std::vector<Usage> usage;
+  for (const LayerRoutes& lr : r->routes.layers) {
+    usage.push_back(Summarise(lr, (*model)->layers()[lr.layer]->unit_count()));
+  }
+  if (a.json) {
+    nlohmann::json j;
+    j["rows"] = r->rows;
+    j["layers"] = nlohmann::json::array();
+    for (const Usage& u : usage) {
+      j["layers"].push_back({{"layer", u.layer},
+                             {"units", u.counts.size()},
+                             {"choices", u.total},
+                             {"counts", u.counts},
+                             {"entropy_bits", u.entropy_bits},
+                             {"max_entropy_bits", u.max_entropy_bits},
+                             {"top_1pct_share", u.top1pct_share},
+                             {"dead", u.dead},
+                             {"imbalance", u.imbalance}});
+    }
+    std::printf("%s\n", j.dump(2).c_str());
+    return kExitOk;
+  }
+  std::printf("%s: routes of %zu rows\n", a.model.c_str(), r->rows);
+  if (usage.empty()) std::printf("  the model has no routed layers\n");
+  for (const Usage& u : usage) {
+    const LayerConfig& lc = (*model)->config().layers[u.layer];
+    std::printf("\nlayer %zu (%s, %zu %s)\n", u.layer, ToString(lc.kind), u.counts.size(),
+                lc.kind == LayerKind::kExperts ? "experts" : "leaves");
+    std::printf("  entropy      %.2f bits of %.2f possible (%.0f%%)\n", u.entropy_bits,
+                u.max_entropy_bits,
+                u.max_entropy_bits > 0 ? 100.0 * u.entropy_bits / u.max_entropy_bits : 100.0);
+    std::printf("  busiest 1%%   take %.1f%% of choices\n", 100.0 * u.top1pct_share);
+    std::printf("  dead         %llu never reached\n", static_cast<unsigned long long>(u.dead));
+    std::printf("  imbalance    %.2f (busiest / mean)\n", u.imbalance);
+    PrintHistogram(u);
+  }
+  return kExitOk;
+}
+
+void AddCommonOptions(CLI::App* c, RunArgs& a) {
+  c->add_option("MODEL", a.model, "the .sprig file")->required();
+  c->add_option("--input", a.input, "float32/float64 rows [N, input_dim] as .npy")->required();
+  c->add_option("--batch", a.batch, "rows per forward call")->capture_default_str();
+  c->add_option("--threads", a.threads, "threads per call (0: one per CPU)")
+      ->capture_default_str();
+}
+
+}  // namespace
+
+Verb AddRun(CLI::App& app) {
+  auto args = std::make_shared<RunArgs>();
+  CLI::App* c = app.add_subcommand("run", "Run a model on rows from a .npy file.");
+  AddCommonOptions(c, *args);
+  c->add_option("--output", args->output, "where to write float32 outputs [N, out] (.npy)")
+      ->required();
+  c->add_option("--routes", args->routes,
+                "also write each routed layer's choices to this .npz (layer{i}: int32)");
+  c->footer("Outputs are whatever the model computes; a model's predictions can be wrong.");
+  return {c, [args] { return RunRun(*args); }};
+}
+
+Verb AddRoutes(CLI::App& app) {
+  auto args = std::make_shared<RunArgs>();
+  CLI::App* c = app.add_subcommand(
+      "routes", "Show how rows spread over each routed layer's leaves or experts.");
+  AddCommonOptions(c, *args);
+  c->add_flag("--json", args->json, "print JSON");
+  return {c, [args] { return RunRoutes(*args); }};
+}
+
+}  // namespace sprig::cli
