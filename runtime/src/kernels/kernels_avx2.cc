@@ -12,11 +12,12 @@ struct Avx2Traits {
   using Arch = xsimd::fma3<xsimd::avx2>;
   using F = xsimd::batch<float, Arch>;
   using I = xsimd::batch<int32_t, Arch>;
-  // 16 vector registers: 4x2 accumulators plus the weight and row vectors. 4x2 = 8 sums is
-  // one vector, so each block is reduced by one haddp.
+  // Block shapes chosen by measurement (bench/kernels_bench.cc). 16 vector registers: 3x3
+  // accumulators and three weight vectors; the row vector is folded into the FMA as a memory
+  // operand. gemv streams eight weight rows at once.
   static constexpr int kGemmRows = 3;
   static constexpr int kGemmCols = 3;
-  static constexpr int kGemvCols = 16;
+  static constexpr int kGemvCols = 8;
 
   static I Widen(const uint16_t* p) {
     return _mm256_cvtepu16_epi32(_mm_loadu_si128(reinterpret_cast<const __m128i*>(p)));

@@ -17,13 +17,17 @@ namespace sprig::kernels {
 namespace {
 
 struct Avx512Traits {
-  using Arch = xsimd::avx512bw;
+  // avx512dq rather than avx512bw: xsimd 8.1's avx512bw integer select does not compile without
+  // optimisation (its intrinsic macros cannot cast a batch), and nothing here needs 8- or 16-bit
+  // lanes. The file is still compiled with, and dispatched on, AVX-512 BW.
+  using Arch = xsimd::avx512dq;
   using F = xsimd::batch<float, Arch>;
   using I = xsimd::batch<int32_t, Arch>;
-  // 32 vector registers: 4x4 accumulators plus four weight vectors and a row vector.
+  // Block shapes chosen by measurement (bench/kernels_bench.cc). 32 vector registers: 4x6
+  // accumulators, six weight vectors and a row vector (3x8 would need 33 and spill).
   static constexpr int kGemmRows = 4;
   static constexpr int kGemmCols = 6;
-  static constexpr int kGemvCols = 16;
+  static constexpr int kGemvCols = 8;
 
   static I Widen(const uint16_t* p) {
     return _mm512_cvtepu16_epi32(_mm256_loadu_si256(reinterpret_cast<const __m256i*>(p)));

@@ -12,7 +12,7 @@ struct NeonTraits {
   using Arch = xsimd::neon64;
   using F = xsimd::batch<float, Arch>;
   using I = xsimd::batch<int32_t, Arch>;
-  // 32 vector registers, as on AVX-512; 4x4 = 16 sums is four vectors, four haddp.
+  // 32 vector registers, as on AVX-512: 4x6 accumulators, six weight vectors and a row vector.
   static constexpr int kGemmRows = 4;
   static constexpr int kGemmCols = 6;
   static constexpr int kGemvCols = 8;

@@ -18,8 +18,6 @@
 // where F, I are xsimd::batch<float|int32_t, Arch> and L = F::size.
 #pragma once
 
-#include <algorithm>
-#include <cmath>
 #include <cstddef>
 #include <cstdint>
 #include <cstring>
@@ -31,6 +29,18 @@
 
 namespace sprig::kernels {
 namespace {
+
+// Local stand-ins for std::min, std::max and std::sqrt: in an unoptimised build those are
+// out-of-line functions that baseline files share, the ODR hazard described above.
+template <typename T>
+constexpr T Min(T a, T b) {
+  return b < a ? b : a;
+}
+template <typename T>
+constexpr T Max(T a, T b) {
+  return a < b ? b : a;
+}
+inline float Sqrt(float x) { return __builtin_sqrtf(x); }
 
 // f16 <-> float in integer vector arithmetic, for instruction sets without conversion
 // instructions. Bit-identical to numeric::HalfToFloat / FloatToHalf (including NaN quieting);
@@ -220,15 +230,15 @@ struct SimdKernels {
                        float* y, size_t rows, size_t out, size_t in) {
     constexpr size_t R = Traits::kGemmRows;
     constexpr size_t C = Traits::kGemmCols;
-    const size_t row_bytes = std::max<size_t>(in, 1) * sizeof(float);
-    const size_t tile = std::max<size_t>(R, kRowTileBytes / row_bytes / R * R);
+    const size_t row_bytes = Max<size_t>(in, 1) * sizeof(float);
+    const size_t tile = Max<size_t>(R, kRowTileBytes / row_bytes / R * R);
     float sums[R * C];
     for (size_t r0 = 0; r0 < rows; r0 += tile) {
-      const size_t r_end = std::min(rows, r0 + tile);
+      const size_t r_end = Min(rows, r0 + tile);
       for (size_t o = 0; o < out; o += C) {
-        const size_t cols = std::min(C, out - o);
+        const size_t cols = Min(C, out - o);
         for (size_t r = r0; r < r_end; r += R) {
-          const size_t block_rows = std::min(R, r_end - r);
+          const size_t block_rows = Min(R, r_end - r);
           EdgeBlock<Tag, int(R), int(C)>(block_rows, cols, w + o * in, x + r * in, in, sums);
           for (size_t i = 0; i < block_rows; ++i) {
             for (size_t c = 0; c < cols; ++c) {
@@ -246,7 +256,7 @@ struct SimdKernels {
     constexpr size_t C = Traits::kGemvCols;
     float sums[C];
     for (size_t o = 0; o < out; o += C) {
-      const size_t cols = std::min(C, out - o);
+      const size_t cols = Min(C, out - o);
       EdgeBlock<Tag, 1, int(C)>(1, cols, w + o * in, x, in, sums);
       for (size_t c = 0; c < cols; ++c) y[o + c] = sums[c] + (bias != nullptr ? bias[o + c] : 0.0f);
     }
@@ -319,7 +329,7 @@ struct SimdKernels {
 
   // ---- softmax and norms ----
 
-  static float Max(const float* x, size_t n) {
+  static float MaxElement(const float* x, size_t n) {
     float max = x[0];
     size_t i = 0;
     if (n >= L) {
@@ -327,9 +337,9 @@ struct SimdKernels {
       for (i = L; i + L <= n; i += L) m = xsimd::max(m, F::load_unaligned(x + i));
       alignas(64) float lanes[L];
       m.store_aligned(lanes);
-      for (size_t j = 0; j < L; ++j) max = std::max(max, lanes[j]);
+      for (size_t j = 0; j < L; ++j) max = Max(max, lanes[j]);
     }
-    for (; i < n; ++i) max = std::max(max, x[i]);
+    for (; i < n; ++i) max = Max(max, x[i]);
     return max;
   }
 
@@ -358,7 +368,7 @@ struct SimdKernels {
 
   static void Softmax(float* x, size_t n) {
     if (n == 0) return;
-    const F max(Max(x, n));
+    const F max(MaxElement(x, n));
     F acc(0.0f);
     size_t i = 0;
     for (; i + L <= n; i += L) {
@@ -405,13 +415,13 @@ struct SimdKernels {
     const float mean = Sum(x, n) / float(n);
     // Two passes: the variance of the centred values does not cancel like E[x²] - mean².
     const float variance = SquaredDeviations(x, mean, n) / float(n);
-    ScaleShift(x, mean, 1.0f / std::sqrt(variance + eps), weight, bias, y, n);
+    ScaleShift(x, mean, 1.0f / Sqrt(variance + eps), weight, bias, y, n);
   }
 
   static void RmsNorm(const float* x, const float* weight, float eps, float* y, size_t n) {
     if (n == 0) return;
     const float mean_square = SquaredDeviations(x, 0.0f, n) / float(n);
-    ScaleShift(x, 0.0f, 1.0f / std::sqrt(mean_square + eps), weight, nullptr, y, n);
+    ScaleShift(x, 0.0f, 1.0f / Sqrt(mean_square + eps), weight, nullptr, y, n);
   }
 
   // ---- array converters ----

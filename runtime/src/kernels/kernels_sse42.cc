@@ -12,6 +12,7 @@ struct Sse42Traits {
   using Arch = xsimd::sse4_2;
   using F = xsimd::batch<float, Arch>;
   using I = xsimd::batch<int32_t, Arch>;
+  // 16 vector registers, as on AVX2.
   static constexpr int kGemmRows = 3;
   static constexpr int kGemmCols = 3;
   static constexpr int kGemvCols = 4;
