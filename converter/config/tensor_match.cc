@@ -203,7 +203,7 @@ Result<std::vector<MatchedTensor>> MatchTensors(const ModelConfig& config,
     }
     // The shape equals the spec's, so its element count is within the config's limits.
     const uint64_t count = ElementCount(spec.shape);
-    if (array.data == nullptr) {
+    if (array.data == nullptr && count > 0) {
       problems.push_back({s, [&, a] { return shown(a) + " has no data"; }});
       continue;
     }

@@ -1,0 +1,110 @@
+// sprig pack from the command line: refusals that protect the user's files.
+#include <gtest/gtest.h>
+
+#include <filesystem>
+
+#include "support/test_util.h"
+
+namespace sprig {
+namespace {
+
+using testing::Quote;
+
+constexpr const char* kConfig = R"({"family":"stack","input_dim":8,"layers":[
+  {"kind":"tree","mode":"leaf","depth":2,"leaf_width":4,"activation":"relu","out":3}]})";
+
+class PackCli : public ::testing::Test {
+ protected:
+  void SetUp() override {
+    config_ = dir_.File("config.json");
+    weights_ = dir_.File("w.npz");
+    testing::WriteFile(config_, kConfig);
+    auto r = testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " +
+                          Quote(weights_));
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+  }
+  testing::CommandResult Pack(const std::string& out, const std::string& extra = "") {
+    return testing::Run(testing::SprigCli() + " pack " + Quote(config_) + " " + Quote(weights_) +
+                        " -o " + Quote(out) + " " + extra);
+  }
+  testing::TempDir dir_;
+  std::string config_, weights_;
+};
+
+TEST_F(PackCli, RefusesAnExistingOutputWithoutForce) {
+  const std::string out = dir_.File("m.sprig");
+  testing::WriteFile(out, "precious");
+  auto r = Pack(out);
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_NE(r.output.find("already exists; pass --force"), std::string::npos) << r.output;
+  EXPECT_EQ(testing::ReadFile(out), "precious");
+  r = Pack(out, "--force");
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  EXPECT_NE(testing::ReadFile(out), "precious");
+}
+
+TEST_F(PackCli, NeverWritesOverAnInput) {
+  for (const std::string& input : {weights_, config_}) {
+    const std::string before = testing::ReadFile(input);
+    auto r = Pack(input, "--force");
+    EXPECT_EQ(r.exit_code, 2) << r.output;
+    EXPECT_NE(r.output.find("is one of the inputs"), std::string::npos) << r.output;
+    EXPECT_EQ(testing::ReadFile(input), before);
+  }
+}
+
+TEST_F(PackCli, AFailedWriteLeavesNoFile) {
+  // A destination whose folder does not exist: the write fails before anything is published.
+  const std::string out = dir_.File("no-such-folder/m.sprig");
+  auto r = Pack(out);
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("no-such-folder"), std::string::npos) << r.output;
+  EXPECT_FALSE(std::filesystem::exists(out));
+  // A bad tensor also leaves nothing behind, and no temporary in the folder.
+  testing::WriteFile(config_, R"({"family":"stack","input_dim":9,"layers":[
+    {"kind":"tree","mode":"leaf","depth":2,"leaf_width":4,"activation":"relu","out":3}]})");
+  r = Pack(dir_.File("bad.sprig"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("but the config needs"), std::string::npos) << r.output;
+  size_t files = 0;
+  for (const auto& e : std::filesystem::directory_iterator(dir_.path())) {
+    (void)e;
+    ++files;
+  }
+  EXPECT_EQ(files, 2u) << "only config.json and w.npz should remain";
+}
+
+TEST_F(PackCli, BadDtypeAndMissingInputs) {
+  auto r = Pack(dir_.File("m.sprig"), "--dtype f8");
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_NE(r.output.find("--dtype must be f32, f16 or bf16"), std::string::npos) << r.output;
+  r = testing::Run(testing::SprigCli() + " pack " + Quote(dir_.File("nope.json")) + " " +
+                   Quote(weights_) + " -o " + Quote(dir_.File("m.sprig")));
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_NE(r.output.find("nope.json"), std::string::npos) << r.output;
+  r = testing::Run(testing::SprigCli() + " pack");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+}
+
+TEST_F(PackCli, RenameMapServesOtherNames) {
+  // Source: NumPy (Debian python3-numpy) rewrites the weights under a "model." prefix.
+  const std::string renamed = dir_.File("theirs.npz");
+  auto py = testing::RunPython(
+      "import sys, numpy as np, json\n"
+      "w = np.load(sys.argv[1])\n"
+      "np.savez(sys.argv[2], **{'model.' + k: w[k] for k in w.files})\n"
+      "json.dump({'model.' + k: k for k in w.files}, open(sys.argv[3], 'w'))\n",
+      {weights_, renamed, dir_.File("map.json")});
+  ASSERT_EQ(py.exit_code, 0) << py.output;
+  auto r = testing::Run(testing::SprigCli() + " pack " + Quote(config_) + " " + Quote(renamed) +
+                        " -o " + Quote(dir_.File("a.sprig")));
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_NE(r.output.find("--rename"), std::string::npos) << r.output;
+  r = testing::Run(testing::SprigCli() + " pack " + Quote(config_) + " " + Quote(renamed) +
+                   " -o " + Quote(dir_.File("a.sprig")) + " --rename " +
+                   Quote(dir_.File("map.json")));
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+}
+
+}  // namespace
+}  // namespace sprig
