@@ -107,8 +107,8 @@ void BM_CblasSgemv(benchmark::State& state) {
   size_t next = 0;
   for (auto _ : state) {
     y = bias;  // same work as ours: y = W x + b
-    cblas_sgemv(CblasRowMajor, CblasNoTrans, out, in, 1.0f, w.data(), in,
-                x.data() + next * in, 1, 1.0f, y.data(), 1);
+    cblas_sgemv(CblasRowMajor, CblasNoTrans, out, in, 1.0f, w.data(), in, x.data() + next * in, 1,
+                1.0f, y.data(), 1);
     benchmark::DoNotOptimize(y.data());
     benchmark::ClobberMemory();
     next = (next + 1) % kInputPool;
@@ -126,8 +126,8 @@ void BM_CblasSgemm(benchmark::State& state) {
   size_t next = 0;
   for (auto _ : state) {
     // Y[rows, out] = X[rows, in]·W[out, in]ᵀ (no bias: BLAS would need a separate pass).
-    cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, out, in, 1.0f,
-                x.data() + next * in, in, w.data(), in, 0.0f, y.data(), out);
+    cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, out, in, 1.0f, x.data() + next * in,
+                in, w.data(), in, 0.0f, y.data(), out);
     benchmark::DoNotOptimize(y.data());
     benchmark::ClobberMemory();
     next = (next + 1) % kInputPool;
@@ -177,8 +177,7 @@ int RegisterPathBenchmarks() {
       benchmark::RegisterBenchmark(("BM_Gemv/" + p + "/" + t).c_str(), BM_Gemv, path, type)
           ->Args({768, 3072})
           ->Args({768, 4096});
-      benchmark::RegisterBenchmark(("BM_GemmRows/" + p + "/" + t).c_str(), BM_GemmRows, path,
-                                   type)
+      benchmark::RegisterBenchmark(("BM_GemmRows/" + p + "/" + t).c_str(), BM_GemmRows, path, type)
           ->Args({16, 768, 3072})
           ->Args({128, 768, 3072});
     }

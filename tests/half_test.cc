@@ -32,9 +32,15 @@ using numeric::FloatToBFloat16;
 using numeric::FloatToHalf;
 using numeric::HalfToFloat;
 
-bool IsHalfNan(uint16_t h) { return (h & 0x7c00) == 0x7c00 && (h & 0x03ff) != 0; }
-bool IsBFloat16Nan(uint16_t b) { return (b & 0x7f80) == 0x7f80 && (b & 0x007f) != 0; }
-uint32_t Bits(float f) { return std::bit_cast<uint32_t>(f); }
+bool IsHalfNan(uint16_t h) {
+  return (h & 0x7c00) == 0x7c00 && (h & 0x03ff) != 0;
+}
+bool IsBFloat16Nan(uint16_t b) {
+  return (b & 0x7f80) == 0x7f80 && (b & 0x007f) != 0;
+}
+uint32_t Bits(float f) {
+  return std::bit_cast<uint32_t>(f);
+}
 
 // float(x), defined for every double: beyond float's range the result is the infinity of
 // that sign (a plain cast would be undefined behaviour there).
@@ -93,7 +99,8 @@ std::vector<Out> Reference(const std::string& mode, const std::vector<In>& input
   const auto out_path = dir.path() / "out.bin";
   {
     std::ofstream in(in_path, std::ios::binary);
-    in.write(reinterpret_cast<const char*>(input.data()), std::streamsize(input.size() * sizeof(In)));
+    in.write(reinterpret_cast<const char*>(input.data()),
+             std::streamsize(input.size() * sizeof(In)));
   }
   const std::string command = ReferenceCommand(mode, in_path.string(), out_path.string());
   if (std::system(command.c_str()) != 0) {
@@ -228,10 +235,10 @@ TEST(HalfFloat16, RangeAndTies) {
   EXPECT_EQ(FloatToHalf(std::ldexp(1.0f, -24)), 0x0001);
   EXPECT_EQ(FloatToHalf(std::ldexp(1.0f, -25)), 0x0000);  // tie between 0 and 2^-24
   EXPECT_EQ(FloatToHalf(std::nextafter(std::ldexp(1.0f, -25), 1.0f)), 0x0001);
-  EXPECT_EQ(FloatToHalf(std::ldexp(3.0f, -25)), 0x0002);  // tie between 1 and 2 units: even
-  EXPECT_EQ(FloatToHalf(std::ldexp(1.0f, -14)), 0x0400);  // smallest normal
-  EXPECT_EQ(FloatToHalf(1.0f + std::ldexp(1.0f, -11)), 0x3c00);       // tie: even is 1.0
-  EXPECT_EQ(FloatToHalf(1.0f + std::ldexp(3.0f, -11)), 0x3c02);       // tie: even is up
+  EXPECT_EQ(FloatToHalf(std::ldexp(3.0f, -25)), 0x0002);         // tie between 1 and 2 units: even
+  EXPECT_EQ(FloatToHalf(std::ldexp(1.0f, -14)), 0x0400);         // smallest normal
+  EXPECT_EQ(FloatToHalf(1.0f + std::ldexp(1.0f, -11)), 0x3c00);  // tie: even is 1.0
+  EXPECT_EQ(FloatToHalf(1.0f + std::ldexp(3.0f, -11)), 0x3c02);  // tie: even is up
   EXPECT_EQ(FloatToHalf(-0.0f), 0x8000);
   EXPECT_EQ(HalfToFloat(0x7bff), 65504.0f);
   EXPECT_EQ(HalfToFloat(0x0001), std::ldexp(1.0f, -24));
@@ -257,10 +264,10 @@ TEST(HalfFloat16, DoubleRoundsOnceLikeNumpy) {
   std::uniform_real_distribution<double> exponent(-27.0, 17.0);
   for (int i = 0; i < 100000; ++i) input.push_back(std::exp2(exponent(rng)) * (i % 2 ? 1 : -1));
   for (int i = 0; i < 20000; ++i) input.push_back(std::bit_cast<double>(uint64_t(rng())));
-  for (double v : {0.0, -0.0, 65504.0, 65520.0, std::nextafter(65520.0, 0.0), 1e300, -1e300,
-                   std::ldexp(1.0, -25), std::nextafter(std::ldexp(1.0, -25), 1.0), 1e-320,
-                   std::numeric_limits<double>::infinity(),
-                   std::numeric_limits<double>::quiet_NaN()}) {
+  for (double v :
+       {0.0, -0.0, 65504.0, 65520.0, std::nextafter(65520.0, 0.0), 1e300, -1e300,
+        std::ldexp(1.0, -25), std::nextafter(std::ldexp(1.0, -25), 1.0), 1e-320,
+        std::numeric_limits<double>::infinity(), std::numeric_limits<double>::quiet_NaN()}) {
     input.push_back(v);
   }
 
@@ -321,8 +328,8 @@ TEST(HalfBFloat16, NarrowingMatchesTorch) {
       continue;
     }
     if (ours != expected[i] && ++mismatches < 10) {
-      ADD_FAILURE() << "f32 0x" << std::hex << Bits(input[i]) << ": ours 0x" << ours
-                    << ", torch 0x" << expected[i];
+      ADD_FAILURE() << "f32 0x" << std::hex << Bits(input[i]) << ": ours 0x" << ours << ", torch 0x"
+                    << expected[i];
     }
   }
   EXPECT_EQ(mismatches, 0u) << "of " << input.size() << " values";
@@ -362,8 +369,8 @@ TEST(HalfBFloat16, DoubleRoundsOnce) {
   std::mt19937_64 rng(11);
   std::uniform_real_distribution<double> exponent(-136.0, 128.5);
   for (int i = 0; i < 20000; ++i) input.push_back(std::exp2(exponent(rng)) * (i % 2 ? 1 : -1));
-  for (double v : {0.0, -0.0, 1e300, -1e300, 1e-300, std::ldexp(1.0, -134),
-                   std::ldexp(3.0, -134), 1.0 + std::ldexp(1.0, -8) + std::ldexp(1.0, -30)}) {
+  for (double v : {0.0, -0.0, 1e300, -1e300, 1e-300, std::ldexp(1.0, -134), std::ldexp(3.0, -134),
+                   1.0 + std::ldexp(1.0, -8) + std::ldexp(1.0, -30)}) {
     input.push_back(v);
   }
 
@@ -441,7 +448,8 @@ TEST(HalfBulk, ConvertersOfEveryPathMatchScalar) {
     EXPECT_EQ(k.path, path);
     EXPECT_EQ((ConvertInPieces<float, uint16_t>(floats, k.f32_to_f16)), half_ref);
     EXPECT_EQ((ConvertInPieces<float, uint16_t>(floats, k.f32_to_bf16)), bf16_ref);
-    const std::vector<float> widened_half = ConvertInPieces<uint16_t, float>(patterns, k.f16_to_f32);
+    const std::vector<float> widened_half =
+        ConvertInPieces<uint16_t, float>(patterns, k.f16_to_f32);
     const std::vector<float> widened_bf16 =
         ConvertInPieces<uint16_t, float>(patterns, k.bf16_to_f32);
     for (size_t i = 0; i < patterns.size(); ++i) {

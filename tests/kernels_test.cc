@@ -33,8 +33,8 @@ constexpr double kSumTolerance = 1e-5;
 constexpr size_t kLengths[] = {1, 2, 3, 7, 8, 9, 15, 16, 17, 31, 33, 63, 64, 65, 127, 1000, 4099};
 constexpr size_t kRowCounts[] = {1, 2, 3, 4, 5, 6, 7, 8, 9, 16, 33};
 constexpr DType kWeightTypes[] = {DType::kF32, DType::kF16, DType::kBF16};
-constexpr Activation kActivations[] = {Activation::kRelu, Activation::kGelu,
-                                       Activation::kGeluTanh, Activation::kSilu};
+constexpr Activation kActivations[] = {Activation::kRelu, Activation::kGelu, Activation::kGeluTanh,
+                                       Activation::kSilu};
 
 std::vector<float> RandomVector(size_t n, uint32_t seed, float scale = 1.0f, float offset = 0.0f) {
   std::mt19937 rng(seed);
@@ -57,8 +57,8 @@ struct StoredWeights {
     for (size_t i = 0; i < values.size(); ++i) {
       bits[i] = type == DType::kF16 ? numeric::FloatToHalf(values[i])
                                     : numeric::FloatToBFloat16(values[i]);
-      decoded[i] = type == DType::kF16 ? numeric::HalfToFloat(bits[i])
-                                       : numeric::BFloat16ToFloat(bits[i]);
+      decoded[i] =
+          type == DType::kF16 ? numeric::HalfToFloat(bits[i]) : numeric::BFloat16ToFloat(bits[i]);
     }
   }
   const void* data() const {
@@ -272,16 +272,15 @@ TEST(KernelAxpy, EveryPathEveryTypeMatchesReference) {
 // Checks Y[rows, out] = X·Wᵀ + bias for one path against the double reference and `scalar`.
 void CheckProducts(const std::string& what, const std::vector<float>& y,
                    const std::vector<float>& scalar, const std::vector<float>& x,
-                   const StoredWeights& w, const std::vector<float>* bias, size_t rows,
-                   size_t out, size_t in) {
+                   const StoredWeights& w, const std::vector<float>* bias, size_t rows, size_t out,
+                   size_t in) {
   Checker check(what);
   for (size_t r = 0; r < rows; ++r) {
     for (size_t o = 0; o < out; ++o) {
-      const ReferenceSum exact =
-          DotReference(x.data() + r * in, w.decoded.data() + o * in, in,
-                       bias != nullptr ? bias->data() + o : nullptr);
-      check.Check(y[r * out + o], scalar[r * out + o], exact.value, exact.magnitude,
-                  kSumTolerance, r * out + o);
+      const ReferenceSum exact = DotReference(x.data() + r * in, w.decoded.data() + o * in, in,
+                                              bias != nullptr ? bias->data() + o : nullptr);
+      check.Check(y[r * out + o], scalar[r * out + o], exact.value, exact.magnitude, kSumTolerance,
+                  r * out + o);
     }
   }
 }
@@ -392,13 +391,16 @@ TEST(KernelGemmRows, EmptyShapes) {
 // the tolerance below allows for that with an absolute term.
 double ReferenceActivation(Activation act, double x) {
   switch (act) {
-    case Activation::kRelu: return x < 0 ? 0.0 : x;
-    case Activation::kGelu: return 0.5 * x * (1.0 + std::erf(x / std::sqrt(2.0)));
+    case Activation::kRelu:
+      return x < 0 ? 0.0 : x;
+    case Activation::kGelu:
+      return 0.5 * x * (1.0 + std::erf(x / std::sqrt(2.0)));
     case Activation::kGeluTanh: {
       const double u = std::sqrt(2.0 / std::numbers::pi) * (x + 0.044715 * x * x * x);
       return 0.5 * x * (1.0 + std::tanh(u));
     }
-    case Activation::kSilu: return x / (1.0 + std::exp(-x));
+    case Activation::kSilu:
+      return x / (1.0 + std::exp(-x));
   }
   return x;
 }
@@ -409,8 +411,8 @@ double ReferenceActivation(Activation act, double x) {
 // when every operation is correctly rounded). The absolute terms cover the double reference's
 // own cancellation (≈ 1e-16·|x|) and results that underflow in float.
 double ActivationBound(double reference, double x) {
-  return (16.0 + 4.0 * x * x) * std::ldexp(1.0, -24) * std::fabs(reference) +
-         1e-15 * std::fabs(x) + 1e-30;
+  return (16.0 + 4.0 * x * x) * std::ldexp(1.0, -24) * std::fabs(reference) + 1e-15 * std::fabs(x) +
+         1e-30;
 }
 
 std::vector<float> ActivationInputs(size_t n, uint32_t seed) {
@@ -448,8 +450,9 @@ TEST(KernelActivation, SpecialValues) {
   for (KernelPath path : AvailablePaths()) {
     const KernelTable& k = Kernels(path);
     // Nine values: on 4- and 8-lane paths some land in full vectors and some in the tail.
-    std::vector<float> x = {0.0f, -0.0f, kInf, -kInf, 1e-30f, -1e-30f, 100.0f, -100.0f,
-                            std::numeric_limits<float>::quiet_NaN()};
+    std::vector<float> x = {0.0f,   -0.0f,   kInf,
+                            -kInf,  1e-30f,  -1e-30f,
+                            100.0f, -100.0f, std::numeric_limits<float>::quiet_NaN()};
     for (Activation act : kActivations) {
       std::vector<float> y = x;
       k.activate(act, y.data(), y.size());
@@ -480,12 +483,12 @@ TEST(KernelActivation, GatedMatchesDefinitionAndMayAlias) {
         for (size_t i = 0; i < n; ++i) {
           const double ref = ReferenceActivation(act, gate[i]) * up[i];
           // act(g) within ActivationBound of its value, times up, plus the product's rounding.
-          const double bound = ActivationBound(ReferenceActivation(act, gate[i]), gate[i]) *
-                                   std::fabs(up[i]) +
-                               6e-8 * std::fabs(ref);
+          const double bound =
+              ActivationBound(ReferenceActivation(act, gate[i]), gate[i]) * std::fabs(up[i]) +
+              6e-8 * std::fabs(ref);
           if (!(std::fabs(h[i] - ref) <= bound) && ++failures <= 3) {
-            ADD_FAILURE() << ToString(path) << " gated " << ToString(act) << "(" << gate[i]
-                          << ")·" << up[i] << " = " << h[i] << ", expected " << ref;
+            ADD_FAILURE() << ToString(path) << " gated " << ToString(act) << "(" << gate[i] << ")·"
+                          << up[i] << " = " << h[i] << ", expected " << ref;
           }
           if (h[i] != aliased[i] && !(std::isnan(h[i]) && std::isnan(aliased[i]))) ++failures;
         }
@@ -564,9 +567,9 @@ np.concatenate([r.double().numpy() for r in results]).astype('<f8').tofile(sys.a
         const double t32 = torch[(3 + a) * n + i];
         // float64 torch is the definition: hold ours to it tightly. float32 torch rounds
         // 1 + erf / 1 + tanh to float, an absolute error near 2^-24·|x| where that cancels.
-        const bool ok = std::fabs(y[i] - t64) <= ActivationBound(t64, grid[i]) &&
-                        std::fabs(y[i] - t32) <= 1e-6 * std::fabs(t32) +
-                                                     2.4e-7 * std::fabs(grid[i]);
+        const bool ok =
+            std::fabs(y[i] - t64) <= ActivationBound(t64, grid[i]) &&
+            std::fabs(y[i] - t32) <= 1e-6 * std::fabs(t32) + 2.4e-7 * std::fabs(grid[i]);
         if (!ok && ++failures <= 3) {
           ADD_FAILURE() << ToString(path) << " " << ToString(acts[a]) << "(" << grid[i]
                         << ") = " << y[i] << ", torch float64 " << t64 << ", float32 " << t32;
@@ -631,8 +634,9 @@ TEST(KernelNorm, LayerNormMatchesReference) {
           const double wi = affine ? weight[i] : 1.0, bi = affine ? bias[i] : 0.0;
           const double exact = (input[i] - mean) * inv_std * wi + bi;
           // Mean and 1/std carry the sums' relative error into every output.
-          const double magnitude = (std::fabs(input[i] - mean) + std::fabs(mean)) * inv_std *
-                                       std::fabs(wi) + std::fabs(bi);
+          const double magnitude =
+              (std::fabs(input[i] - mean) + std::fabs(mean)) * inv_std * std::fabs(wi) +
+              std::fabs(bi);
           check.Check(y[i], scalar[i], exact, magnitude, kSumTolerance, i);
         }
       }

@@ -2,8 +2,8 @@
 // random models of every layer kind, mode, activation and gating; sprig's outputs within
 // rtol 1e-5 / atol 1e-6 of the reference's hard-mode outputs for f32 storage, routes identical
 // except where the deciding logit's magnitude is below 1e-6 (counted and reported).
-// Batch 1, batches with one thread and with two threads are all checked; the two batched runs
-// must be bit-identical.
+// Batch 1, batches with one thread and with two threads are all checked, and must be
+// bit-identical to each other.
 #include <gtest/gtest.h>
 
 #include <string>
@@ -99,6 +99,8 @@ TEST_P(ReferenceStack, MatchesPyTorch) {
   }
   EXPECT_EQ(testing::ReadFile(dir.File("b64t1.npy")), testing::ReadFile(dir.File("b64t2.npy")))
       << "two threads changed the outputs";
+  EXPECT_EQ(testing::ReadFile(dir.File("b1.npy")), testing::ReadFile(dir.File("b64t1.npy")))
+      << "batching changed the outputs";
   EXPECT_EQ(testing::ReadFile(dir.File("b64t1.npz")), testing::ReadFile(dir.File("b64t2.npz")));
 }
 

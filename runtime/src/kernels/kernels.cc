@@ -55,11 +55,16 @@ std::string AvailableNames() {
 
 const char* ToString(KernelPath path) {
   switch (path) {
-    case KernelPath::kScalar: return "scalar";
-    case KernelPath::kSse42: return "sse42";
-    case KernelPath::kAvx2: return "avx2";
-    case KernelPath::kAvx512: return "avx512";
-    case KernelPath::kNeon: return "neon";
+    case KernelPath::kScalar:
+      return "scalar";
+    case KernelPath::kSse42:
+      return "sse42";
+    case KernelPath::kAvx2:
+      return "avx2";
+    case KernelPath::kAvx512:
+      return "avx512";
+    case KernelPath::kNeon:
+      return "neon";
   }
   return "unknown";
 }
@@ -72,7 +77,9 @@ Result<KernelPath> ParseKernelPath(std::string_view name) {
                                  "\"; expected one of scalar, sse42, avx2, avx512, neon");
 }
 
-bool IsPathAvailable(KernelPath path) { return CpuSupports(path); }
+bool IsPathAvailable(KernelPath path) {
+  return CpuSupports(path);
+}
 
 std::vector<KernelPath> AvailablePaths() {
   std::vector<KernelPath> paths;
@@ -82,17 +89,18 @@ std::vector<KernelPath> AvailablePaths() {
   return paths;
 }
 
-KernelPath DetectBestPath() { return AvailablePaths().back(); }
+KernelPath DetectBestPath() {
+  return AvailablePaths().back();
+}
 
 Result<KernelPath> ResolvePath(const char* requested) {
   if (requested == nullptr || *requested == '\0') return DetectBestPath();
   Result<KernelPath> path = ParseKernelPath(requested);
   if (!path.ok()) return path.status().WithContext("SPRIG_KERNEL_PATH");
   if (!IsPathAvailable(*path)) {
-    return Status::InvalidArgument("SPRIG_KERNEL_PATH asks for kernel path \"" +
-                                   std::string(requested) +
-                                   "\", which this CPU does not support; available: " +
-                                   AvailableNames());
+    return Status::InvalidArgument(
+        "SPRIG_KERNEL_PATH asks for kernel path \"" + std::string(requested) +
+        "\", which this CPU does not support; available: " + AvailableNames());
   }
   return path;
 }
@@ -110,14 +118,19 @@ const KernelTable& Kernels(KernelPath path) {
   if (!IsPathAvailable(path)) return ScalarKernels();
   switch (path) {
 #if defined(__x86_64__) || defined(_M_X64)
-    case KernelPath::kSse42: return Sse42Kernels();
-    case KernelPath::kAvx2: return Avx2Kernels();
-    case KernelPath::kAvx512: return Avx512Kernels();
+    case KernelPath::kSse42:
+      return Sse42Kernels();
+    case KernelPath::kAvx2:
+      return Avx2Kernels();
+    case KernelPath::kAvx512:
+      return Avx512Kernels();
 #endif
 #if defined(__aarch64__)
-    case KernelPath::kNeon: return NeonKernels();
+    case KernelPath::kNeon:
+      return NeonKernels();
 #endif
-    default: return ScalarKernels();
+    default:
+      return ScalarKernels();
   }
 }
 

@@ -109,19 +109,25 @@ const KernelTable& ActiveKernels();
 inline float Dot(const KernelTable& k, DType type, const float* x, const void* w, size_t n) {
   assert(type != DType::kI8);
   switch (type) {
-    case DType::kF16: return k.f16.dot(x, static_cast<const uint16_t*>(w), n);
-    case DType::kBF16: return k.bf16.dot(x, static_cast<const uint16_t*>(w), n);
-    default: return k.f32.dot(x, static_cast<const float*>(w), n);
+    case DType::kF16:
+      return k.f16.dot(x, static_cast<const uint16_t*>(w), n);
+    case DType::kBF16:
+      return k.bf16.dot(x, static_cast<const uint16_t*>(w), n);
+    default:
+      return k.f32.dot(x, static_cast<const float*>(w), n);
   }
 }
 
-inline void Gemv(const KernelTable& k, DType type, const void* w, const float* x,
-                 const float* bias, float* y, size_t out, size_t in) {
+inline void Gemv(const KernelTable& k, DType type, const void* w, const float* x, const float* bias,
+                 float* y, size_t out, size_t in) {
   assert(type != DType::kI8);
   switch (type) {
-    case DType::kF16: return k.f16.gemv(static_cast<const uint16_t*>(w), x, bias, y, out, in);
-    case DType::kBF16: return k.bf16.gemv(static_cast<const uint16_t*>(w), x, bias, y, out, in);
-    default: return k.f32.gemv(static_cast<const float*>(w), x, bias, y, out, in);
+    case DType::kF16:
+      return k.f16.gemv(static_cast<const uint16_t*>(w), x, bias, y, out, in);
+    case DType::kBF16:
+      return k.bf16.gemv(static_cast<const uint16_t*>(w), x, bias, y, out, in);
+    default:
+      return k.f32.gemv(static_cast<const float*>(w), x, bias, y, out, in);
   }
 }
 
@@ -133,16 +139,20 @@ inline void GemmRows(const KernelTable& k, DType type, const void* w, const floa
       return k.f16.gemm_rows(static_cast<const uint16_t*>(w), x, bias, y, rows, out, in);
     case DType::kBF16:
       return k.bf16.gemm_rows(static_cast<const uint16_t*>(w), x, bias, y, rows, out, in);
-    default: return k.f32.gemm_rows(static_cast<const float*>(w), x, bias, y, rows, out, in);
+    default:
+      return k.f32.gemm_rows(static_cast<const float*>(w), x, bias, y, rows, out, in);
   }
 }
 
 inline void Axpy(const KernelTable& k, DType type, float a, const void* w, float* y, size_t n) {
   assert(type != DType::kI8);
   switch (type) {
-    case DType::kF16: return k.f16.axpy(a, static_cast<const uint16_t*>(w), y, n);
-    case DType::kBF16: return k.bf16.axpy(a, static_cast<const uint16_t*>(w), y, n);
-    default: return k.f32.axpy(a, static_cast<const float*>(w), y, n);
+    case DType::kF16:
+      return k.f16.axpy(a, static_cast<const uint16_t*>(w), y, n);
+    case DType::kBF16:
+      return k.bf16.axpy(a, static_cast<const uint16_t*>(w), y, n);
+    default:
+      return k.f32.axpy(a, static_cast<const float*>(w), y, n);
   }
 }
 

@@ -43,6 +43,8 @@ constexpr KernelTable kAvx2Table = SimdKernels<Avx2Traits>::MakeTable(KernelPath
 
 }  // namespace
 
-const KernelTable& Avx2Kernels() { return kAvx2Table; }
+const KernelTable& Avx2Kernels() {
+  return kAvx2Table;
+}
 
 }  // namespace sprig::kernels

@@ -44,21 +44,30 @@ struct Avx512Traits {
   }
   // Eight vectors at a time: fold each to 256 bits, then two rounds of hadd and one
   // cross-lane add leave the eight sums in order in one 256-bit vector.
+  // The remainder is reduced as a zero-padded group of eight, so that every vector's sum is
+  // formed the same way wherever it sits (see ReduceWithHaddp).
   static void Reduce(const F* acc, size_t count, float* sums) {
     size_t i = 0;
-    for (; i + 8 <= count; i += 8) {
-      __m256 h[8];
-      for (int j = 0; j < 8; ++j) {
-        const __m512 v = acc[i + j];
-        h[j] = _mm256_add_ps(_mm512_castps512_ps256(v), _mm512_extractf32x8_ps(v, 1));
-      }
-      const __m256 s0123 = _mm256_hadd_ps(_mm256_hadd_ps(h[0], h[1]), _mm256_hadd_ps(h[2], h[3]));
-      const __m256 s4567 = _mm256_hadd_ps(_mm256_hadd_ps(h[4], h[5]), _mm256_hadd_ps(h[6], h[7]));
-      const __m256 low_lanes = _mm256_permute2f128_ps(s0123, s4567, 0x20);
-      const __m256 high_lanes = _mm256_permute2f128_ps(s0123, s4567, 0x31);
-      _mm256_storeu_ps(sums + i, _mm256_add_ps(low_lanes, high_lanes));
+    for (; i + 8 <= count; i += 8) ReduceEight(acc + i, sums + i);
+    if (i < count) {
+      F group[8];
+      float out[8];
+      for (size_t j = 0; j < 8; ++j) group[j] = i + j < count ? acc[i + j] : F(0.0f);
+      ReduceEight(group, out);
+      for (size_t j = 0; i + j < count; ++j) sums[i + j] = out[j];
     }
-    for (; i < count; ++i) sums[i] = xsimd::hadd(acc[i]);
+  }
+  static void ReduceEight(const F* acc, float* sums) {
+    __m256 h[8];
+    for (int j = 0; j < 8; ++j) {
+      const __m512 v = acc[j];
+      h[j] = _mm256_add_ps(_mm512_castps512_ps256(v), _mm512_extractf32x8_ps(v, 1));
+    }
+    const __m256 s0123 = _mm256_hadd_ps(_mm256_hadd_ps(h[0], h[1]), _mm256_hadd_ps(h[2], h[3]));
+    const __m256 s4567 = _mm256_hadd_ps(_mm256_hadd_ps(h[4], h[5]), _mm256_hadd_ps(h[6], h[7]));
+    const __m256 low_lanes = _mm256_permute2f128_ps(s0123, s4567, 0x20);
+    const __m256 high_lanes = _mm256_permute2f128_ps(s0123, s4567, 0x31);
+    _mm256_storeu_ps(sums, _mm256_add_ps(low_lanes, high_lanes));
   }
 };
 
@@ -66,6 +75,8 @@ constexpr KernelTable kAvx512Table = SimdKernels<Avx512Traits>::MakeTable(Kernel
 
 }  // namespace
 
-const KernelTable& Avx512Kernels() { return kAvx512Table; }
+const KernelTable& Avx512Kernels() {
+  return kAvx512Table;
+}
 
 }  // namespace sprig::kernels

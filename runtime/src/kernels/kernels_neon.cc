@@ -19,13 +19,9 @@ struct NeonTraits {
 
   static I Widen(const uint16_t* p) { return vreinterpretq_s32_u32(vmovl_u16(vld1_u16(p))); }
   static void Narrow(I v, uint16_t* p) { vst1_u16(p, vmovn_u32(vreinterpretq_u32_s32(v))); }
-  static F LoadHalf(const uint16_t* p) {
-    return vcvt_f32_f16(vreinterpret_f16_u16(vld1_u16(p)));
-  }
+  static F LoadHalf(const uint16_t* p) { return vcvt_f32_f16(vreinterpret_f16_u16(vld1_u16(p))); }
   // FCVTN rounds by FPCR (round to nearest even by default) and quiets NaNs, as F16C does.
-  static void StoreHalf(F v, uint16_t* p) {
-    vst1_u16(p, vreinterpret_u16_f16(vcvt_f16_f32(v)));
-  }
+  static void StoreHalf(F v, uint16_t* p) { vst1_u16(p, vreinterpret_u16_f16(vcvt_f16_f32(v))); }
   static void Reduce(const F* acc, size_t count, float* sums) {
     ReduceWithHaddp<Arch>(acc, count, sums);
   }
@@ -35,6 +31,8 @@ constexpr KernelTable kNeonTable = SimdKernels<NeonTraits>::MakeTable(KernelPath
 
 }  // namespace
 
-const KernelTable& NeonKernels() { return kNeonTable; }
+const KernelTable& NeonKernels() {
+  return kNeonTable;
+}
 
 }  // namespace sprig::kernels

@@ -46,23 +46,33 @@ void Axpy(float a, const W* w, float* y, size_t n) {
 
 // The activations below use forms that equal the textbook ones but avoid cancellation where
 // the result is tiny: 1 + erf(z) = erfc(-z), and 0.5·(1 + tanh(u)) = sigmoid(2u) = 1/(1 + e^-2u).
-constexpr float kSqrtHalf = 0.70710678118654752440f;     // 1/√2
+constexpr float kSqrtHalf = 0.70710678118654752440f;       // 1/√2
 constexpr float kSqrtTwoOverPi = 0.79788456080286535588f;  // √(2/π)
 
-float Relu(float x) { return x < 0.0f ? 0.0f : x; }
-float Gelu(float x) { return 0.5f * x * std::erfc(-x * kSqrtHalf); }
+float Relu(float x) {
+  return x < 0.0f ? 0.0f : x;
+}
+float Gelu(float x) {
+  return 0.5f * x * std::erfc(-x * kSqrtHalf);
+}
 float GeluTanh(float x) {
   const float u = kSqrtTwoOverPi * (x + 0.044715f * x * x * x);
   return x / (1.0f + std::exp(-2.0f * u));
 }
-float Silu(float x) { return x / (1.0f + std::exp(-x)); }
+float Silu(float x) {
+  return x / (1.0f + std::exp(-x));
+}
 
 float Apply(Activation act, float x) {
   switch (act) {
-    case Activation::kRelu: return Relu(x);
-    case Activation::kGelu: return Gelu(x);
-    case Activation::kGeluTanh: return GeluTanh(x);
-    case Activation::kSilu: return Silu(x);
+    case Activation::kRelu:
+      return Relu(x);
+    case Activation::kGelu:
+      return Gelu(x);
+    case Activation::kGeluTanh:
+      return GeluTanh(x);
+    case Activation::kSilu:
+      return Silu(x);
   }
   return x;
 }
@@ -149,6 +159,8 @@ constexpr KernelTable kScalarTable = {
 
 }  // namespace
 
-const KernelTable& ScalarKernels() { return kScalarTable; }
+const KernelTable& ScalarKernels() {
+  return kScalarTable;
+}
 
 }  // namespace sprig::kernels

@@ -3,8 +3,11 @@
 // Include this header only from a kernels_<isa>.cc file, each of which is compiled with its
 // instruction set enabled. Everything here has internal linkage (an unnamed namespace): two
 // files compiled with different flags must never share an out-of-line copy of a function, or
-// the linker could keep, say, the AVX-512 copy for code that runs on an AVX2 machine. The
-// dispatcher (kernels.cc) and other baseline files never include it.
+// the linker could keep, say, the AVX-512 copy for code that runs on an AVX2 machine. xsimd's
+// templates are instantiated per arch type, so their symbols differ per file too; an optimised
+// build leaves no other shared out-of-line function (checked with nm), but at -O0 a few
+// non-arch helpers (xsimd::constants::*, std::numeric_limits) are emitted out of line. The
+// dispatcher (kernels.cc) and other baseline files never include this header.
 //
 // An instantiation is parameterised by a Traits struct supplied by the including file:
 //   using Arch = xsimd::<arch>;                 // e.g. xsimd::fma3<xsimd::avx2>
@@ -40,7 +43,9 @@ template <typename T>
 constexpr T Max(T a, T b) {
   return a < b ? b : a;
 }
-inline float Sqrt(float x) { return __builtin_sqrtf(x); }
+inline float Sqrt(float x) {
+  return __builtin_sqrtf(x);
+}
 
 // f16 <-> float in integer vector arithmetic, for instruction sets without conversion
 // instructions. Bit-identical to numeric::HalfToFloat / FloatToHalf (including NaN quieting);
@@ -62,11 +67,10 @@ struct HalfEmulation {
                                                xsimd::bitwise_cast<F>(I(0x38800000)));
     // Infinity and NaN: exponent field 31 -> 255; a NaN also gets the quiet bit.
     const I mantissa = shifted & I(0x007fe000);
-    const I special = (normal + I(0x38000000)) |
-                      xsimd::select(mantissa != I(0), I(0x00400000), I(0));
-    const I magnitude =
-        xsimd::select(exponent == I(0x0f800000), special,
-                      xsimd::select(exponent == I(0), subnormal, normal));
+    const I special =
+        (normal + I(0x38000000)) | xsimd::select(mantissa != I(0), I(0x00400000), I(0));
+    const I magnitude = xsimd::select(exponent == I(0x0f800000), special,
+                                      xsimd::select(exponent == I(0), subnormal, normal));
     return xsimd::bitwise_cast<F>(magnitude | sign);
   }
 
@@ -81,13 +85,13 @@ struct HalfEmulation {
     const I normal = (magnitude - I(0x38000000) + I(0x0fff) + odd) >> 13;
     // Subnormal results: adding 0.5 places the f16 subnormal grid (2^-24) on float's ulp at
     // 0.5, so the FPU's own round-to-nearest-even does the rounding.
-    const I subnormal = xsimd::bitwise_cast<I>(xsimd::bitwise_cast<F>(magnitude) + F(0.5f)) -
-                        I(0x3f000000);
+    const I subnormal =
+        xsimd::bitwise_cast<I>(xsimd::bitwise_cast<F>(magnitude) + F(0.5f)) - I(0x3f000000);
     const I nan = I(0x7e00) | ((magnitude >> 13) & I(0x03ff));
-    const I result = xsimd::select(
-        magnitude > I(0x7f800000), nan,
-        xsimd::select(magnitude >= I(0x47800000), I(0x7c00),
-                      xsimd::select(magnitude < I(0x38800000), subnormal, normal)));
+    const I result =
+        xsimd::select(magnitude > I(0x7f800000), nan,
+                      xsimd::select(magnitude >= I(0x47800000), I(0x7c00),
+                                    xsimd::select(magnitude < I(0x38800000), subnormal, normal)));
     return result | sign;
   }
 };
@@ -95,12 +99,24 @@ struct HalfEmulation {
 // Horizontal sums of `count` vectors: sums[i] = Σ lanes of acc[i]. xsimd::haddp transposes L
 // vectors at a time, cheaper than L separate reductions. Not for AVX-512: xsimd 8.1's AVX-512
 // haddp returns its sums in a permuted order, so that path has its own Reduce.
+//
+// Every vector's sum is formed the same way whether it sits in a full group or in the
+// remainder (which is reduced as a zero-padded group): a row's result then does not depend on
+// the register block it landed in, so gemv equals gemm_rows and a batch's results do not
+// depend on how it was split.
 template <class Arch>
 void ReduceWithHaddp(const xsimd::batch<float, Arch>* acc, size_t count, float* sums) {
-  constexpr size_t L = xsimd::batch<float, Arch>::size;
+  using F = xsimd::batch<float, Arch>;
+  constexpr size_t L = F::size;
   size_t i = 0;
   for (; i + L <= count; i += L) xsimd::haddp(acc + i).store_unaligned(sums + i);
-  for (; i < count; ++i) sums[i] = xsimd::hadd(acc[i]);
+  if (i < count) {
+    F group[L];
+    alignas(64) float out[L];
+    for (size_t j = 0; j < L; ++j) group[j] = i + j < count ? acc[i + j] : F(0.0f);
+    xsimd::haddp(group).store_aligned(out);
+    for (size_t j = 0; i + j < count; ++j) sums[i + j] = out[j];
+  }
 }
 
 struct FloatTag {
@@ -226,8 +242,8 @@ struct SimdKernels {
   static constexpr size_t kRowTileBytes = 512 * 1024;
 
   template <class Tag>
-  static void GemmRows(const typename Tag::Storage* w, const float* x, const float* bias,
-                       float* y, size_t rows, size_t out, size_t in) {
+  static void GemmRows(const typename Tag::Storage* w, const float* x, const float* bias, float* y,
+                       size_t rows, size_t out, size_t in) {
     constexpr size_t R = Traits::kGemmRows;
     constexpr size_t C = Traits::kGemmCols;
     const size_t row_bytes = Max<size_t>(in, 1) * sizeof(float);
@@ -242,7 +258,8 @@ struct SimdKernels {
           EdgeBlock<Tag, int(R), int(C)>(block_rows, cols, w + o * in, x + r * in, in, sums);
           for (size_t i = 0; i < block_rows; ++i) {
             for (size_t c = 0; c < cols; ++c) {
-              y[(r + i) * out + o + c] = sums[i * cols + c] + (bias != nullptr ? bias[o + c] : 0.0f);
+              y[(r + i) * out + o + c] =
+                  sums[i * cols + c] + (bias != nullptr ? bias[o + c] : 0.0f);
             }
           }
         }
@@ -310,20 +327,28 @@ struct SimdKernels {
 
   static void Activate(Activation act, float* x, size_t n) {
     switch (act) {
-      case Activation::kRelu: return Map<Activation::kRelu>(x, n);
-      case Activation::kGelu: return Map<Activation::kGelu>(x, n);
-      case Activation::kGeluTanh: return Map<Activation::kGeluTanh>(x, n);
-      case Activation::kSilu: return Map<Activation::kSilu>(x, n);
+      case Activation::kRelu:
+        return Map<Activation::kRelu>(x, n);
+      case Activation::kGelu:
+        return Map<Activation::kGelu>(x, n);
+      case Activation::kGeluTanh:
+        return Map<Activation::kGeluTanh>(x, n);
+      case Activation::kSilu:
+        return Map<Activation::kSilu>(x, n);
     }
   }
 
   static void GatedActivate(Activation act, const float* gate, const float* up, float* h,
                             size_t n) {
     switch (act) {
-      case Activation::kRelu: return GatedMap<Activation::kRelu>(gate, up, h, n);
-      case Activation::kGelu: return GatedMap<Activation::kGelu>(gate, up, h, n);
-      case Activation::kGeluTanh: return GatedMap<Activation::kGeluTanh>(gate, up, h, n);
-      case Activation::kSilu: return GatedMap<Activation::kSilu>(gate, up, h, n);
+      case Activation::kRelu:
+        return GatedMap<Activation::kRelu>(gate, up, h, n);
+      case Activation::kGelu:
+        return GatedMap<Activation::kGelu>(gate, up, h, n);
+      case Activation::kGeluTanh:
+        return GatedMap<Activation::kGeluTanh>(gate, up, h, n);
+      case Activation::kSilu:
+        return GatedMap<Activation::kSilu>(gate, up, h, n);
     }
   }
 
@@ -409,8 +434,8 @@ struct SimdKernels {
     }
   }
 
-  static void LayerNorm(const float* x, const float* weight, const float* bias, float eps,
-                        float* y, size_t n) {
+  static void LayerNorm(const float* x, const float* weight, const float* bias, float eps, float* y,
+                        size_t n) {
     if (n == 0) return;
     const float mean = Sum(x, n) / float(n);
     // Two passes: the variance of the centred values does not cancel like E[x²] - mean².
@@ -463,9 +488,8 @@ struct SimdKernels {
              [](const float* s, uint16_t* d) { StoreBFloat16(F::load_unaligned(s), d); });
   }
   static void BFloat16ToFloatArray(const uint16_t* src, float* dst, size_t n) {
-    MapArray(src, dst, n, [](const uint16_t* s, float* d) {
-      Load(s, BFloat16Tag{}).store_unaligned(d);
-    });
+    MapArray(src, dst, n,
+             [](const uint16_t* s, float* d) { Load(s, BFloat16Tag{}).store_unaligned(d); });
   }
 
   // ---- the table ----

@@ -34,6 +34,8 @@ constexpr KernelTable kSse42Table = SimdKernels<Sse42Traits>::MakeTable(KernelPa
 
 }  // namespace
 
-const KernelTable& Sse42Kernels() { return kSse42Table; }
+const KernelTable& Sse42Kernels() {
+  return kSse42Table;
+}
 
 }  // namespace sprig::kernels

@@ -110,7 +110,9 @@ float HalfToFloat(uint16_t bits) {
   return std::bit_cast<float>(result);
 }
 
-float BFloat16ToFloat(uint16_t bits) { return std::bit_cast<float>(uint32_t(bits) << 16); }
+float BFloat16ToFloat(uint16_t bits) {
+  return std::bit_cast<float>(uint32_t(bits) << 16);
+}
 
 void ConvertFloatToHalf(const float* src, uint16_t* dst, size_t n) {
   kernels::ActiveKernels().f32_to_f16(src, dst, n);
