@@ -15,6 +15,7 @@
 #include <benchmark/benchmark.h>
 
 #include <cstdio>
+#include <filesystem>
 #include <map>
 #include <memory>
 #include <string>
@@ -81,7 +82,8 @@ std::shared_ptr<const Model> ModelFor(const Case& c) {
   }
   const std::vector<io::NdArray> weights = convert::SynthesizeWeights(*config, 1);
   auto matched = convert::MatchTensors(*config, weights, c.name, {});
-  const std::string path = "/tmp/sprig-bench-" + c.name + ".sprig";
+  const std::string path =
+      (std::filesystem::temp_directory_path() / ("sprig-bench-" + c.name + ".sprig")).string();
   convert::PackOptions options;
   options.overwrite = true;
   auto packed = convert::PackTensors(*config, *matched, path, options);
