@@ -15,10 +15,12 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstdio>
 #include <cstring>
 #include <limits>
 #include <map>
 #include <memory>
+#include <numbers>
 #include <numeric>
 #include <string>
 #include <vector>
@@ -197,7 +199,8 @@ double Act(Activation a, double v) {
       return 0.5 * v * (1 + std::erf(v / std::sqrt(2.0)));
     // gelu_tanh: 0.5·x·(1 + tanh(√(2/π)·(x + 0.044715·x³))).
     case Activation::kGeluTanh:
-      return 0.5 * v * (1 + std::tanh(std::sqrt(2.0 / M_PI) * (v + 0.044715 * v * v * v)));
+      return 0.5 * v *
+             (1 + std::tanh(std::sqrt(2.0 / std::numbers::pi) * (v + 0.044715 * v * v * v)));
     // silu: x·sigmoid(x).
     case Activation::kSilu:
       return v / (1 + std::exp(-v));
