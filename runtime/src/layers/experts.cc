@@ -76,21 +76,8 @@ void ExpertsLayer::Forward(const Exec& e, const float* x, size_t rows, float* y,
   std::vector<RowGroup> groups;
   GroupByUnit(expert_of.data(), rows * top, order, groups);
   std::vector<float> slot_out(rows * top * out_);
-  e.ParallelFor(groups.size(), [&](size_t gi, Scratch& s) {
-    const RowGroup& g = groups[gi];
-    const size_t n = g.end - g.begin;
-    if (s.c.size() < n * in_) s.c.resize(n * in_);
-    if (s.d.size() < n * out_) s.d.resize(n * out_);
-    for (size_t i = 0; i < n; ++i) {
-      const size_t row = order[g.begin + i] / top;
-      std::memcpy(s.c.data() + i * in_, x + row * in_, in_ * sizeof(float));
-    }
-    MlpForward(k, Expert(g.unit), s.c.data(), n, s.d.data(), s, false);
-    for (size_t i = 0; i < n; ++i) {
-      std::memcpy(slot_out.data() + order[g.begin + i] * out_, s.d.data() + i * out_,
-                  out_ * sizeof(float));
-    }
-  });
+  RunGroups(e, groups, order, top, x, in_, slot_out.data(), out_,
+            [this](uint32_t j) { return Expert(j); });
   for (size_t r = 0; r < rows; ++r) {
     float* yr = y + r * out_;
     std::fill(yr, yr + out_, 0.0f);

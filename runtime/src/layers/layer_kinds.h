@@ -92,4 +92,11 @@ struct RowGroup {
 void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& order,
                  std::vector<RowGroup>& groups);
 
+// Evaluates each group's unit once over its entries, as a small matrix product: entry `e`
+// (an index from `order`) reads input row e / per_row of x and writes output row e of out.
+// Groups run in parallel; each row's arithmetic is the same whatever the grouping.
+void RunGroups(const Exec& exec, const std::vector<RowGroup>& groups,
+               const std::vector<uint32_t>& order, size_t per_row, const float* x, size_t in,
+               float* out, size_t out_width, const std::function<MlpView(uint32_t)>& unit);
+
 }  // namespace sprig::layers
