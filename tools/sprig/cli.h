@@ -51,5 +51,6 @@ Verb AddInspect(CLI::App& app);
 Verb AddSynth(CLI::App& app);
 Verb AddRun(CLI::App& app);
 Verb AddRoutes(CLI::App& app);
+Verb AddGenerate(CLI::App& app);
 
 }  // namespace sprig::cli

@@ -22,6 +22,7 @@ int main(int argc, char** argv) {
       sprig::cli::AddSynth(app),
       sprig::cli::AddRun(app),
       sprig::cli::AddRoutes(app),
+      sprig::cli::AddGenerate(app),
   };
   try {
     app.parse(argc, argv);

@@ -1,5 +1,8 @@
 // sprig run MODEL --input IN.npy --output OUT.npy [--routes R.npz] [--batch N] [--threads N]
 // sprig routes MODEL --input IN.npy [--json]
+//
+// Stack models take float rows [N, in]; transformer models take int32/int64 tokens [T] or
+// [B, T] (each of the B sequences runs independently from position 0).
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
@@ -37,10 +40,11 @@ Result<std::vector<float>> ReadRows(const std::string& path, size_t in, size_t* 
   const bool one_row = a.shape.size() == 1;
   if ((a.shape.size() != 2 && !one_row) || a.shape.back() != in) {
     std::string shape = "[";
-    for (size_t i = 0; i < a.shape.size(); ++i) shape += (i ? ", " : "") + std::to_string(a.shape[i]);
+    for (size_t i = 0; i < a.shape.size(); ++i)
+      shape += (i ? ", " : "") + std::to_string(a.shape[i]);
     return Status::InvalidArgument(path + " has shape " + shape + "]; the model takes rows of " +
-                                   std::to_string(in) + " values, shape [N, " +
-                                   std::to_string(in) + "]");
+                                   std::to_string(in) + " values, shape [N, " + std::to_string(in) +
+                                   "]");
   }
   *rows = one_row ? 1 : a.shape[0];
   std::vector<float> out(*rows * in);
@@ -60,20 +64,117 @@ Result<std::vector<float>> ReadRows(const std::string& path, size_t in, size_t* 
   return out;
 }
 
+std::string ShapeText(const std::vector<uint64_t>& shape) {
+  std::string s = "[";
+  for (size_t i = 0; i < shape.size(); ++i) s += (i ? ", " : "") + std::to_string(shape[i]);
+  return s + "]";
+}
+
+// Reads int32/int64 tokens [T] (one sequence) or [B, T] from a .npy file, each in [0, vocab).
+Result<std::vector<int32_t>> ReadTokens(const std::string& path, uint32_t vocab, size_t* batch,
+                                        size_t* length) {
+  SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, io::TensorArchive::Open(path));
+  if (archive.arrays().size() != 1) {
+    return Status::InvalidArgument(path + " holds " + std::to_string(archive.arrays().size()) +
+                                   " arrays; --input takes one array of tokens");
+  }
+  const io::NdArray& a = archive.arrays()[0];
+  if (a.type != io::ElementType::kI32 && a.type != io::ElementType::kI64) {
+    return Status::InvalidArgument(path + " holds " + std::string(io::ElementTypeName(a.type)) +
+                                   " values; this transformer model takes int32 or int64 tokens");
+  }
+  if (a.shape.size() != 1 && a.shape.size() != 2) {
+    return Status::InvalidArgument(path + " has shape " + ShapeText(a.shape) +
+                                   "; tokens must be [T] or [B, T]");
+  }
+  *batch = a.shape.size() == 1 ? 1 : a.shape[0];
+  *length = a.shape.back();
+  std::vector<int32_t> out(*batch * *length);
+  for (size_t i = 0; i < out.size(); ++i) {
+    int64_t v;
+    if (a.type == io::ElementType::kI32) {
+      int32_t v32;
+      std::memcpy(&v32, a.data + 4 * i, 4);
+      v = v32;
+    } else {
+      std::memcpy(&v, a.data + 8 * i, 8);
+    }
+    if (v < 0 || v >= static_cast<int64_t>(vocab)) {
+      return Status::InvalidArgument(
+          path + ": token " + std::to_string(v) + " at [" + std::to_string(i / *length) + ", " +
+          std::to_string(i % *length) + "] is outside the vocabulary [0, " + std::to_string(vocab) +
+          ")");
+    }
+    out[i] = static_cast<int32_t>(v);
+  }
+  return out;
+}
+
 struct RunResult {
   std::vector<float> output;
-  Routes routes;  // concatenated over batches
-  size_t rows = 0;
+  std::vector<uint64_t> shape;  // of output
+  Routes routes;                // concatenated over batches
+  size_t rows = 0;              // rows of routes: input rows, or tokens of a transformer
+  std::string summary;          // what ran, for the closing message
 };
+
+void AppendRoutes(Routes& all, Routes&& part) {
+  if (all.layers.empty()) {
+    all = std::move(part);
+    return;
+  }
+  for (size_t l = 0; l < part.layers.size(); ++l) {
+    auto& dst = all.layers[l].choices;
+    const auto& src = part.layers[l].choices;
+    dst.insert(dst.end(), src.begin(), src.end());
+  }
+}
+
+// Transformer models: --batch sequences per forward_tokens call.
+Result<RunResult> RunTransformer(const RunArgs& a, std::shared_ptr<const Model> model,
+                                 bool want_routes) {
+  const ModelConfig& c = model->config();
+  size_t batch = 0, length = 0;
+  SPRIG_ASSIGN_OR_RETURN(std::vector<int32_t> tokens,
+                         ReadTokens(a.input, c.vocab_size, &batch, &length));
+  if (length > c.max_seq) {
+    return Status::InvalidArgument(a.input + " holds sequences of " + std::to_string(length) +
+                                   " tokens; the model's max_seq is " + std::to_string(c.max_seq));
+  }
+  if (length == 0 && c.head.kind == HeadKind::kClassifier) {
+    return Status::InvalidArgument(a.input + " holds empty sequences; a classifier needs tokens");
+  }
+  SessionOptions options;
+  options.threads = a.threads;
+  SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model, options));
+  RunResult r;
+  r.rows = batch * length;
+  const bool per_token = c.head.kind != HeadKind::kClassifier;
+  const size_t width = c.output_dim();
+  const size_t per_sequence = per_token ? length * width : width;
+  r.shape =
+      per_token ? std::vector<uint64_t>{batch, length, width} : std::vector<uint64_t>{batch, width};
+  r.output.resize(batch * per_sequence);
+  Progress progress("running " + a.model);
+  for (size_t b0 = 0; b0 < batch; b0 += a.batch) {
+    const size_t n = std::min(a.batch, batch - b0);
+    Routes part;
+    SPRIG_RETURN_IF_ERROR(session->forward_tokens(tokens.data() + b0 * length, n, length,
+                                                  r.output.data() + b0 * per_sequence,
+                                                  want_routes ? &part : nullptr));
+    if (want_routes) AppendRoutes(r.routes, std::move(part));
+    progress.Update(b0 + n, batch);
+  }
+  progress.Finish();
+  r.summary = std::to_string(batch) + " sequences of " + std::to_string(length) + " tokens";
+  return r;
+}
 
 Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
   SPRIG_ASSIGN_OR_RETURN(auto model, Model::open(a.model));
   const ModelConfig& c = model->config();
-  if (c.family != Family::kStack) {
-    return Status::InvalidArgument(a.model + " is a transformer model; it takes int tokens, "
-                                             "not float rows");
-  }
   if (a.batch == 0) return Status::InvalidArgument("--batch must be at least 1");
+  if (c.family == Family::kTransformer) return RunTransformer(a, model, want_routes);
   RunResult r;
   SPRIG_ASSIGN_OR_RETURN(std::vector<float> x, ReadRows(a.input, c.input_dim, &r.rows));
   SessionOptions options;
@@ -88,33 +189,23 @@ Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
     SPRIG_RETURN_IF_ERROR(session->forward(x.data() + r0 * c.input_dim, n,
                                            r.output.data() + r0 * out,
                                            want_routes ? &batch_routes : nullptr));
-    if (want_routes) {
-      if (r.routes.layers.empty()) {
-        r.routes = std::move(batch_routes);
-      } else {
-        for (size_t l = 0; l < batch_routes.layers.size(); ++l) {
-          auto& dst = r.routes.layers[l].choices;
-          const auto& src = batch_routes.layers[l].choices;
-          dst.insert(dst.end(), src.begin(), src.end());
-        }
-      }
-    }
+    if (want_routes) AppendRoutes(r.routes, std::move(batch_routes));
     progress.Update((r0 + n) * c.input_dim * 4, r.rows * c.input_dim * 4);
   }
   progress.Finish();
+  r.shape = {r.rows, out};
+  r.summary = std::to_string(r.rows) + " rows";
   return r;
 }
 
 int RunRun(const RunArgs& a) {
   auto r = RunModel(a, !a.routes.empty());
   if (!r.ok()) return Fail("run", r.status());
-  const size_t out = r->rows ? r->output.size() / r->rows : 0;
   std::vector<uint8_t> bytes(r->output.size() * 4);
   std::memcpy(bytes.data(), r->output.data(), bytes.size());
-  Status s = io::WriteNpy(a.output,
-                          io::NdArray::Owned("output", io::ElementType::kF32,
-                                             {r->rows, out}, std::move(bytes)),
-                          /*overwrite=*/true);
+  Status s = io::WriteNpy(
+      a.output, io::NdArray::Owned("output", io::ElementType::kF32, r->shape, std::move(bytes)),
+      /*overwrite=*/true);
   if (!s.ok()) return Fail("run", s);
   if (!a.routes.empty()) {
     std::vector<io::NdArray> arrays;
@@ -123,14 +214,15 @@ int RunRun(const RunArgs& a) {
       std::memcpy(rb.data(), lr.choices.data(), rb.size());
       std::vector<uint64_t> shape = {r->rows};
       if (lr.width > 1) shape.push_back(lr.width);
-      arrays.push_back(io::NdArray::Owned("layer" + std::to_string(lr.layer),
-                                          io::ElementType::kI32, shape, std::move(rb)));
+      arrays.push_back(io::NdArray::Owned("layer" + std::to_string(lr.layer), io::ElementType::kI32,
+                                          shape, std::move(rb)));
     }
     s = io::WriteNpz(a.routes, arrays, false, /*overwrite=*/true);
     if (!s.ok()) return Fail("run", s);
   }
-  std::fprintf(stderr, "ran %zu rows -> %s [%zu, %zu]%s\n", r->rows, a.output.c_str(), r->rows,
-               out, a.routes.empty() ? "" : (", routes -> " + a.routes).c_str());
+  std::fprintf(stderr, "ran %s -> %s %s%s\n", r->summary.c_str(), a.output.c_str(),
+               ShapeText(r->shape).c_str(),
+               a.routes.empty() ? "" : (", routes -> " + a.routes).c_str());
   return kExitOk;
 }
 
@@ -239,10 +331,13 @@ int RunRoutes(const RunArgs& a) {
 
 void AddCommonOptions(CLI::App* c, RunArgs& a) {
   c->add_option("MODEL", a.model, "the .sprig file")->required();
-  c->add_option("--input", a.input, "float32/float64 rows [N, input_dim] as .npy")->required();
-  c->add_option("--batch", a.batch, "rows per forward call")->capture_default_str();
-  c->add_option("--threads", a.threads, "threads per call (0: one per CPU)")
+  c->add_option("--input", a.input,
+                "stack: float32/float64 rows [N, input_dim]; transformer: int32/int64 tokens "
+                "[T] or [B, T] (.npy)")
+      ->required();
+  c->add_option("--batch", a.batch, "rows (stack) or sequences (transformer) per forward call")
       ->capture_default_str();
+  c->add_option("--threads", a.threads, "threads per call (0: one per CPU)")->capture_default_str();
 }
 
 }  // namespace
@@ -251,7 +346,9 @@ Verb AddRun(CLI::App& app) {
   auto args = std::make_shared<RunArgs>();
   CLI::App* c = app.add_subcommand("run", "Run a model on rows from a .npy file.");
   AddCommonOptions(c, *args);
-  c->add_option("--output", args->output, "where to write float32 outputs [N, out] (.npy)")
+  c->add_option("--output", args->output,
+                "where to write float32 outputs (.npy): [N, out] for a stack; logits [B, T, V], "
+                "classes [B, C] or hidden states [B, T, D] for a transformer")
       ->required();
   c->add_option("--routes", args->routes,
                 "also write each routed layer's choices to this .npz (layer{i}: int32)");

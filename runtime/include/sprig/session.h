@@ -1,12 +1,13 @@
 // sprig::Session: per-thread inference state over a shared Model.
 //
 // A Session owns its scratch memory and worker threads. It is not thread-safe: use one Session
-// per thread (any number of Sessions may share one Model). Results are identical for every
-// thread count.
+// per thread (any number of Sessions may share one Model). A row's results are bit-identical
+// whatever the thread count and however rows are split into calls.
 #pragma once
 
 #include <cstddef>
 #include <cstdint>
+#include <functional>
 #include <memory>
 #include <string>
 #include <vector>
@@ -29,12 +30,27 @@ struct SessionOptions {
 // The routing decisions of one forward call, one entry per routed layer.
 struct LayerRoutes {
   size_t layer = 0;
-  size_t width = 1;             // ints per row: 1 for trees, top_k for experts
+  size_t width = 1;              // ints per row: 1 for trees, top_k for experts
   std::vector<int32_t> choices;  // [rows, width]: leaf index, or experts by descending weight
 };
 
 struct Routes {
   std::vector<LayerRoutes> layers;
+};
+
+// How Session::generate picks each token.
+struct GenerateOptions {
+  // Tokens to generate at most. Default: 64.
+  size_t count = 64;
+  // Softmax temperature; 0 picks the most probable token (ties to the lower index).
+  // Must be finite and >= 0. Default: 1.
+  float temperature = 1.0f;
+  // Nucleus sampling: draw only from the smallest set of most probable tokens whose
+  // probabilities sum to at least top_p, renormalised. Must be in (0, 1]. Default: 1 (all).
+  float top_p = 1.0f;
+  // Seed of the sampler's generator: the same seed, model and prompt give the same tokens, for
+  // any thread count. Default: 1.
+  uint64_t seed = 1;
 };
 
 class Session {
@@ -49,6 +65,37 @@ class Session {
   // When `routes` is not null it receives every routed layer's decisions for these rows.
   // Returns InvalidArgument for a transformer model or a non-finite input value.
   Status forward(const float* input, size_t rows, float* output, Routes* routes = nullptr);
+
+  // Transformer models: runs `batch` sequences of `length` tokens each (row-major
+  // [batch, length]), every sequence independently from position 0; the KV cache is neither
+  // used nor changed. `output` receives [batch, length, vocab_size] logits (lm head),
+  // [batch, classes] (classifier) or [batch, length, d_model] hidden states (no head). When
+  // `routes` is not null it receives each routed block's choices for the batch·length tokens in
+  // batch-major order. InvalidArgument for a stack model, length > max_seq or a token outside
+  // [0, vocab_size).
+  Status forward_tokens(const int32_t* tokens, size_t batch, size_t length, float* output,
+                        Routes* routes = nullptr);
+
+  // Causal transformer models with an lm head: runs `token` at the KV cache's next position
+  // (position()), keeps its keys and values, and writes the vocab_size logits of the next token
+  // to `logits` (may be null). InvalidArgument when the cache already holds max_seq tokens, the
+  // token is out of range, or the model is not a causal lm.
+  Status append_token(int32_t token, float* logits);
+  // As append_token for `count` tokens at once (one batched pass); `logits` receives the logits
+  // after the last of them.
+  Status append_tokens(const int32_t* tokens, size_t count, float* logits);
+  // Empties the KV cache; the next token goes to position 0.
+  void reset();
+  // Tokens held in the KV cache.
+  size_t position() const;
+
+  // Resets the cache, runs `prompt` (at least one token) through it and then samples up to
+  // options.count tokens, calling on_token with each as soon as it is chosen; generation stops
+  // early when on_token returns false, or once the cache holds max_seq tokens (the last token
+  // chosen is still reported; position() == max_seq tells the caller). Returns Ok in all these
+  // cases; InvalidArgument for a bad prompt or options, or a model that cannot generate.
+  Status generate(const std::vector<int32_t>& prompt, const GenerateOptions& options,
+                  const std::function<bool(int32_t token)>& on_token);
 
   const Model& model() const { return *model_; }
   // The kernel instruction set this session runs ("avx2", ...).

@@ -1,13 +1,17 @@
 #include "sprig/session.h"
 
 #include <cmath>
+#include <cstdio>
 #include <cstring>
+#include <optional>
 #include <thread>
 
 #include "format/model_file.h"
 #include "kernels/kernels.h"
 #include "layers/feed_forward.h"
 #include "layers/thread_pool.h"
+#include "transformer/sampler.h"
+#include "transformer/transformer.h"
 
 namespace sprig {
 namespace {
@@ -23,6 +27,25 @@ bool AllFinite(const float* x, size_t n) {
   return bad == 0;
 }
 
+// A float as printf's %g writes it ("0.5", "1e-06").
+std::string Number(float v) {
+  char buf[32];
+  std::snprintf(buf, sizeof(buf), "%g", static_cast<double>(v));
+  return buf;
+}
+
+// The first token outside [0, vocab), as an error naming it; Ok when all are in range.
+Status CheckTokens(const int32_t* tokens, size_t n, uint32_t vocab) {
+  for (size_t i = 0; i < n; ++i) {
+    if (tokens[i] < 0 || static_cast<uint32_t>(tokens[i]) >= vocab) {
+      return Status::InvalidArgument("token " + std::to_string(tokens[i]) + " at index " +
+                                     std::to_string(i) + " is outside the vocabulary [0, " +
+                                     std::to_string(vocab) + ")");
+    }
+  }
+  return Status::Ok();
+}
+
 }  // namespace
 
 struct Session::State {
@@ -30,6 +53,19 @@ struct Session::State {
   std::unique_ptr<layers::ThreadPool> pool;
   std::vector<layers::Scratch> scratch;
   std::vector<float> ping, pong;  // activations between layers
+  // Transformer models only.
+  std::optional<transformer::Transformer> transformer;
+  transformer::Workspace workspace;
+  transformer::KvCache cache;
+
+  layers::Exec MakeExec(bool single_row) {
+    layers::Exec exec;
+    exec.k = kernels;
+    exec.pool = pool.get();
+    exec.scratch = &scratch;
+    exec.single_row = single_row;
+    return exec;
+  }
 };
 
 Session::Session(std::shared_ptr<const Model> model, std::unique_ptr<State> state)
@@ -50,16 +86,23 @@ Result<std::unique_ptr<Session>> Session::create(std::shared_ptr<const Model> mo
   size_t threads = options.threads;
   if (threads == 0) threads = std::max(1u, std::thread::hardware_concurrency());
   if (threads > 256) {
-    return Status::InvalidArgument("threads is " + std::to_string(threads) +
-                                   ", expected 0..256");
+    return Status::InvalidArgument("threads is " + std::to_string(threads) + ", expected 0..256");
   }
   if (threads > 1) state->pool = std::make_unique<layers::ThreadPool>(threads);
   state->scratch.resize(threads);
+  if (model->config().family == Family::kTransformer) {
+    SPRIG_ASSIGN_OR_RETURN(auto bound, transformer::Transformer::Bind(*model));
+    state->transformer.emplace(std::move(bound));
+  }
   return std::unique_ptr<Session>(new Session(std::move(model), std::move(state)));
 }
 
-const char* Session::kernel_path() const { return kernels::ToString(state_->kernels->path); }
-size_t Session::threads() const { return state_->scratch.size(); }
+const char* Session::kernel_path() const {
+  return kernels::ToString(state_->kernels->path);
+}
+size_t Session::threads() const {
+  return state_->scratch.size();
+}
 
 Status Session::forward(const float* input, size_t rows, float* output, Routes* routes) {
   const ModelConfig& c = model_->config();
@@ -75,11 +118,7 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
                                      std::to_string(i % in) + " is not a finite number");
     }
   }
-  layers::Exec exec;
-  exec.k = state_->kernels;
-  exec.pool = state_->pool.get();
-  exec.scratch = &state_->scratch;
-  exec.single_row = rows == 1;
+  const layers::Exec exec = state_->MakeExec(rows == 1);
   if (routes) routes->layers.clear();
   const auto& net = model_->layers();
   const float* x = input;
@@ -102,6 +141,102 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
     }
     layer.Forward(exec, x, rows, y, route_out);
     x = y;
+  }
+  return Status::Ok();
+}
+
+}  // namespace sprig
+
+namespace sprig {
+
+Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t length, float* output,
+                               Routes* routes) {
+  const ModelConfig& c = model_->config();
+  if (!state_->transformer) {
+    return Status::InvalidArgument(model_->path() +
+                                   " is a stack model; it takes float rows, not tokens");
+  }
+  if (length > c.max_seq) {
+    return Status::InvalidArgument("a sequence of " + std::to_string(length) +
+                                   " tokens is longer than the model's max_seq " +
+                                   std::to_string(c.max_seq));
+  }
+  if (c.head.kind == HeadKind::kClassifier && length == 0 && batch > 0) {
+    return Status::InvalidArgument("a classifier needs sequences of at least one token");
+  }
+  SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, batch * length, c.vocab_size));
+  const layers::Exec exec = state_->MakeExec(batch * length == 1);
+  state_->transformer->Forward(exec, state_->workspace, tokens, batch, length, output, routes);
+  return Status::Ok();
+}
+
+Status Session::append_tokens(const int32_t* tokens, size_t count, float* logits) {
+  const ModelConfig& c = model_->config();
+  if (!state_->transformer) {
+    return Status::InvalidArgument(model_->path() + " is a stack model; it has no KV cache");
+  }
+  if (c.head.kind != HeadKind::kLm) {
+    return Status::InvalidArgument(model_->path() + " has a " + ToString(c.head.kind) +
+                                   " head; decoding with the KV cache needs an lm head");
+  }
+  if (!c.causal) {
+    // Earlier tokens of a bidirectional model would have to see the new one, which a cache
+    // of their keys and values cannot express.
+    return Status::InvalidArgument(model_->path() +
+                                   " is not causal; decoding with the KV cache needs a causal "
+                                   "model (use forward_tokens on whole sequences)");
+  }
+  const size_t at = state_->cache.length;
+  if (count > c.max_seq - at) {
+    return Status::InvalidArgument("the KV cache holds " + std::to_string(at) + " of max_seq " +
+                                   std::to_string(c.max_seq) + " tokens; " + std::to_string(count) +
+                                   " more do not fit");
+  }
+  SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, count, c.vocab_size));
+  if (count == 0) return Status::Ok();
+  const layers::Exec exec = state_->MakeExec(count == 1);
+  state_->transformer->Append(exec, state_->workspace, state_->cache, tokens, count, logits);
+  return Status::Ok();
+}
+
+Status Session::append_token(int32_t token, float* logits) {
+  return append_tokens(&token, 1, logits);
+}
+
+void Session::reset() {
+  state_->cache.Clear();
+}
+
+size_t Session::position() const {
+  return state_->cache.length;
+}
+
+Status Session::generate(const std::vector<int32_t>& prompt, const GenerateOptions& options,
+                         const std::function<bool(int32_t token)>& on_token) {
+  if (!(options.temperature >= 0.0f) || !std::isfinite(options.temperature)) {
+    return Status::InvalidArgument("temperature must be a finite number >= 0, got " +
+                                   Number(options.temperature));
+  }
+  if (!(options.top_p > 0.0f && options.top_p <= 1.0f)) {
+    return Status::InvalidArgument("top_p must be in (0, 1], got " + Number(options.top_p));
+  }
+  if (prompt.empty())
+    return Status::InvalidArgument("generate needs a prompt of at least one token");
+  const ModelConfig& c = model_->config();
+  reset();
+  std::vector<float> logits(state_->transformer ? c.vocab_size : 0);
+  // The prompt in one batched pass; its last token's logits predict the first new token.
+  SPRIG_RETURN_IF_ERROR(append_tokens(prompt.data(), prompt.size(), logits.data()));
+  transformer::Random rng(options.seed);
+  transformer::SamplerOptions sampler{options.temperature, options.top_p};
+  std::vector<double> probabilities;
+  std::vector<int32_t> order;
+  for (size_t i = 0; i < options.count; ++i) {
+    const int32_t token =
+        transformer::Sample(logits.data(), logits.size(), sampler, rng, probabilities, order);
+    if (!on_token(token)) break;
+    if (i + 1 == options.count || position() == c.max_seq) break;
+    SPRIG_RETURN_IF_ERROR(append_token(token, logits.data()));
   }
   return Status::Ok();
 }

@@ -9,6 +9,9 @@
 namespace sprig::layers {
 namespace {
 
+// How many rows ahead the batched descent prefetches (measured: 1 to 4 at in = out = 768).
+constexpr size_t kPrefetchRowsAhead = 2;
+
 // Scalar activation of one pre-activation (the same formulas as the kernels' scalar path).
 float ActivateScalar(Activation act, float a) {
   switch (act) {
@@ -90,8 +93,12 @@ void PathTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y
     e.ParallelFor(chunks, [&](size_t c, Scratch&) {
       for (size_t i = c * kRowChunk; i < std::min(rows, (c + 1) * kRowChunk); ++i) {
         const uint32_t r = order[i].second;
-        // The next row in this order usually needs another neuron: fetch it ahead.
-        if (i + 1 < rows && order[i + 1].first != order[i].first) Prefetch(order[i + 1].first);
+        // Rows further on in this order usually need other neurons: fetch them ahead, far
+        // enough that they arrive before they are needed.
+        const size_t ahead = i + kPrefetchRowsAhead;
+        if (ahead < rows && order[ahead].first != order[ahead - 1].first) {
+          Prefetch(order[ahead].first);
+        }
         const float a = Step(k, node[r], x + r * in_, y + r * out_, false);
         if (level < depth) node[r] = 2 * node[r] + 1 + (a > 0.0f ? 1 : 0);
       }

@@ -1,0 +1,324 @@
+// The transformer family: binding its tensors, the pre-norm blocks and the heads.
+#include "transformer/transformer.h"
+
+#include <algorithm>
+#include <cstring>
+
+#include "layers/bind.h"
+
+namespace sprig::transformer {
+namespace {
+
+using layers::Exec;
+using layers::MatrixView;
+
+// Row `row` of a hot matrix as float32 (converting f16/bf16 with the kernel converters).
+void RowToFloat(const kernels::KernelTable& k, const MatrixView& m, uint64_t row, float* out) {
+  const void* src = m.row(row);
+  switch (m.type) {
+    case DType::kF16:
+      k.f16_to_f32(static_cast<const uint16_t*>(src), out, m.cols);
+      break;
+    case DType::kBF16:
+      k.bf16_to_f32(static_cast<const uint16_t*>(src), out, m.cols);
+      break;
+    default:
+      std::memcpy(out, src, m.cols * sizeof(float));
+      break;
+  }
+}
+
+// y[rows, out] = x[rows, in] W^T + b. One row uses the matrix-vector kernel; batches are split
+// between threads in multiples of kRowChunk, so a row's result does not depend on the thread
+// count (see layers/bind.h).
+void Project(const Exec& e, const MatrixView& w, const float* bias, const float* x, size_t rows,
+             float* y) {
+  const size_t out = w.rows, in = w.cols;
+  if (e.single_row || rows == 1) {
+    for (size_t r = 0; r < rows; ++r) {
+      kernels::Gemv(*e.k, w.type, w.data, x + r * in, bias, y + r * out, out, in);
+    }
+    return;
+  }
+  const size_t per_thread = (rows + e.threads() - 1) / e.threads();
+  const size_t chunk = (per_thread + layers::kRowChunk - 1) / layers::kRowChunk * layers::kRowChunk;
+  const size_t tasks = (rows + chunk - 1) / chunk;
+  e.ParallelFor(tasks, [&](size_t t, layers::Scratch&) {
+    const size_t r0 = t * chunk, n = std::min(chunk, rows - r0);
+    kernels::GemmRows(*e.k, w.type, w.data, x + r0 * in, bias, y + r0 * out, n, out, in);
+  });
+}
+
+void Project(const Exec& e, const Linear& l, const float* x, size_t rows, float* y) {
+  Project(e, l.weight, l.bias, x, rows, y);
+}
+
+void AddInPlace(float* x, const float* y, size_t n) {
+  for (size_t i = 0; i < n; ++i) x[i] += y[i];
+}
+
+void Grow(std::vector<float>& v, size_t n) {
+  if (v.size() < n) v.resize(n);
+}
+
+// Finds a tensor the validated file must hold, refusing storage the kernels cannot read.
+class Tensors {
+ public:
+  explicit Tensors(const format::ModelFile& f) : file_(f), binder_(f, "") {}
+
+  Status Matrix(const std::string& name, MatrixView* out) {
+    const format::TensorInfo* t = file_.Find(name);
+    if (t == nullptr) return Status::NotFound(file_.path() + " has no tensor " + name);
+    if (t->dtype == DType::kI8) {
+      return Status::NotSupported(file_.path() + ": tensor " + name +
+                                  " is stored as i8, which transformer layers cannot run yet");
+    }
+    if (t->hot_rows != t->shape[0]) {
+      return Status::Corruption(file_.path() + ": tensor " + name +
+                                " must be stored whole in the hot section");
+    }
+    *out = binder_.Matrix(t);
+    return Status::Ok();
+  }
+
+  // A float32 vector (bias, norm weight); null when absent and not required.
+  Status Floats(const std::string& name, bool required, const float** out) {
+    const format::TensorInfo* t = file_.Find(name);
+    *out = nullptr;
+    if (t == nullptr) {
+      if (!required) return Status::Ok();
+      return Status::NotFound(file_.path() + " has no tensor " + name);
+    }
+    if (t->dtype != DType::kF32) {
+      return Status::Corruption(file_.path() + ": tensor " + name + " is stored as " +
+                                ToString(t->dtype) + "; biases and norm weights must be f32");
+    }
+    *out = binder_.FloatRow(t, 0);
+    return Status::Ok();
+  }
+
+  Status Norm(const std::string& prefix, bool layer_norm, transformer::Norm* n) {
+    SPRIG_RETURN_IF_ERROR(Floats(prefix + ".weight", true, &n->weight));
+    return Floats(prefix + ".bias", layer_norm, &n->bias);
+  }
+
+  Status Linear(const std::string& prefix, bool bias, transformer::Linear* l) {
+    SPRIG_RETURN_IF_ERROR(Matrix(prefix + ".weight", &l->weight));
+    return Floats(prefix + ".bias", bias, &l->bias);
+  }
+
+ private:
+  const format::ModelFile& file_;
+  layers::Binder binder_;
+};
+
+}  // namespace
+
+Result<Transformer> Transformer::Bind(const Model& model) {
+  const ModelConfig& c = model.config();
+  if (c.family != Family::kTransformer) {
+    return Status::InvalidArgument(model.path() + " is not a transformer model");
+  }
+  Transformer t;
+  t.config_ = &c;
+  t.d_ = c.d_model;
+  t.head_dim_ = c.d_model / c.n_heads;
+  const size_t kv_heads = c.n_kv_heads ? c.n_kv_heads : c.n_heads;
+  t.kv_dim_ = kv_heads * t.head_dim_;
+  t.group_ = c.n_heads / kv_heads;
+  const bool layer_norm = c.norm == NormKind::kLayerNorm;
+  Tensors f(model.file());
+  SPRIG_RETURN_IF_ERROR(f.Matrix("embed.weight", &t.embed_));
+  t.has_pos_ = c.positions == Positions::kLearned;
+  if (t.has_pos_) SPRIG_RETURN_IF_ERROR(f.Matrix("pos.weight", &t.pos_));
+  for (size_t i = 0; i < c.layers.size(); ++i) {
+    const std::string p = "blocks." + std::to_string(i) + ".";
+    Block b;
+    SPRIG_RETURN_IF_ERROR(f.Norm(p + "norm1", layer_norm, &b.norm1));
+    SPRIG_RETURN_IF_ERROR(f.Norm(p + "norm2", layer_norm, &b.norm2));
+    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.q", c.attn_bias, &b.q));
+    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.k", c.attn_bias, &b.k));
+    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.v", c.attn_bias, &b.v));
+    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.o", c.attn_bias, &b.o));
+    if (i >= model.layers().size()) {
+      return Status::Corruption(model.path() + ": block " + std::to_string(i) +
+                                " has no bound feed-forward layer");
+    }
+    b.ffn = model.layers()[i].get();
+    t.blocks_.push_back(b);
+  }
+  SPRIG_RETURN_IF_ERROR(f.Norm("norm", layer_norm, &t.final_norm_));
+  if (c.head.kind == HeadKind::kLm) {
+    if (c.tie_embeddings) {
+      t.lm_head_ = t.embed_;
+    } else {
+      SPRIG_RETURN_IF_ERROR(f.Matrix("head.weight", &t.lm_head_));
+    }
+  } else if (c.head.kind == HeadKind::kClassifier) {
+    SPRIG_RETURN_IF_ERROR(f.Linear("head", true, &t.classifier_));
+  }
+  return t;
+}
+
+void Transformer::Embed(const Exec& e, const int32_t* tokens, size_t rows, size_t length,
+                        size_t start, float* x) const {
+  std::vector<float> pos(has_pos_ ? d_ : 0);
+  for (size_t r = 0; r < rows; ++r) {
+    float* row = x + r * d_;
+    RowToFloat(*e.k, embed_, static_cast<uint64_t>(tokens[r]), row);
+    if (has_pos_) {
+      RowToFloat(*e.k, pos_, start + r % length, pos.data());
+      AddInPlace(row, pos.data(), d_);
+    }
+  }
+}
+
+void Transformer::NormRows(const Exec& e, const Norm& n, const float* x, size_t rows,
+                           float* y) const {
+  const float eps = config_->norm_eps;
+  for (size_t r = 0; r < rows; ++r) {
+    if (config_->norm == NormKind::kLayerNorm) {
+      e.k->layer_norm(x + r * d_, n.weight, n.bias, eps, y + r * d_, d_);
+    } else {
+      e.k->rms_norm(x + r * d_, n.weight, eps, y + r * d_, d_);
+    }
+  }
+}
+
+void Transformer::RunBlocks(const Exec& e, Workspace& ws, const int32_t* tokens, size_t sequences,
+                            size_t length, size_t start, KvCache* cache, Routes* routes) const {
+  const size_t rows = sequences * length, d = d_, hd = head_dim_;
+  const size_t total = start + length;
+  Grow(ws.x, rows * d);
+  Grow(ws.normed, rows * d);
+  Grow(ws.q, rows * d);
+  Grow(ws.k, rows * kv_dim_);
+  Grow(ws.v, rows * kv_dim_);
+  Grow(ws.proj, rows * d);
+  Grow(ws.ffn, rows * d);
+  Embed(e, tokens, rows, length, start, ws.x.data());
+  const bool rope = config_->positions == Positions::kRope;
+  if (rope) {
+    // One table for the positions of this call, shared by every block, head and sequence.
+    ws.rope_cos.resize(length * hd / 2);
+    ws.rope_sin.resize(length * hd / 2);
+    for (size_t t = 0; t < length; ++t) {
+      RopeTable(start + t, hd, config_->rope_base, ws.rope_cos.data() + t * hd / 2,
+                ws.rope_sin.data() + t * hd / 2);
+    }
+  }
+  if (cache) {
+    cache->keys.resize(blocks_.size());
+    cache->values.resize(blocks_.size());
+  }
+  if (routes) routes->layers.clear();
+  for (size_t i = 0; i < blocks_.size(); ++i) {
+    const Block& b = blocks_[i];
+    float* x = ws.x.data();
+    NormRows(e, b.norm1, x, rows, ws.normed.data());
+    Project(e, b.q, ws.normed.data(), rows, ws.q.data());
+    Project(e, b.k, ws.normed.data(), rows, ws.k.data());
+    Project(e, b.v, ws.normed.data(), rows, ws.v.data());
+    if (rope) {
+      for (size_t r = 0; r < rows; ++r) {
+        const float* cs = ws.rope_cos.data() + (r % length) * hd / 2;
+        const float* sn = ws.rope_sin.data() + (r % length) * hd / 2;
+        for (size_t h = 0; h < config_->n_heads; ++h) ApplyRope(&ws.q[r * d + h * hd], hd, cs, sn);
+        for (size_t h = 0; h * hd < kv_dim_; ++h)
+          ApplyRope(&ws.k[r * kv_dim_ + h * hd], hd, cs, sn);
+      }
+    }
+    const float *keys = ws.k.data(), *values = ws.v.data();
+    size_t stride = length * kv_dim_;
+    if (cache) {
+      // One sequence: its new keys and values go after those already cached.
+      std::vector<float>& ck = cache->keys[i];
+      std::vector<float>& cv = cache->values[i];
+      ck.resize(total * kv_dim_);
+      cv.resize(total * kv_dim_);
+      std::copy(ws.k.begin(), ws.k.begin() + rows * kv_dim_, ck.begin() + start * kv_dim_);
+      std::copy(ws.v.begin(), ws.v.begin() + rows * kv_dim_, cv.begin() + start * kv_dim_);
+      keys = ck.data();
+      values = cv.data();
+      stride = total * kv_dim_;
+    }
+    Attend(e, ws, sequences, length, start, keys, values, stride);
+    Project(e, b.o, ws.attn.data(), rows, ws.proj.data());
+    AddInPlace(x, ws.proj.data(), rows * d);
+    NormRows(e, b.norm2, x, rows, ws.normed.data());
+    int32_t* route_out = nullptr;
+    if (routes && b.ffn->route_width() > 0) {
+      LayerRoutes lr;
+      lr.layer = i;
+      lr.width = b.ffn->route_width();
+      lr.choices.resize(rows * lr.width);
+      routes->layers.push_back(std::move(lr));
+      route_out = routes->layers.back().choices.data();
+    }
+    b.ffn->Forward(e, ws.normed.data(), rows, ws.ffn.data(), route_out);
+    AddInPlace(x, ws.ffn.data(), rows * d);
+  }
+}
+
+void Transformer::Head(const Exec& e, Workspace& ws, size_t sequences, size_t length,
+                       float* output) const {
+  const size_t rows = sequences * length, d = d_;
+  NormRows(e, final_norm_, ws.x.data(), rows, ws.normed.data());
+  const float* h = ws.normed.data();
+  switch (config_->head.kind) {
+    case HeadKind::kLm:
+      Project(e, lm_head_, nullptr, h, rows, output);
+      return;
+    case HeadKind::kNone:
+      std::copy(h, h + rows * d, output);
+      return;
+    case HeadKind::kClassifier:
+      break;
+  }
+  Grow(ws.out, sequences * d);
+  for (size_t s = 0; s < sequences; ++s) {
+    const float* seq = h + s * length * d;
+    float* p = ws.out.data() + s * d;
+    switch (config_->head.pool) {
+      case Pool::kFirst:
+        std::copy(seq, seq + d, p);
+        break;
+      case Pool::kLast:
+        std::copy(seq + (length - 1) * d, seq + length * d, p);
+        break;
+      case Pool::kMean:
+        // Summed in double: the mean of many tokens should not depend on their order.
+        for (size_t j = 0; j < d; ++j) {
+          double sum = 0.0;
+          for (size_t t = 0; t < length; ++t) sum += seq[t * d + j];
+          p[j] = static_cast<float>(sum / static_cast<double>(length));
+        }
+        break;
+    }
+  }
+  Project(e, classifier_, ws.out.data(), sequences, output);
+}
+
+void Transformer::Forward(const Exec& e, Workspace& ws, const int32_t* tokens, size_t sequences,
+                          size_t length, float* output, Routes* routes) const {
+  if (sequences == 0 || length == 0) {
+    if (routes) routes->layers.clear();
+    return;
+  }
+  RunBlocks(e, ws, tokens, sequences, length, 0, nullptr, routes);
+  Head(e, ws, sequences, length, output);
+}
+
+void Transformer::Append(const Exec& e, Workspace& ws, KvCache& cache, const int32_t* tokens,
+                         size_t count, float* logits) const {
+  if (count == 0) return;
+  RunBlocks(e, ws, tokens, 1, count, cache.length, &cache, nullptr);
+  cache.length += count;
+  if (logits == nullptr) return;
+  // Only the last token's logits are wanted: normalise and project that row alone.
+  const float* last = ws.x.data() + (count - 1) * d_;
+  NormRows(e, final_norm_, last, 1, ws.normed.data());
+  Project(e, lm_head_, nullptr, ws.normed.data(), 1, logits);
+}
+
+}  // namespace sprig::transformer
