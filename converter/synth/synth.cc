@@ -9,13 +9,6 @@
 namespace sprig::convert {
 namespace {
 
-uint64_t SplitMix(uint64_t& x) {
-  uint64_t z = (x += 0x9e3779b97f4a7c15ull);
-  z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ull;
-  z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
-  return z ^ (z >> 31);
-}
-
 bool EndsWith(const std::string& s, const char* suffix) {
   const size_t n = std::strlen(suffix);
   return s.size() >= n && s.compare(s.size() - n, n, suffix) == 0;
@@ -36,40 +29,6 @@ float ScaleFor(const TensorSpec& t) {
 }
 
 }  // namespace
-
-Random::Random(uint64_t seed) {
-  uint64_t x = seed;
-  for (uint64_t& s : s_) s = SplitMix(x);
-}
-
-uint64_t Random::Next() {
-  const auto rotl = [](uint64_t v, int k) { return (v << k) | (v >> (64 - k)); };
-  const uint64_t result = rotl(s_[1] * 5, 7) * 9;
-  const uint64_t t = s_[1] << 17;
-  s_[2] ^= s_[0];
-  s_[3] ^= s_[1];
-  s_[1] ^= s_[2];
-  s_[0] ^= s_[3];
-  s_[2] ^= t;
-  s_[3] = rotl(s_[3], 45);
-  return result;
-}
-
-double Random::Uniform() { return static_cast<double>(Next() >> 11) * 0x1.0p-53; }
-
-float Random::Normal() {
-  if (has_spare_) {
-    has_spare_ = false;
-    return spare_;
-  }
-  double u1 = Uniform();
-  while (u1 <= 0.0) u1 = Uniform();
-  const double u2 = Uniform();
-  const double r = std::sqrt(-2.0 * std::log(u1));
-  spare_ = static_cast<float>(r * std::sin(2.0 * M_PI * u2));
-  has_spare_ = true;
-  return static_cast<float>(r * std::cos(2.0 * M_PI * u2));
-}
 
 std::vector<io::NdArray> SynthesizeWeights(const ModelConfig& config, uint64_t seed) {
   std::vector<io::NdArray> out;

@@ -11,24 +11,14 @@
 #include <vector>
 
 #include "converter/io/ndarray.h"
+#include "numeric/random.h"
 #include "sprig/config.h"
 
 namespace sprig::convert {
 
 std::vector<io::NdArray> SynthesizeWeights(const ModelConfig& config, uint64_t seed);
 
-// A small deterministic generator (xoshiro256** seeded by splitmix64), also used by tests.
-class Random {
- public:
-  explicit Random(uint64_t seed);
-  uint64_t Next();
-  double Uniform();  // [0, 1)
-  float Normal();    // standard normal (Box-Muller)
-
- private:
-  uint64_t s_[4];
-  bool has_spare_ = false;
-  float spare_ = 0;
-};
+// The deterministic generator synth uses, also used by tests and benchmarks.
+using Random = numeric::Random;
 
 }  // namespace sprig::convert

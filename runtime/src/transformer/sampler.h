@@ -6,20 +6,11 @@
 #include <cstdint>
 #include <vector>
 
+#include "numeric/random.h"
+
 namespace sprig::transformer {
 
-// xoshiro256** (Blackman and Vigna), seeded through splitmix64 so that any 64-bit seed,
-// including 0, gives a well-mixed state. Not for cryptography.
-class Random {
- public:
-  explicit Random(uint64_t seed);
-  uint64_t Next();
-  // Uniform in [0, 1), 53 random bits.
-  double Uniform();
-
- private:
-  uint64_t s_[4];
-};
+using Random = numeric::Random;
 
 struct SamplerOptions {
   float temperature = 1.0f;  // 0: greedy
