@@ -2,6 +2,7 @@
 #include <gtest/gtest.h>
 
 #include <filesystem>
+#include <nlohmann/json.hpp>
 
 #include "support/test_util.h"
 
@@ -104,6 +105,45 @@ TEST_F(PackCli, RenameMapServesOtherNames) {
                    " -o " + Quote(dir_.File("a.sprig")) + " --rename " +
                    Quote(dir_.File("map.json")));
   EXPECT_EQ(r.exit_code, 0) << r.output;
+}
+
+TEST_F(PackCli, SynthIsDeterministicAndRoutesSpread) {
+  const std::string again = dir_.File("again.npz"), other = dir_.File("other.npz");
+  ASSERT_EQ(testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " + Quote(again))
+                .exit_code,
+            0);
+  ASSERT_EQ(testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " +
+                         Quote(other) + " --seed 2")
+                .exit_code,
+            0);
+  EXPECT_EQ(testing::ReadFile(again), testing::ReadFile(weights_));
+  EXPECT_NE(testing::ReadFile(other), testing::ReadFile(weights_));
+
+  // Synthesized routing nodes split unit-normal rows across the leaves: a depth-5 tree over
+  // 2,000 rows uses nearly all 32 leaves with an entropy near log2(32).
+  const std::string config = dir_.File("deep.json");
+  testing::WriteFile(config, R"({"family":"stack","input_dim":32,"layers":[
+    {"kind":"tree","mode":"leaf","depth":5,"leaf_width":4,"activation":"relu","out":8}]})");
+  ASSERT_EQ(testing::Run(testing::SprigCli() + " synth " + Quote(config) + " -o " +
+                         Quote(dir_.File("deep.npz")))
+                .exit_code,
+            0);
+  ASSERT_EQ(testing::Run(testing::SprigCli() + " pack " + Quote(config) + " " +
+                         Quote(dir_.File("deep.npz")) + " -o " + Quote(dir_.File("deep.sprig")))
+                .exit_code,
+            0);
+  auto py = testing::RunPython(
+      "import sys, numpy as np\n"
+      "np.save(sys.argv[1], np.random.default_rng(0).standard_normal((2000, 32)).astype(np.float32))\n",
+      {dir_.File("x.npy")});
+  ASSERT_EQ(py.exit_code, 0) << py.output;
+  auto r = testing::Run(testing::SprigCli() + " routes " + Quote(dir_.File("deep.sprig")) +
+                        " --input " + Quote(dir_.File("x.npy")) + " --json");
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  const auto j = nlohmann::json::parse(r.output.substr(r.output.find('{')));
+  const auto& layer = j["layers"][0];
+  EXPECT_GT(layer["entropy_bits"].get<double>(), 0.85 * 5.0) << r.output;
+  EXPECT_LE(layer["dead"].get<int>(), 1) << r.output;
 }
 
 }  // namespace
