@@ -23,7 +23,7 @@ namespace {
 
 using format::kPageSize;
 
-constexpr const char* kProducer = "sprig 0.1.0";
+constexpr const char* kProducer = "sprig " SPRIG_VERSION;
 
 struct Checksums {
   std::vector<uint32_t> hot;                 // per planned tensor

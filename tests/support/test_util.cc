@@ -50,8 +50,9 @@ std::string SprigCli() { return SPRIG_CLI_PATH; }
 std::string Python() { return "/usr/bin/python3"; }
 
 CommandResult RunPython(const std::string& script, const std::vector<std::string>& args) {
-  std::string cmd = "PYTHONPATH=" + Quote(std::string(SPRIG_SOURCE_DIR) + "/converter/python") +
-                    " " + Python() + " -c " + Quote(script);
+  std::string cmd = "PYTHONPATH=";
+  cmd += Quote(std::string(SPRIG_SOURCE_DIR) + "/converter/python");
+  cmd += " " + Python() + " -c " + Quote(script);
   for (const auto& a : args) cmd += " " + Quote(a);
   return Run(cmd);
 }

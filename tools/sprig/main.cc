@@ -15,7 +15,7 @@ int main(int argc, char** argv) {
       "sprig runs tree-routed and expert-routed feed-forward models on laptop CPUs.\n"
       "Run 'sprig VERB --help' for a verb's options."};
   app.require_subcommand(1);
-  app.set_version_flag("--version", "sprig 0.1.0");
+  app.set_version_flag("--version", "sprig " SPRIG_VERSION);
   std::vector<sprig::cli::Verb> verbs = {
       sprig::cli::AddPack(app),
       sprig::cli::AddInspect(app),

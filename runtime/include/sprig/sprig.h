@@ -1,0 +1,173 @@
+/* sprig.h: the C interface to sprig, for programs in C and in languages that call C.
+ *
+ * It is a thin layer over the C++ API (sprig/model.h, sprig/session.h) and gives the same
+ * results bit for bit. The header is plain C (C99 or later) and C++.
+ *
+ * Handles. sprig_model_t is an opened .sprig file; sprig_session_t is the per-thread state that
+ * runs it. Both are opaque; create them with sprig_model_open / sprig_session_create and release
+ * them with sprig_model_close / sprig_session_destroy (either accepts NULL). A session keeps its
+ * model alive: the model handle may be closed while sessions made from it are still in use.
+ *
+ * Thread-safety. A model is immutable: any number of threads may call the sprig_model_*
+ * functions and create sessions from one model at the same time, without locking (closing it
+ * must not race with other calls on the same handle). A session is not thread-safe: call a
+ * session's functions from one thread at a time; use one session per thread.
+ *
+ * Errors. Every call that can fail returns an int status: SPRIG_OK (0) or one of the SPRIG_*
+ * codes below. It also takes `char** errptr`, which may be NULL. On failure, when errptr is not
+ * NULL, *errptr receives a NUL-terminated message for a person (one sentence naming the file,
+ * argument or value at fault), allocated with malloc; free it with sprig_free. Any message
+ * *errptr already held is freed first, so one variable can serve many calls; it must therefore
+ * start out NULL. On success *errptr is left as it was. A NULL handle or a NULL array that must
+ * hold data is SPRIG_INVALID_ARGUMENT, never a crash. No C++ exception leaves these functions;
+ * an unexpected one (such as running out of memory) becomes SPRIG_INTERNAL.
+ *
+ * Arrays. The caller owns every array it passes; sprig reads inputs and writes outputs during
+ * the call and keeps no pointer to them afterwards. Output arrays must have room for the counts
+ * each function names.
+ */
+#ifndef SPRIG_SPRIG_H_
+#define SPRIG_SPRIG_H_
+
+#include <stddef.h>
+#include <stdint.h>
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+/* ---- status codes (the same kinds as sprig::Status::Code, in the same order) ---- */
+
+#define SPRIG_OK 0
+#define SPRIG_INVALID_ARGUMENT 1 /* the caller's input is malformed or inconsistent */
+#define SPRIG_NOT_FOUND 2        /* a file, tensor or field that must exist does not */
+#define SPRIG_CORRUPTION 3       /* a file's bytes do not match what its format promises */
+#define SPRIG_IO_ERROR 4         /* the operating system refused a read or a map */
+#define SPRIG_NOT_SUPPORTED 5    /* well-formed, but asks for something this build cannot do */
+#define SPRIG_CHECK_FAILED 6     /* a verification ran and found a mismatch */
+#define SPRIG_INTERNAL 7         /* an unexpected failure inside sprig, such as no memory */
+
+/* A short constant name for a status code ("invalid argument", ...); "unknown" for others.
+ * The string is static: do not free it. */
+const char* sprig_status_name(int code);
+
+/* Frees a string sprig allocated (an error message). NULL is allowed. */
+void sprig_free(void* ptr);
+
+/* The library's version, "MAJOR.MINOR.PATCH". The string is static: do not free it. */
+const char* sprig_version(void);
+
+/* ---- models ---- */
+
+typedef struct sprig_model_t sprig_model_t;
+
+#define SPRIG_FAMILY_STACK 1       /* float rows in, float rows out (sprig_session_forward) */
+#define SPRIG_FAMILY_TRANSFORMER 2 /* tokens in (sprig_session_forward_tokens, ..._generate) */
+
+/* Opens the .sprig file at `path`: maps it read-only and checks its header; no weight is read
+ * until inference touches it. On success *model receives a new handle. On failure *model is
+ * set to NULL and the code says why: SPRIG_NOT_FOUND for a missing file, SPRIG_CORRUPTION for
+ * damaged bytes, and so on, with a message naming the file. */
+int sprig_model_open(const char* path, sprig_model_t** model, char** errptr);
+
+/* Releases the handle. Sessions created from it stay valid. NULL is allowed. */
+void sprig_model_close(sprig_model_t* model);
+
+/* What the model's config says. Each returns 0 for a NULL model. */
+int sprig_model_family(const sprig_model_t* model);         /* SPRIG_FAMILY_STACK or _TRANSFORMER */
+size_t sprig_model_layer_count(const sprig_model_t* model); /* feed-forward layers/blocks */
+size_t sprig_model_input_dim(const sprig_model_t* model);   /* stack: floats per row */
+size_t sprig_model_vocab_size(const sprig_model_t* model);  /* transformer: tokens 0..n-1 */
+size_t sprig_model_max_seq(const sprig_model_t* model);     /* transformer: longest sequence */
+/* Floats per output row (stack), or per token or sequence (transformer: vocab_size logits for
+ * an lm head, one score per class for a classifier, d_model for no head). */
+size_t sprig_model_output_dim(const sprig_model_t* model);
+/* Floats sprig_session_forward_tokens writes for `batch` sequences of `length` tokens:
+ * batch × length × output_dim, or batch × output_dim for a classifier (one row per sequence).
+ * 0 for a stack model or a NULL model. */
+size_t sprig_model_tokens_output_size(const sprig_model_t* model, size_t batch, size_t length);
+
+/* Reads every weight and compares it with its stored checksum: SPRIG_OK, or SPRIG_CHECK_FAILED
+ * with a message naming the damaged tensors. May take a while on large files. */
+int sprig_model_verify_checksums(const sprig_model_t* model, char** errptr);
+
+/* ---- sessions ---- */
+
+typedef struct sprig_session_t sprig_session_t;
+
+/* Creates a session over `model` using up to `threads` threads per call, the calling thread
+ * included (0 means one per CPU; at most 256). The kernel instruction set is the fastest the
+ * CPU supports, or the one the SPRIG_KERNEL_PATH environment variable names. On failure
+ * *session is set to NULL. */
+int sprig_session_create(const sprig_model_t* model, size_t threads, sprig_session_t** session,
+                         char** errptr);
+
+/* Releases the session (and its reference to the model). NULL is allowed. */
+void sprig_session_destroy(sprig_session_t* session);
+
+/* Threads the session uses, and the kernel instruction set it runs ("avx2", ...; a static
+ * string). 0 and NULL for a NULL session. */
+size_t sprig_session_threads(const sprig_session_t* session);
+const char* sprig_session_kernel_path(const sprig_session_t* session);
+
+/* Stack models: `input` holds rows × input_dim floats (row-major); `output` receives
+ * rows × output_dim. A row's result does not depend on the thread count or on how rows are
+ * split into calls. SPRIG_INVALID_ARGUMENT for a transformer model or a non-finite input. */
+int sprig_session_forward(sprig_session_t* session, const float* input, size_t rows, float* output,
+                          char** errptr);
+
+/* Transformer models: runs `batch` sequences of `length` tokens (row-major [batch, length]),
+ * each independently from position 0; the KV cache is neither used nor changed. `output`
+ * receives sprig_model_tokens_output_size(model, batch, length) floats. SPRIG_INVALID_ARGUMENT
+ * for a stack model, length > max_seq or a token outside [0, vocab_size). */
+int sprig_session_forward_tokens(sprig_session_t* session, const int32_t* tokens, size_t batch,
+                                 size_t length, float* output, char** errptr);
+
+/* Causal transformer models with an lm head: runs `token` at the KV cache's next position
+ * (sprig_session_position), keeps its keys and values, and writes the vocab_size logits of the
+ * next token to `logits` (which may be NULL). SPRIG_INVALID_ARGUMENT when the cache is full
+ * (max_seq tokens), the token is out of range or the model is not a causal lm. */
+int sprig_session_append_token(sprig_session_t* session, int32_t token, float* logits,
+                               char** errptr);
+/* As sprig_session_append_token for `count` tokens in one batched pass; `logits` (may be NULL)
+ * receives the logits after the last of them. */
+int sprig_session_append_tokens(sprig_session_t* session, const int32_t* tokens, size_t count,
+                                float* logits, char** errptr);
+
+/* Empties the KV cache: the next token goes to position 0. NULL is allowed. */
+void sprig_session_reset(sprig_session_t* session);
+/* Tokens held in the KV cache; 0 for a NULL session. */
+size_t sprig_session_position(const sprig_session_t* session);
+
+/* How sprig_session_generate picks each token. Fill it with sprig_generate_options_default
+ * and change the fields you need. */
+typedef struct sprig_generate_options_t {
+  size_t count;      /* tokens to generate at most; default 64 */
+  float temperature; /* softmax temperature, finite and >= 0; 0 is greedy; default 1 */
+  float top_p;       /* nucleus sampling mass, in (0, 1]; default 1 (all tokens) */
+  uint64_t seed;     /* the same seed, model and prompt give the same tokens; default 1 */
+} sprig_generate_options_t;
+
+/* Sets every field to its default. NULL is allowed (does nothing). */
+void sprig_generate_options_default(sprig_generate_options_t* options);
+
+/* Called with each generated token as soon as it is chosen; return nonzero to continue and 0 to
+ * stop. `user` is the pointer given to sprig_session_generate. It must return normally (no
+ * longjmp or exception out of it) and must not call functions of the same session. */
+typedef int (*sprig_token_callback)(int32_t token, void* user);
+
+/* Resets the KV cache, runs `prompt` (prompt_len >= 1 tokens) through it, then samples up to
+ * options->count tokens (options NULL: the defaults), passing each to `callback`. Generation
+ * stops early when the callback returns 0 or once the cache holds max_seq tokens (the last
+ * token chosen is still passed; sprig_session_position then equals max_seq). Returns SPRIG_OK
+ * in all these cases; SPRIG_INVALID_ARGUMENT for an empty prompt, bad options, a NULL
+ * callback, or a model that cannot generate. */
+int sprig_session_generate(sprig_session_t* session, const int32_t* prompt, size_t prompt_len,
+                           const sprig_generate_options_t* options, sprig_token_callback callback,
+                           void* user, char** errptr);
+
+#ifdef __cplusplus
+} /* extern "C" */
+#endif
+
+#endif /* SPRIG_SPRIG_H_ */

@@ -1,0 +1,314 @@
+// The C interface (sprig/sprig.h) over sprig::Model and sprig::Session.
+//
+// Every entry point runs its body through Guard(), which turns a non-OK Status into its code
+// and message and any C++ exception into SPRIG_INTERNAL, so nothing but an int crosses into C.
+#include "sprig/sprig.h"
+
+#include <cstdlib>
+#include <cstring>
+#include <exception>
+#include <memory>
+#include <new>
+#include <string>
+#include <vector>
+
+#include "sprig/model.h"
+#include "sprig/session.h"
+
+// The handles are the C++ objects behind a plain struct, so C sees only a pointer type.
+struct sprig_model_t {
+  std::shared_ptr<const sprig::Model> model;
+};
+
+struct sprig_session_t {
+  std::unique_ptr<sprig::Session> session;
+};
+
+namespace sprig {
+namespace {
+
+// The C codes are Status::Code's values; a reordering there must not change the C ABI silently.
+static_assert(SPRIG_OK == static_cast<int>(Status::Code::kOk));
+static_assert(SPRIG_INVALID_ARGUMENT == static_cast<int>(Status::Code::kInvalidArgument));
+static_assert(SPRIG_NOT_FOUND == static_cast<int>(Status::Code::kNotFound));
+static_assert(SPRIG_CORRUPTION == static_cast<int>(Status::Code::kCorruption));
+static_assert(SPRIG_IO_ERROR == static_cast<int>(Status::Code::kIOError));
+static_assert(SPRIG_NOT_SUPPORTED == static_cast<int>(Status::Code::kNotSupported));
+static_assert(SPRIG_CHECK_FAILED == static_cast<int>(Status::Code::kCheckFailed));
+
+// Kept in step with project(VERSION) in the top-level CMakeLists.txt (a test compares them).
+constexpr const char* kVersion = SPRIG_VERSION;
+
+// Replaces *errptr (when there is one) with a malloc'd copy of `message`. If that allocation
+// fails the caller still gets the code; *errptr is then NULL.
+void SetError(char** errptr, const char* message) {
+  if (errptr == nullptr) return;
+  std::free(*errptr);
+  const size_t n = std::strlen(message) + 1;
+  *errptr = static_cast<char*>(std::malloc(n));
+  if (*errptr != nullptr) std::memcpy(*errptr, message, n);
+}
+
+int Report(const Status& status, char** errptr) {
+  if (status.ok()) return SPRIG_OK;
+  SetError(errptr, status.message().c_str());
+  return static_cast<int>(status.code());
+}
+
+// Runs `body` (returning a Status) and reports its outcome in C terms.
+template <typename Body>
+int Guard(char** errptr, Body&& body) noexcept {
+  try {
+    return Report(body(), errptr);
+  } catch (const std::bad_alloc&) {
+    SetError(errptr, "sprig ran out of memory");
+  } catch (const std::exception& e) {
+    // Building the message allocates too; if that fails the code must still get out.
+    try {
+      SetError(errptr, (std::string("internal error in sprig: ") + e.what()).c_str());
+    } catch (...) {
+      SetError(errptr, "internal error in sprig");
+    }
+  } catch (...) {
+    SetError(errptr, "internal error in sprig: an unknown exception");
+  }
+  return SPRIG_INTERNAL;
+}
+
+// The error for a NULL argument `what` given to `function`.
+Status Null(const char* function, const char* what) {
+  return Status::InvalidArgument(std::string(function) + " was given a NULL " + what);
+}
+
+// A NULL data pointer is only acceptable when the array it stands for is empty.
+bool MissingArray(const void* data, size_t count) {
+  return data == nullptr && count > 0;
+}
+
+// Floats forward_tokens writes; a classifier pools each sequence into one row of scores.
+size_t TokensOutputSize(const ModelConfig& c, size_t batch, size_t length) {
+  const size_t rows = c.head.kind == HeadKind::kClassifier ? batch : batch * length;
+  return rows * c.output_dim();
+}
+
+}  // namespace
+}  // namespace sprig
+
+using sprig::Guard;
+using sprig::Null;
+using sprig::Status;
+
+extern "C" {
+
+const char* sprig_status_name(int code) {
+  switch (code) {
+    case SPRIG_OK:
+      return "ok";
+    case SPRIG_INVALID_ARGUMENT:
+      return "invalid argument";
+    case SPRIG_NOT_FOUND:
+      return "not found";
+    case SPRIG_CORRUPTION:
+      return "corruption";
+    case SPRIG_IO_ERROR:
+      return "I/O error";
+    case SPRIG_NOT_SUPPORTED:
+      return "not supported";
+    case SPRIG_CHECK_FAILED:
+      return "check failed";
+    case SPRIG_INTERNAL:
+      return "internal error";
+    default:
+      return "unknown";
+  }
+}
+
+void sprig_free(void* ptr) {
+  std::free(ptr);
+}
+
+const char* sprig_version(void) {
+  return sprig::kVersion;
+}
+
+// ---- models ----
+
+int sprig_model_open(const char* path, sprig_model_t** model, char** errptr) {
+  if (model != nullptr) *model = nullptr;
+  return Guard(errptr, [&]() -> Status {
+    if (model == nullptr) return Null("sprig_model_open", "model out-parameter");
+    if (path == nullptr) return Null("sprig_model_open", "path");
+    auto opened = sprig::Model::open(path);
+    if (!opened.ok()) return opened.status();
+    *model = new sprig_model_t{std::move(*opened)};
+    return Status::Ok();
+  });
+}
+
+void sprig_model_close(sprig_model_t* model) {
+  delete model;
+}
+
+int sprig_model_family(const sprig_model_t* model) {
+  if (model == nullptr) return 0;
+  return model->model->config().family == sprig::Family::kStack ? SPRIG_FAMILY_STACK
+                                                                : SPRIG_FAMILY_TRANSFORMER;
+}
+
+size_t sprig_model_layer_count(const sprig_model_t* model) {
+  return model == nullptr ? 0 : model->model->config().layers.size();
+}
+
+size_t sprig_model_input_dim(const sprig_model_t* model) {
+  if (model == nullptr) return 0;
+  const sprig::ModelConfig& c = model->model->config();
+  return c.family == sprig::Family::kStack ? c.input_dim : 0;
+}
+
+size_t sprig_model_vocab_size(const sprig_model_t* model) {
+  if (model == nullptr) return 0;
+  const sprig::ModelConfig& c = model->model->config();
+  return c.family == sprig::Family::kTransformer ? c.vocab_size : 0;
+}
+
+size_t sprig_model_max_seq(const sprig_model_t* model) {
+  if (model == nullptr) return 0;
+  const sprig::ModelConfig& c = model->model->config();
+  return c.family == sprig::Family::kTransformer ? c.max_seq : 0;
+}
+
+size_t sprig_model_output_dim(const sprig_model_t* model) {
+  return model == nullptr ? 0 : model->model->config().output_dim();
+}
+
+size_t sprig_model_tokens_output_size(const sprig_model_t* model, size_t batch, size_t length) {
+  if (model == nullptr) return 0;
+  const sprig::ModelConfig& c = model->model->config();
+  return c.family == sprig::Family::kTransformer ? sprig::TokensOutputSize(c, batch, length) : 0;
+}
+
+int sprig_model_verify_checksums(const sprig_model_t* model, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    if (model == nullptr) return Null("sprig_model_verify_checksums", "model");
+    return model->model->verify_checksums();
+  });
+}
+
+// ---- sessions ----
+
+int sprig_session_create(const sprig_model_t* model, size_t threads, sprig_session_t** session,
+                         char** errptr) {
+  if (session != nullptr) *session = nullptr;
+  return Guard(errptr, [&]() -> Status {
+    if (session == nullptr) return Null("sprig_session_create", "session out-parameter");
+    if (model == nullptr) return Null("sprig_session_create", "model");
+    sprig::SessionOptions options;
+    options.threads = threads;
+    // The session holds its own reference, so the model handle may be closed before it.
+    auto created = sprig::Session::create(model->model, options);
+    if (!created.ok()) return created.status();
+    *session = new sprig_session_t{std::move(*created)};
+    return Status::Ok();
+  });
+}
+
+void sprig_session_destroy(sprig_session_t* session) {
+  delete session;
+}
+
+size_t sprig_session_threads(const sprig_session_t* session) {
+  return session == nullptr ? 0 : session->session->threads();
+}
+
+const char* sprig_session_kernel_path(const sprig_session_t* session) {
+  return session == nullptr ? nullptr : session->session->kernel_path();
+}
+
+int sprig_session_forward(sprig_session_t* session, const float* input, size_t rows, float* output,
+                          char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_session_forward";
+    if (session == nullptr) return Null(f, "session");
+    // The row widths are known only for a stack; Session::forward refuses a transformer.
+    const sprig::ModelConfig& c = session->session->model().config();
+    if (c.family == sprig::Family::kStack) {
+      if (sprig::MissingArray(input, rows * c.input_dim)) return Null(f, "input");
+      if (sprig::MissingArray(output, rows * c.output_dim())) return Null(f, "output");
+    }
+    return session->session->forward(input, rows, output);
+  });
+}
+
+int sprig_session_forward_tokens(sprig_session_t* session, const int32_t* tokens, size_t batch,
+                                 size_t length, float* output, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_session_forward_tokens";
+    if (session == nullptr) return Null(f, "session");
+    const sprig::ModelConfig& c = session->session->model().config();
+    if (c.family == sprig::Family::kTransformer) {
+      if (sprig::MissingArray(tokens, batch * length)) return Null(f, "tokens");
+      const size_t n = sprig::TokensOutputSize(c, batch, length);
+      if (sprig::MissingArray(output, n)) return Null(f, "output");
+    }
+    return session->session->forward_tokens(tokens, batch, length, output);
+  });
+}
+
+int sprig_session_append_token(sprig_session_t* session, int32_t token, float* logits,
+                               char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    if (session == nullptr) return Null("sprig_session_append_token", "session");
+    return session->session->append_token(token, logits);
+  });
+}
+
+int sprig_session_append_tokens(sprig_session_t* session, const int32_t* tokens, size_t count,
+                                float* logits, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_session_append_tokens";
+    if (session == nullptr) return Null(f, "session");
+    if (sprig::MissingArray(tokens, count)) return Null(f, "tokens");
+    return session->session->append_tokens(tokens, count, logits);
+  });
+}
+
+void sprig_session_reset(sprig_session_t* session) {
+  if (session != nullptr) session->session->reset();
+}
+
+size_t sprig_session_position(const sprig_session_t* session) {
+  return session == nullptr ? 0 : session->session->position();
+}
+
+void sprig_generate_options_default(sprig_generate_options_t* options) {
+  if (options == nullptr) return;
+  // The C++ defaults are the single source of truth.
+  const sprig::GenerateOptions d;
+  options->count = d.count;
+  options->temperature = d.temperature;
+  options->top_p = d.top_p;
+  options->seed = d.seed;
+}
+
+int sprig_session_generate(sprig_session_t* session, const int32_t* prompt, size_t prompt_len,
+                           const sprig_generate_options_t* options, sprig_token_callback callback,
+                           void* user, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_session_generate";
+    if (session == nullptr) return Null(f, "session");
+    if (callback == nullptr) return Null(f, "callback");
+    if (sprig::MissingArray(prompt, prompt_len)) return Null(f, "prompt");
+    sprig::GenerateOptions o;
+    if (options != nullptr) {
+      o.count = options->count;
+      o.temperature = options->temperature;
+      o.top_p = options->top_p;
+      o.seed = options->seed;
+    }
+    const std::vector<int32_t> tokens(prompt, prompt + prompt_len);
+    return session->session->generate(tokens, o,
+                                      [&](int32_t token) { return callback(token, user) != 0; });
+  });
+}
+
+}  // extern "C"
