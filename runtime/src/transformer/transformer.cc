@@ -31,12 +31,27 @@ void RowToFloat(const kernels::KernelTable& k, const MatrixView& m, uint64_t row
 // y[rows, out] = x[rows, in] W^T + b. One row uses the matrix-vector kernel; batches are split
 // between threads in multiples of kRowChunk, so a row's result does not depend on the thread
 // count (see layers/bind.h).
+// A matrix-vector product is split between threads only when each gets at least this many
+// output rows; below that the hand-off costs more than it saves.
+constexpr size_t kMinRowsPerThread = 128;
+
 void Project(const Exec& e, const MatrixView& w, const float* bias, const float* x, size_t rows,
              float* y) {
   const size_t out = w.rows, in = w.cols;
   if (e.single_row || rows == 1) {
+    // One token: split the output rows between threads instead. Each output is its own dot
+    // product, computed the same way whichever thread runs it, so results do not depend on
+    // the thread count.
+    const size_t parts = out >= 2 * kMinRowsPerThread ? e.threads() : 1;
+    const size_t per_part = (out + parts - 1) / parts;
     for (size_t r = 0; r < rows; ++r) {
-      kernels::Gemv(*e.k, w.type, w.data, x + r * in, bias, y + r * out, out, in);
+      e.ParallelFor(parts, [&](size_t p, layers::Scratch&) {
+        const size_t o0 = p * per_part;
+        if (o0 >= out) return;
+        const size_t n = std::min(per_part, out - o0);
+        kernels::Gemv(*e.k, w.type, w.row(o0), x + r * in, bias ? bias + o0 : nullptr,
+                      y + r * out + o0, n, in);
+      });
     }
     return;
   }
