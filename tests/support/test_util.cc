@@ -52,8 +52,9 @@ std::string Python() { return "/usr/bin/python3"; }
 CommandResult RunPython(const std::string& script, const std::vector<std::string>& args) {
   std::string cmd = "PYTHONPATH=";
   cmd += Quote(std::string(SPRIG_SOURCE_DIR) + "/converter/python");
-  cmd += " " + Python() + " -c " + Quote(script);
-  for (const auto& a : args) cmd += " " + Quote(a);
+  // Appended piece by piece: GCC 12 warns (wrongly, -Wrestrict) on `" " + std::string`.
+  cmd.append(" ").append(Python()).append(" -c ").append(Quote(script));
+  for (const auto& a : args) cmd.append(" ").append(Quote(a));
   return Run(cmd);
 }
 
