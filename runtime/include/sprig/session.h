@@ -53,6 +53,20 @@ struct GenerateOptions {
   uint64_t seed = 1;
 };
 
+// What a session has done since it was created or since reset_stats(). Plain counters, read
+// with Session::stats(); times are wall-clock seconds inside the calls.
+struct SessionStats {
+  uint64_t forward_calls = 0;     // forward() and forward_tokens() calls that succeeded
+  uint64_t rows = 0;              // stack rows run by forward()
+  uint64_t sequence_tokens = 0;   // tokens run by forward_tokens()
+  uint64_t prefill_tokens = 0;    // tokens added to the KV cache by multi-token appends
+  uint64_t decode_tokens = 0;     // tokens added to the KV cache one at a time
+  uint64_t generated_tokens = 0;  // tokens handed to generate()'s callback
+  double forward_seconds = 0;     // in forward() and forward_tokens()
+  double prefill_seconds = 0;     // in multi-token appends
+  double decode_seconds = 0;      // in single-token appends
+};
+
 class Session {
  public:
   static Result<std::unique_ptr<Session>> create(std::shared_ptr<const Model> model,
@@ -86,6 +100,10 @@ class Session {
   Status append_tokens(const int32_t* tokens, size_t count, float* logits);
   // Empties the KV cache; the next token goes to position 0.
   void reset();
+
+  // Counters of the work done so far (see SessionStats); reset_stats() zeroes them.
+  const SessionStats& stats() const;
+  void reset_stats();
   // Tokens held in the KV cache.
   size_t position() const;
 

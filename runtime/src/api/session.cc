@@ -1,5 +1,6 @@
 #include "sprig/session.h"
 
+#include <chrono>
 #include <cmath>
 #include <cstdio>
 #include <cstring>
@@ -25,6 +26,10 @@ bool AllFinite(const float* x, size_t n) {
     bad |= static_cast<uint32_t>((bits & 0x7f800000u) == 0x7f800000u);
   }
   return bad == 0;
+}
+
+double SecondsSince(std::chrono::steady_clock::time_point start) {
+  return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
 }
 
 // A float as printf's %g writes it ("0.5", "1e-06").
@@ -57,6 +62,7 @@ struct Session::State {
   std::optional<transformer::Transformer> transformer;
   transformer::Workspace workspace;
   transformer::KvCache cache;
+  SessionStats stats;
 
   layers::Exec MakeExec(bool single_row) {
     layers::Exec exec;
@@ -118,6 +124,7 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
                                      std::to_string(i % in) + " is not a finite number");
     }
   }
+  const auto start = std::chrono::steady_clock::now();
   const layers::Exec exec = state_->MakeExec(rows == 1);
   if (routes) routes->layers.clear();
   const auto& net = model_->layers();
@@ -142,6 +149,9 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
     layer.Forward(exec, x, rows, y, route_out);
     x = y;
   }
+  state_->stats.forward_calls += 1;
+  state_->stats.rows += rows;
+  state_->stats.forward_seconds += SecondsSince(start);
   return Status::Ok();
 }
 
@@ -165,8 +175,12 @@ Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t lengt
     return Status::InvalidArgument("a classifier needs sequences of at least one token");
   }
   SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, batch * length, c.vocab_size));
+  const auto start = std::chrono::steady_clock::now();
   const layers::Exec exec = state_->MakeExec(batch * length == 1);
   state_->transformer->Forward(exec, state_->workspace, tokens, batch, length, output, routes);
+  state_->stats.forward_calls += 1;
+  state_->stats.sequence_tokens += batch * length;
+  state_->stats.forward_seconds += SecondsSince(start);
   return Status::Ok();
 }
 
@@ -194,8 +208,17 @@ Status Session::append_tokens(const int32_t* tokens, size_t count, float* logits
   }
   SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, count, c.vocab_size));
   if (count == 0) return Status::Ok();
+  const auto start = std::chrono::steady_clock::now();
   const layers::Exec exec = state_->MakeExec(count == 1);
   state_->transformer->Append(exec, state_->workspace, state_->cache, tokens, count, logits);
+  const double seconds = SecondsSince(start);
+  if (count == 1) {
+    state_->stats.decode_tokens += 1;
+    state_->stats.decode_seconds += seconds;
+  } else {
+    state_->stats.prefill_tokens += count;
+    state_->stats.prefill_seconds += seconds;
+  }
   return Status::Ok();
 }
 
@@ -206,6 +229,9 @@ Status Session::append_token(int32_t token, float* logits) {
 void Session::reset() {
   state_->cache.Clear();
 }
+
+const SessionStats& Session::stats() const { return state_->stats; }
+void Session::reset_stats() { state_->stats = SessionStats(); }
 
 size_t Session::position() const {
   return state_->cache.length;
@@ -234,6 +260,7 @@ Status Session::generate(const std::vector<int32_t>& prompt, const GenerateOptio
   for (size_t i = 0; i < options.count; ++i) {
     const int32_t token =
         transformer::Sample(logits.data(), logits.size(), sampler, rng, probabilities, order);
+    state_->stats.generated_tokens += 1;
     if (!on_token(token)) break;
     if (i + 1 == options.count || position() == c.max_seq) break;
     SPRIG_RETURN_IF_ERROR(append_token(token, logits.data()));
