@@ -183,15 +183,15 @@ void PrintSummary(const std::map<std::string, double>& us) {
                         {"experts_8x512_k2", "dense_4096", "blas_4096"}};
   std::printf("\nsummary: microseconds per row (1 thread, in = out = %zu, kernels %s)\n", kDim,
               kernels::ToString(kernels::ActiveKernels().path));
-  std::printf("%-18s %-11s %6s %10s %10s %10s %10s %10s\n", "routed", "dense", "batch",
-              "routed_us", "dense_us", "blas_us", "x_dense", "x_blas");
+  std::printf("%-18s %-11s %6s %10s %10s %10s %10s %10s\n", "routed", "dense", "batch", "routed_us",
+              "dense_us", "blas_us", "x_dense", "x_blas");
   for (const Pair& p : pairs) {
     for (int batch : {1, 16, 128}) {
       const double r = get(std::string("layer/") + p.routed, batch);
       const double d = get(std::string("layer/") + p.dense, batch);
       const double b = get(p.blas, batch);
-      std::printf("%-18s %-11s %6d %10.3f %10.3f %10.3f %9.1fx %9.1fx\n", p.routed, p.dense,
-                  batch, r, d, b, r > 0 ? d / r : 0.0, r > 0 && b > 0 ? b / r : 0.0);
+      std::printf("%-18s %-11s %6d %10.3f %10.3f %10.3f %9.1fx %9.1fx\n", p.routed, p.dense, batch,
+                  r, d, b, r > 0 ? d / r : 0.0, r > 0 && b > 0 ? b / r : 0.0);
     }
   }
   std::printf("\nengine dense vs OpenBLAS (ratio of times; 1.0 = equal)\n");
@@ -211,12 +211,18 @@ int main(int argc, char** argv) {
   using namespace sprig::bench;
   for (const Case& c : Cases()) {
     benchmark::RegisterBenchmark(("layer/" + c.name).c_str(), BM_Layer, c)
-        ->Arg(1)->Arg(16)->Arg(128)->Unit(benchmark::kMicrosecond);
+        ->Arg(1)
+        ->Arg(16)
+        ->Arg(128)
+        ->Unit(benchmark::kMicrosecond);
   }
 #ifdef SPRIG_HAVE_BLAS
   for (size_t w : {3072, 4095, 4096}) {
     benchmark::RegisterBenchmark(("blas_" + std::to_string(w)).c_str(), BM_Blas, w)
-        ->Arg(1)->Arg(16)->Arg(128)->Unit(benchmark::kMicrosecond);
+        ->Arg(1)
+        ->Arg(16)
+        ->Arg(128)
+        ->Unit(benchmark::kMicrosecond);
   }
 #endif
   benchmark::Initialize(&argc, argv);

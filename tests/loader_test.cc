@@ -46,8 +46,8 @@ class LoaderTest : public ::testing::Test {
 
   // Rewrites the preamble with `edit` applied, keeping its checksum valid.
   std::string WithPreamble(const std::function<void(format::Preamble&)>& edit) {
-    auto p = format::DecodePreamble(reinterpret_cast<const uint8_t*>(bytes_.data()),
-                                    bytes_.size(), bytes_.size(), "m");
+    auto p = format::DecodePreamble(reinterpret_cast<const uint8_t*>(bytes_.data()), bytes_.size(),
+                                    bytes_.size(), "m");
     EXPECT_TRUE(p.ok());
     format::Preamble pre = *p;
     edit(pre);
@@ -62,7 +62,9 @@ class LoaderTest : public ::testing::Test {
   std::string bytes_;
 };
 
-TEST_F(LoaderTest, OpensTheValidFile) { EXPECT_EQ(OpenBytes(bytes_), ""); }
+TEST_F(LoaderTest, OpensTheValidFile) {
+  EXPECT_EQ(OpenBytes(bytes_), "");
+}
 
 TEST_F(LoaderTest, MissingFileIsNamed) {
   auto m = Model::open(dir_.File("nope.sprig"));
@@ -91,8 +93,8 @@ TEST_F(LoaderTest, NewerVersionIsRefusedClearly) {
 }
 
 TEST_F(LoaderTest, HeaderOutsideTheFile) {
-  std::string msg = OpenBytes(
-      WithPreamble([&](format::Preamble& p) { p.header_size = bytes_.size(); }));
+  std::string msg =
+      OpenBytes(WithPreamble([&](format::Preamble& p) { p.header_size = bytes_.size(); }));
   EXPECT_NE(msg.find("outside the file"), std::string::npos) << msg;
   msg = OpenBytes(WithPreamble([](format::Preamble& p) { p.header_offset = ~uint64_t{0} - 8; }));
   EXPECT_NE(msg.find("outside the file"), std::string::npos) << msg;

@@ -20,8 +20,8 @@ class PackCli : public ::testing::Test {
     config_ = dir_.File("config.json");
     weights_ = dir_.File("w.npz");
     testing::WriteFile(config_, kConfig);
-    auto r = testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " +
-                          Quote(weights_));
+    auto r =
+        testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " + Quote(weights_));
     ASSERT_EQ(r.exit_code, 0) << r.output;
   }
   testing::CommandResult Pack(const std::string& out, const std::string& extra = "") {
@@ -101,9 +101,8 @@ TEST_F(PackCli, RenameMapServesOtherNames) {
                         " -o " + Quote(dir_.File("a.sprig")));
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_NE(r.output.find("--rename"), std::string::npos) << r.output;
-  r = testing::Run(testing::SprigCli() + " pack " + Quote(config_) + " " + Quote(renamed) +
-                   " -o " + Quote(dir_.File("a.sprig")) + " --rename " +
-                   Quote(dir_.File("map.json")));
+  r = testing::Run(testing::SprigCli() + " pack " + Quote(config_) + " " + Quote(renamed) + " -o " +
+                   Quote(dir_.File("a.sprig")) + " --rename " + Quote(dir_.File("map.json")));
   EXPECT_EQ(r.exit_code, 0) << r.output;
 }
 
@@ -112,8 +111,8 @@ TEST_F(PackCli, SynthIsDeterministicAndRoutesSpread) {
   ASSERT_EQ(testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " + Quote(again))
                 .exit_code,
             0);
-  ASSERT_EQ(testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " +
-                         Quote(other) + " --seed 2")
+  ASSERT_EQ(testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " + Quote(other) +
+                         " --seed 2")
                 .exit_code,
             0);
   EXPECT_EQ(testing::ReadFile(again), testing::ReadFile(weights_));
@@ -134,7 +133,8 @@ TEST_F(PackCli, SynthIsDeterministicAndRoutesSpread) {
             0);
   auto py = testing::RunPython(
       "import sys, numpy as np\n"
-      "np.save(sys.argv[1], np.random.default_rng(0).standard_normal((2000, 32)).astype(np.float32))\n",
+      "np.save(sys.argv[1], np.random.default_rng(0).standard_normal((2000, "
+      "32)).astype(np.float32))\n",
       {dir_.File("x.npy")});
   ASSERT_EQ(py.exit_code, 0) << py.output;
   auto r = testing::Run(testing::SprigCli() + " routes " + Quote(dir_.File("deep.sprig")) +

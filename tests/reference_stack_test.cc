@@ -23,23 +23,28 @@ std::vector<std::string> Layers() {
     for (const char* gated : {"false", "true"}) {
       v.push_back(std::string(R"({"kind":"dense","width":24,"activation":")") + a +
                   R"(","gated":)" + gated + "}");
-      v.push_back(std::string(R"({"kind":"tree","mode":"leaf","depth":4,"leaf_width":6,"activation":")") +
-                  a + R"(","gated":)" + gated + "}");
-      v.push_back(std::string(R"({"kind":"experts","experts":5,"top_k":2,"width":7,"activation":")") +
-                  a + R"(","gated":)" + gated + "}");
+      v.push_back(
+          std::string(R"({"kind":"tree","mode":"leaf","depth":4,"leaf_width":6,"activation":")") +
+          a + R"(","gated":)" + gated + "}");
+      v.push_back(
+          std::string(R"({"kind":"experts","experts":5,"top_k":2,"width":7,"activation":")") + a +
+          R"(","gated":)" + gated + "}");
     }
-    v.push_back(std::string(R"({"kind":"tree","mode":"path","depth":6,"activation":")") + a + "\"}");
+    v.push_back(std::string(R"({"kind":"tree","mode":"path","depth":6,"activation":")") + a +
+                "\"}");
   }
   v.push_back(R"({"kind":"dense","width":9,"activation":"relu","bias":false})");
   v.push_back(R"({"kind":"tree","mode":"leaf","depth":0,"leaf_width":5,"activation":"gelu"})");
-  v.push_back(R"({"kind":"tree","mode":"leaf","depth":1,"leaf_width":3,"activation":"relu","bias":false})");
+  v.push_back(
+      R"({"kind":"tree","mode":"leaf","depth":1,"leaf_width":3,"activation":"relu","bias":false})");
   v.push_back(R"({"kind":"tree","mode":"leaf","depth":7,"leaf_width":2,"activation":"silu"})");
   v.push_back(R"({"kind":"tree","mode":"path","depth":0,"activation":"relu"})");
   v.push_back(R"({"kind":"tree","mode":"path","depth":2,"activation":"gelu","bias":false})");
   v.push_back(R"({"kind":"tree","mode":"path","depth":9,"activation":"gelu_tanh"})");
   v.push_back(R"({"kind":"experts","experts":1,"top_k":1,"width":4,"activation":"relu"})");
   v.push_back(R"({"kind":"experts","experts":6,"top_k":6,"width":4,"activation":"gelu"})");
-  v.push_back(R"({"kind":"experts","experts":8,"top_k":3,"width":4,"activation":"silu","renormalize":false,"bias":false})");
+  v.push_back(
+      R"({"kind":"experts","experts":8,"top_k":3,"width":4,"activation":"silu","renormalize":false,"bias":false})");
   return v;
 }
 
@@ -65,10 +70,10 @@ TEST_P(ReferenceStack, MatchesPyTorch) {
   testing::TempDir dir;
   testing::WriteFile(dir.File("c.json"), config);
   const std::string src = SPRIG_SOURCE_DIR;
-  auto r = testing::Run("PYTHONPATH=" + Quote(src + "/converter/python") + " " +
-                        testing::Python() + " -m sprig_torch.export --config " +
-                        Quote(dir.File("c.json")) + " --seed " + std::to_string(11 + i) +
-                        " --rows 150 --out " + Quote(dir.File("ref")));
+  auto r =
+      testing::Run("PYTHONPATH=" + Quote(src + "/converter/python") + " " + testing::Python() +
+                   " -m sprig_torch.export --config " + Quote(dir.File("c.json")) + " --seed " +
+                   std::to_string(11 + i) + " --rows 150 --out " + Quote(dir.File("ref")));
   ASSERT_EQ(r.exit_code, 0) << config << "\n" << r.output;
   const std::string cli = testing::SprigCli();
   const std::string model = dir.File("m.sprig");

@@ -62,8 +62,8 @@ TEST(SessionStats, SeparatesPrefillDecodeAndGeneration) {
   const SessionStats& s = (*session)->stats();
   EXPECT_EQ(s.forward_calls, 1u);
   EXPECT_EQ(s.sequence_tokens, 5u);
-  EXPECT_EQ(s.prefill_tokens, 5u);   // the prompt, in one pass
-  EXPECT_EQ(s.decode_tokens, 5u);    // every generated token but the last is fed back
+  EXPECT_EQ(s.prefill_tokens, 5u);  // the prompt, in one pass
+  EXPECT_EQ(s.decode_tokens, 5u);   // every generated token but the last is fed back
   EXPECT_EQ(s.generated_tokens, 6u);
   EXPECT_EQ(seen, 6u);
 }

@@ -33,15 +33,16 @@ uint64_t TightPlacement(uint64_t start, uint64_t b, uint64_t count, std::vector<
 }
 
 bool EndsWith(const std::string& s, const std::string& suffix) {
-  return s.size() >= suffix.size() && s.compare(s.size() - suffix.size(), suffix.size(), suffix) == 0;
+  return s.size() >= suffix.size() &&
+         s.compare(s.size() - suffix.size(), suffix.size(), suffix) == 0;
 }
 
 }  // namespace
 
 DType StoredType(const TensorSpec& spec, DType requested) {
   const std::string& n = spec.name;
-  const bool norm = EndsWith(n, "norm.weight") || EndsWith(n, "norm1.weight") ||
-                    EndsWith(n, "norm2.weight");
+  const bool norm =
+      EndsWith(n, "norm.weight") || EndsWith(n, "norm1.weight") || EndsWith(n, "norm2.weight");
   if (EndsWith(n, "bias") || norm) return DType::kF32;
   return requested;
 }
@@ -58,8 +59,8 @@ uint64_t PlaceRecords(uint64_t start, uint64_t b, uint64_t count, std::vector<ui
   return pos;
 }
 
-LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& specs,
-                      DType dtype, uint64_t data_start) {
+LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& specs, DType dtype,
+                      uint64_t data_start) {
   LayoutPlan plan;
   plan.data_start = data_start;
   // Record sets first (they decide which rows stay hot), one per routed layer.
@@ -118,8 +119,8 @@ LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& 
     rs.record_size = AlignUp(rs.record_size, kPartAlignment);
     const uint64_t rows = plan.tensors[rs.tensors.front()].rows;
     const uint64_t count = format::RecordCount(rs.map, rows);
-    PlannedSection sec{"records.layer" + std::to_string(rs.layer), true, pos, 0, 0,
-                       static_cast<int>(rs.layer)};
+    PlannedSection sec{
+        "records.layer" + std::to_string(rs.layer), true, pos, 0, 0, static_cast<int>(rs.layer)};
     const uint64_t end = PlaceRecords(pos, rs.record_size, count, &rs.offsets);
     uint64_t used = 0;
     for (size_t ti : rs.tensors) used += plan.tensors[ti].part_size * count;

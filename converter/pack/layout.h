@@ -63,8 +63,8 @@ DType StoredType(const TensorSpec& spec, DType requested);
 
 // Plans the data of `specs` (in the order given) starting at `data_start`, storing each tensor
 // as StoredType(spec, dtype).
-LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& specs,
-                      DType dtype, uint64_t data_start);
+LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& specs, DType dtype,
+                      uint64_t data_start);
 
 // Offsets for `count` records of `record_size` bytes starting at page-aligned `start`;
 // returns the end. See the file comment for the rule.

@@ -5,10 +5,10 @@
 
 #include <chrono>
 #include <condition_variable>
+#include <cstring>
 #include <deque>
 #include <mutex>
 #include <thread>
-#include <cstring>
 
 #include "converter/io/atomic_file.h"
 #include "converter/io/tensor_archive.h"
@@ -26,7 +26,7 @@ using format::kPageSize;
 constexpr const char* kProducer = "sprig " SPRIG_VERSION;
 
 struct Checksums {
-  std::vector<uint32_t> hot;                 // per planned tensor
+  std::vector<uint32_t> hot;                   // per planned tensor
   std::vector<std::vector<uint32_t>> records;  // per record set, per record
 };
 
@@ -41,9 +41,9 @@ std::vector<uint8_t> BuildHeader(const ModelConfig& config, const LayoutPlan& pl
   auto producer = b.CreateString(kProducer);
   std::vector<flatbuffers::Offset<fb::Section>> sections;
   for (const PlannedSection& s : plan.sections) {
-    sections.push_back(fb::CreateSection(b, b.CreateString(s.name),
-                                         s.records ? fb::SectionKind::Records : fb::SectionKind::Hot,
-                                         s.offset, s.size, s.padding, s.layer));
+    sections.push_back(fb::CreateSection(
+        b, b.CreateString(s.name), s.records ? fb::SectionKind::Records : fb::SectionKind::Hot,
+        s.offset, s.size, s.padding, s.layer));
   }
   auto sections_vec = b.CreateVector(sections);
   std::vector<flatbuffers::Offset<fb::Tensor>> tensors;
@@ -69,8 +69,7 @@ std::vector<uint8_t> BuildHeader(const ModelConfig& config, const LayoutPlan& pl
         rs.map.rows_per_record, rs.map.hot_levels, rs.map.chunk_levels, rs.record_size, refs_vec));
   }
   auto sets_vec = b.CreateVector(sets);
-  auto header =
-      fb::CreateHeader(b, cfg, json, producer, sections_vec, tensors_vec, sets_vec);
+  auto header = fb::CreateHeader(b, cfg, json, producer, sections_vec, tensors_vec, sets_vec);
   fb::FinishHeaderBuffer(b, header);
   return std::vector<uint8_t>(b.GetBufferPointer(), b.GetBufferPointer() + b.GetSize());
 }
@@ -271,8 +270,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
     crc.records.emplace_back(rs.offsets.size());
   }
   const size_t header_size = BuildHeader(config, plan, crc).size();
-  const uint64_t data_start =
-      format::AlignUp(format::kPreambleSize + header_size, kPageSize);
+  const uint64_t data_start = format::AlignUp(format::kPreambleSize + header_size, kPageSize);
   plan = PlanLayout(config, specs, options.dtype, data_start);
   spdlog::debug("pack {}: header {} bytes, data from offset {}, file {} bytes", out_path,
                 header_size, data_start, plan.file_size);
@@ -313,8 +311,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
   SPRIG_RETURN_IF_ERROR(file.WriteAt(0, pre_bytes, sizeof(pre_bytes)));
   SPRIG_RETURN_IF_ERROR(file.Commit());
   summary.file_size = pre.file_size;
-  summary.seconds =
-      std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  summary.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   return summary;
 }
 
@@ -331,8 +328,7 @@ Result<PackSummary> PackFiles(const std::string& config_path, const std::string&
                          MatchTensors(config, archive, options.rename));
   SPRIG_ASSIGN_OR_RETURN(PackSummary summary, PackTensors(config, matched, out_path, options));
   // Report the whole job: reading and checking the inputs included.
-  summary.seconds =
-      std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  summary.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   return summary;
 }
 

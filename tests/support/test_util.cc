@@ -46,8 +46,12 @@ CommandResult Run(const std::string& command_line) {
   return r;
 }
 
-std::string SprigCli() { return SPRIG_CLI_PATH; }
-std::string Python() { return "/usr/bin/python3"; }
+std::string SprigCli() {
+  return SPRIG_CLI_PATH;
+}
+std::string Python() {
+  return "/usr/bin/python3";
+}
 
 CommandResult RunPython(const std::string& script, const std::vector<std::string>& args) {
   std::string cmd = "PYTHONPATH=";

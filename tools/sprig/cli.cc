@@ -61,8 +61,7 @@ void Progress::Update(uint64_t done, uint64_t total) {
   const double pct = total ? 100.0 * static_cast<double>(done) / static_cast<double>(total) : 100;
   const double rate = static_cast<double>(done) / elapsed / (1024.0 * 1024.0);
   std::fprintf(stderr, "%s%s: %5.1f%%  %s of %s  %.0f MiB/s%s", tty_ ? "\r" : "", label_.c_str(),
-               pct, HumanBytes(done).c_str(), HumanBytes(total).c_str(), rate,
-               tty_ ? "   " : "\n");
+               pct, HumanBytes(done).c_str(), HumanBytes(total).c_str(), rate, tty_ ? "   " : "\n");
   std::fflush(stderr);
 }
 

@@ -22,28 +22,25 @@ struct GenerateArgs {
   size_t threads = 1;
 };
 
-int RunGenerate(const GenerateArgs &a) {
+int RunGenerate(const GenerateArgs& a) {
   auto model = Model::open(a.model);
-  if (!model.ok())
-    return Fail("generate", model.status());
-  const ModelConfig &c = (*model)->config();
+  if (!model.ok()) return Fail("generate", model.status());
+  const ModelConfig& c = (*model)->config();
   if (c.family != Family::kTransformer || c.tokenizer != Tokenizer::kByte) {
     return Fail("generate",
-                Status::InvalidArgument(
-                    a.model + " has tokenizer '" + ToString(c.tokenizer) +
-                    "'; generate needs a transformer with the byte tokenizer"));
+                Status::InvalidArgument(a.model + " has tokenizer '" + ToString(c.tokenizer) +
+                                        "'; generate needs a transformer with the byte tokenizer"));
   }
   SessionOptions options;
   options.threads = a.threads;
   auto session = Session::create(*model, options);
-  if (!session.ok())
-    return Fail("generate", session.status());
+  if (!session.ok()) return Fail("generate", session.status());
   std::vector<int32_t> prompt;
-  for (unsigned char ch : a.prompt)
-    prompt.push_back(ch);
-  std::fprintf(stderr, "caution: generated text comes from a model; it can be "
-                       "wrong and must not be "
-                       "relied upon.\n");
+  for (unsigned char ch : a.prompt) prompt.push_back(ch);
+  std::fprintf(stderr,
+               "caution: generated text comes from a model; it can be "
+               "wrong and must not be "
+               "relied upon.\n");
   size_t generated = 0;
   Status s = (*session)->generate(prompt, a.options, [&](int32_t token) {
     const unsigned char byte = static_cast<unsigned char>(token);
@@ -52,11 +49,9 @@ int RunGenerate(const GenerateArgs &a) {
     ++generated;
     return true;
   });
-  if (isatty(fileno(stdout)))
-    std::fputc('\n', stdout);
+  if (isatty(fileno(stdout))) std::fputc('\n', stdout);
   std::fflush(stdout);
-  if (!s.ok())
-    return Fail("generate", s);
+  if (!s.ok()) return Fail("generate", s);
   if ((*session)->position() >= c.max_seq && generated < a.options.count) {
     std::fprintf(stderr,
                  "note: stopped after %zu tokens: the model's context (max_seq "
@@ -66,22 +61,18 @@ int RunGenerate(const GenerateArgs &a) {
   return kExitOk;
 }
 
-} // namespace
+}  // namespace
 
-Verb AddGenerate(CLI::App &app) {
+Verb AddGenerate(CLI::App& app) {
   auto args = std::make_shared<GenerateArgs>();
-  CLI::App *c = app.add_subcommand(
-      "generate",
-      "Continue a text prompt with a byte-tokenizer transformer model.");
+  CLI::App* c = app.add_subcommand(
+      "generate", "Continue a text prompt with a byte-tokenizer transformer model.");
   c->add_option("MODEL", args->model, "the .sprig file")->required();
-  c->add_option("--prompt", args->prompt,
-                "the text to continue (its UTF-8 bytes are the tokens)")
+  c->add_option("--prompt", args->prompt, "the text to continue (its UTF-8 bytes are the tokens)")
       ->required();
-  c->add_option("--count", args->options.count,
-                "tokens (bytes) to generate at most")
+  c->add_option("--count", args->options.count, "tokens (bytes) to generate at most")
       ->capture_default_str();
-  c->add_option("--seed", args->options.seed,
-                "seed of the sampler: the same seed, the same text")
+  c->add_option("--seed", args->options.seed, "seed of the sampler: the same seed, the same text")
       ->capture_default_str();
   c->add_option("--temperature", args->options.temperature,
                 "softmax temperature; 0 always picks the most probable byte")
@@ -92,10 +83,9 @@ Verb AddGenerate(CLI::App &app) {
                 "sum to this")
       ->capture_default_str()
       ->check(CLI::Range(0.0f, 1.0f));
-  c->add_option("--threads", args->threads, "threads (0: one per CPU)")
-      ->capture_default_str();
+  c->add_option("--threads", args->threads, "threads (0: one per CPU)")->capture_default_str();
   c->footer("Generated text can be wrong; do not rely on it.");
   return {c, [args] { return RunGenerate(*args); }};
 }
 
-} // namespace sprig::cli
+}  // namespace sprig::cli

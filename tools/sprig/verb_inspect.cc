@@ -33,8 +33,7 @@ std::string Describe(const LayerConfig& l) {
       }
       break;
     case LayerKind::kExperts:
-      std::snprintf(buf, sizeof(buf), " %u experts, top %u, width %u", l.experts, l.top_k,
-                    l.width);
+      std::snprintf(buf, sizeof(buf), " %u experts, top %u, width %u", l.experts, l.top_k, l.width);
       break;
   }
   s += buf;
@@ -111,10 +110,11 @@ void PrintHuman(const format::ModelFile& f, bool list_tensors) {
     std::printf("  family       stack: %u inputs -> %u outputs, %zu layers\n", c.input_dim,
                 c.output_dim(), c.layers.size());
   } else {
-    std::printf("  family       transformer: %zu blocks, d_model %u, %u heads (%u kv), vocab %u, "
-                "max_seq %u, %s, %s positions, head %s\n",
-                c.layers.size(), c.d_model, c.n_heads, c.n_kv_heads, c.vocab_size, c.max_seq,
-                ToString(c.norm), ToString(c.positions), ToString(c.head.kind));
+    std::printf(
+        "  family       transformer: %zu blocks, d_model %u, %u heads (%u kv), vocab %u, "
+        "max_seq %u, %s, %s positions, head %s\n",
+        c.layers.size(), c.d_model, c.n_heads, c.n_kv_heads, c.vocab_size, c.max_seq,
+        ToString(c.norm), ToString(c.positions), ToString(c.head.kind));
   }
   std::printf("  file         %s (header %s)\n\n", HumanBytes(f.file_size()).c_str(),
               HumanBytes(f.header_size()).c_str());
@@ -131,10 +131,9 @@ void PrintHuman(const format::ModelFile& f, bool list_tensors) {
               "saving");
   for (size_t i = 0; i < c.layers.size(); ++i) {
     const LayerCost cost = CostOf(c.layers[i]);
-    const double ratio = cost.flops_per_token
-                             ? static_cast<double>(cost.dense_flops_per_token) /
-                                   static_cast<double>(cost.flops_per_token)
-                             : 0.0;
+    const double ratio = cost.flops_per_token ? static_cast<double>(cost.dense_flops_per_token) /
+                                                    static_cast<double>(cost.flops_per_token)
+                                              : 0.0;
     std::printf("  %-3zu %-44s %10s %10s %12s %8.1fx\n", i, Describe(c.layers[i]).c_str(),
                 HumanCount(cost.params).c_str(), HumanCount(cost.flops_per_token).c_str(),
                 HumanCount(cost.dense_flops_per_token).c_str(), ratio);
@@ -193,8 +192,9 @@ Verb AddInspect(CLI::App& app) {
   CLI::App* c = app.add_subcommand(
       "inspect", "Show a .sprig file's config, sections, sizes and per-layer FLOPs per token.");
   c->add_option("MODEL", args->model, "the .sprig file")->required();
-  c->add_flag("--check", args->check, "verify every checksum (reads the whole file); exit 1 on a "
-                                      "mismatch");
+  c->add_flag("--check", args->check,
+              "verify every checksum (reads the whole file); exit 1 on a "
+              "mismatch");
   c->add_flag("--json", args->json, "print JSON instead of tables");
   c->add_flag("--tensors", args->tensors, "also list every tensor");
   return {c, [args] { return RunInspect(*args); }};

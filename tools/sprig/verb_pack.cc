@@ -38,10 +38,9 @@ int RunPack(const PackArgs& a) {
   const double mbps = summary->seconds > 0
                           ? static_cast<double>(summary->input_bytes) / summary->seconds / 1e6
                           : 0.0;
-  std::printf("wrote %s: %s (%s of %s tensor data) in %.2f s, %.0f MB/s of input\n",
-              a.out.c_str(), HumanBytes(summary->file_size).c_str(),
-              HumanBytes(summary->tensor_bytes).c_str(), a.dtype.c_str(), summary->seconds,
-              mbps);
+  std::printf("wrote %s: %s (%s of %s tensor data) in %.2f s, %.0f MB/s of input\n", a.out.c_str(),
+              HumanBytes(summary->file_size).c_str(), HumanBytes(summary->tensor_bytes).c_str(),
+              a.dtype.c_str(), summary->seconds, mbps);
   return kExitOk;
 }
 

@@ -26,23 +26,23 @@ enum class DType : uint8_t { kF32, kF16, kBF16, kI8 };
 // One feed-forward entry of `layers`.
 struct LayerConfig {
   LayerKind kind = LayerKind::kDense;
-  TreeMode mode = TreeMode::kLeaf;   // tree only
-  uint32_t width = 0;                // dense and experts: hidden units (per expert)
-  uint32_t depth = 0;                // tree only
-  uint32_t leaf_width = 0;           // tree, leaf mode: hidden units per leaf
-  uint32_t experts = 0;              // experts only
-  uint32_t top_k = 0;                // experts only
-  bool renormalize = true;           // experts only
+  TreeMode mode = TreeMode::kLeaf;  // tree only
+  uint32_t width = 0;               // dense and experts: hidden units (per expert)
+  uint32_t depth = 0;               // tree only
+  uint32_t leaf_width = 0;          // tree, leaf mode: hidden units per leaf
+  uint32_t experts = 0;             // experts only
+  uint32_t top_k = 0;               // experts only
+  bool renormalize = true;          // experts only
   Activation activation = Activation::kRelu;
-  bool gated = false;                // dense, tree leaf, experts
-  bool bias = true;                  // false: the layer has no bias tensors (all biases zero)
-  uint32_t in = 0;                   // input width (d_model in a transformer)
-  uint32_t out = 0;                  // output width (d_model in a transformer)
+  bool gated = false;  // dense, tree leaf, experts
+  bool bias = true;    // false: the layer has no bias tensors (all biases zero)
+  uint32_t in = 0;     // input width (d_model in a transformer)
+  uint32_t out = 0;    // output width (d_model in a transformer)
 };
 
 struct HeadConfig {
   HeadKind kind = HeadKind::kNone;
-  uint32_t classes = 0;  // classifier only
+  uint32_t classes = 0;     // classifier only
   Pool pool = Pool::kMean;  // classifier only
 };
 

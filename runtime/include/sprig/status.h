@@ -28,7 +28,9 @@ class Status {
 
   Status() = default;
   static Status Ok() { return Status(); }
-  static Status InvalidArgument(std::string m) { return Status(Code::kInvalidArgument, std::move(m)); }
+  static Status InvalidArgument(std::string m) {
+    return Status(Code::kInvalidArgument, std::move(m));
+  }
   static Status NotFound(std::string m) { return Status(Code::kNotFound, std::move(m)); }
   static Status Corruption(std::string m) { return Status(Code::kCorruption, std::move(m)); }
   static Status IOError(std::string m) { return Status(Code::kIOError, std::move(m)); }
@@ -76,9 +78,9 @@ class Result {
 }  // namespace sprig
 
 // Internal helpers for propagating failures; not part of the stable API.
-#define SPRIG_RETURN_IF_ERROR(expr)        \
-  do {                                     \
-    ::sprig::Status sprig_status_ = (expr); \
+#define SPRIG_RETURN_IF_ERROR(expr)                \
+  do {                                             \
+    ::sprig::Status sprig_status_ = (expr);        \
     if (!sprig_status_.ok()) return sprig_status_; \
   } while (0)
 

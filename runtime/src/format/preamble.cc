@@ -27,9 +27,8 @@ uint64_t GetU64(const uint8_t* p) {
 }
 
 // Byte offsets of the preamble's fields (schema/README.md).
-constexpr size_t kOffVersion = 8, kOffPreambleSize = 12, kOffHeaderOffset = 16,
-                 kOffHeaderSize = 24, kOffFileSize = 32, kOffHeaderCrc = 40, kOffBom = 44,
-                 kOffPreambleCrc = 60;
+constexpr size_t kOffVersion = 8, kOffPreambleSize = 12, kOffHeaderOffset = 16, kOffHeaderSize = 24,
+                 kOffFileSize = 32, kOffHeaderCrc = 40, kOffBom = 44, kOffPreambleCrc = 60;
 
 }  // namespace
 
@@ -45,7 +44,9 @@ uint32_t Crc32Extend(uint32_t crc, const void* data, size_t size) {
   return crc;
 }
 
-uint32_t Crc32(const void* data, size_t size) { return Crc32Extend(0, data, size); }
+uint32_t Crc32(const void* data, size_t size) {
+  return Crc32Extend(0, data, size);
+}
 
 void EncodePreamble(const Preamble& p, uint8_t out[kPreambleSize]) {
   std::memset(out, 0, kPreambleSize);
@@ -64,12 +65,14 @@ Result<Preamble> DecodePreamble(const uint8_t* b, uint64_t available, uint64_t a
                                 const char* source) {
   const std::string src = source;
   if (std::endian::native != std::endian::little) {
-    return Status::NotSupported(src + ": this build runs on a big-endian CPU, and .sprig files "
-                                      "are little-endian; big-endian hosts are not supported");
+    return Status::NotSupported(src +
+                                ": this build runs on a big-endian CPU, and .sprig files "
+                                "are little-endian; big-endian hosts are not supported");
   }
   if (available < sizeof(kMagic) || std::memcmp(b, kMagic, sizeof(kMagic)) != 0) {
-    return Status::Corruption(src + " is not a .sprig file (its first 8 bytes are not the "
-                                    "sprig magic \"SPRIG\\0\\r\\n\")");
+    return Status::Corruption(src +
+                              " is not a .sprig file (its first 8 bytes are not the "
+                              "sprig magic \"SPRIG\\0\\r\\n\")");
   }
   if (available < kPreambleSize) {
     return Status::Corruption(src + " is truncated: it ends inside the 64-byte preamble (" +
@@ -86,8 +89,9 @@ Result<Preamble> DecodePreamble(const uint8_t* b, uint64_t available, uint64_t a
     return Status::Corruption(src + ": the preamble's format version is 0, which is not valid");
   }
   if (GetU32(b + kOffPreambleCrc) != Crc32(b, kOffPreambleCrc)) {
-    return Status::Corruption(src + ": the preamble's checksum does not match (the file is "
-                                    "damaged)");
+    return Status::Corruption(src +
+                              ": the preamble's checksum does not match (the file is "
+                              "damaged)");
   }
   if (GetU32(b + kOffBom) != kByteOrderMark) {
     return Status::Corruption(src + ": the preamble's byte-order mark is not 0x01020304");

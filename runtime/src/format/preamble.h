@@ -36,6 +36,8 @@ Result<Preamble> DecodePreamble(const uint8_t* bytes, uint64_t available, uint64
 uint32_t Crc32(const void* data, size_t size);
 uint32_t Crc32Extend(uint32_t crc, const void* data, size_t size);
 
-inline uint64_t AlignUp(uint64_t v, uint64_t a) { return (v + a - 1) / a * a; }
+inline uint64_t AlignUp(uint64_t v, uint64_t a) {
+  return (v + a - 1) / a * a;
+}
 
 }  // namespace sprig::format

@@ -6,7 +6,9 @@ namespace sprig::format {
 namespace {
 
 // Level of 0-based breadth-first node n: floor(log2(n + 1)).
-uint32_t LevelOf(uint64_t n) { return static_cast<uint32_t>(std::bit_width(n + 1) - 1); }
+uint32_t LevelOf(uint64_t n) {
+  return static_cast<uint32_t>(std::bit_width(n + 1) - 1);
+}
 
 }  // namespace
 

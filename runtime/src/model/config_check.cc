@@ -41,8 +41,7 @@ Status CheckLayer(const LayerConfig& l, const std::string& where) {
       }
       if (l.top_k == 0 || l.top_k > l.experts) {
         return Status::InvalidArgument(where + ".top_k is " + std::to_string(l.top_k) +
-                                       ", expected 1..experts (" + std::to_string(l.experts) +
-                                       ")");
+                                       ", expected 1..experts (" + std::to_string(l.experts) + ")");
       }
       return CheckDim(l.width, where + ".width");
   }
@@ -59,15 +58,17 @@ Status CheckSizes(const ModelConfig& c, const std::string& source) {
       n *= d;
       if (n > kMaxTensorElements) {
         return Status::InvalidArgument(source + ": tensor " + t.name + " " +
-                                       ShapeToString(t.shape) + " would hold more than 2^36 "
-                                                                "elements, the limit");
+                                       ShapeToString(t.shape) +
+                                       " would hold more than 2^36 "
+                                       "elements, the limit");
       }
     }
     total += n;
   }
   if (total > kMaxTotalElements) {
-    return Status::InvalidArgument(source + ": the model would hold more than 2^38 weights, "
-                                            "the limit");
+    return Status::InvalidArgument(source +
+                                   ": the model would hold more than 2^38 weights, "
+                                   "the limit");
   }
   return Status::Ok();
 }
@@ -80,8 +81,8 @@ Status CheckTransformer(const ModelConfig& c, const std::string& s) {
   SPRIG_RETURN_IF_ERROR(CheckDim(c.max_seq, s + ": max_seq"));
   if (c.d_model % c.n_heads != 0) {
     return Status::InvalidArgument(s + ": d_model (" + std::to_string(c.d_model) +
-                                   ") must be a multiple of n_heads (" +
-                                   std::to_string(c.n_heads) + ")");
+                                   ") must be a multiple of n_heads (" + std::to_string(c.n_heads) +
+                                   ")");
   }
   if (c.n_heads % c.n_kv_heads != 0) {
     return Status::InvalidArgument(s + ": n_heads (" + std::to_string(c.n_heads) +
@@ -89,8 +90,9 @@ Status CheckTransformer(const ModelConfig& c, const std::string& s) {
                                    std::to_string(c.n_kv_heads) + ")");
   }
   if (c.positions == Positions::kRope && (c.d_model / c.n_heads) % 2 != 0) {
-    return Status::InvalidArgument(s + ": rope positions need an even head_dim (d_model / "
-                                       "n_heads), got " +
+    return Status::InvalidArgument(s +
+                                   ": rope positions need an even head_dim (d_model / "
+                                   "n_heads), got " +
                                    std::to_string(c.d_model / c.n_heads));
   }
   if (!(c.norm_eps > 0.0f) || !(c.rope_base > 0.0f)) {

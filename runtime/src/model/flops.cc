@@ -28,7 +28,8 @@ LayerCost CostOf(const LayerConfig& l) {
     case LayerKind::kTree:
       if (l.mode == TreeMode::kLeaf) {
         const uint64_t leaves = uint64_t{1} << l.depth;
-        c.params = (leaves - 1) * (in + 1) + leaves * MlpParams(l.leaf_width, in, out, l.gated, l.bias);
+        c.params =
+            (leaves - 1) * (in + 1) + leaves * MlpParams(l.leaf_width, in, out, l.gated, l.bias);
         c.flops_per_token = 2 * l.depth * in + MlpFlops(l.leaf_width, in, out, l.gated);
         c.dense_width = leaves * l.leaf_width;
         c.dense_flops_per_token = MlpFlops(c.dense_width, in, out, l.gated);

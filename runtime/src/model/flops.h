@@ -9,9 +9,9 @@
 namespace sprig {
 
 struct LayerCost {
-  uint64_t params = 0;               // weights and biases of the layer
-  uint64_t flops_per_token = 0;      // what one token actually costs
-  uint64_t dense_width = 0;          // hidden units of the dense layer with equal units
+  uint64_t params = 0;                 // weights and biases of the layer
+  uint64_t flops_per_token = 0;        // what one token actually costs
+  uint64_t dense_width = 0;            // hidden units of the dense layer with equal units
   uint64_t dense_flops_per_token = 0;  // that dense layer's cost per token
 };
 
@@ -19,9 +19,9 @@ LayerCost CostOf(const LayerConfig& layer);
 
 struct ModelCost {
   uint64_t params = 0;
-  uint64_t ffn_flops = 0;         // feed-forward layers, per token
-  uint64_t ffn_dense_flops = 0;   // the same layers made dense, per token
-  uint64_t other_flops = 0;       // attention projections and head, per token (transformer)
+  uint64_t ffn_flops = 0;        // feed-forward layers, per token
+  uint64_t ffn_dense_flops = 0;  // the same layers made dense, per token
+  uint64_t other_flops = 0;      // attention projections and head, per token (transformer)
 };
 
 // Attention's score and value products grow with the sequence; they are counted for a token at

@@ -27,7 +27,8 @@ std::string LayerPrefix(const ModelConfig& config, size_t i);
 std::vector<TensorSpec> ExpectedTensors(const ModelConfig& config);
 
 // Tensors of one feed-forward layer, names prefixed with `prefix`.
-std::vector<TensorSpec> LayerTensors(const LayerConfig& layer, const std::string& prefix, int index);
+std::vector<TensorSpec> LayerTensors(const LayerConfig& layer, const std::string& prefix,
+                                     int index);
 
 // Number of elements of a shape (1 for a scalar). Shapes are validated to stay far below 2^63.
 uint64_t ElementCount(const std::vector<uint64_t>& shape);

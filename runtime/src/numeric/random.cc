@@ -13,7 +13,9 @@ uint64_t SplitMix64(uint64_t& state) {
   return z ^ (z >> 31);
 }
 
-uint64_t Rotl(uint64_t x, int k) { return (x << k) | (x >> (64 - k)); }
+uint64_t Rotl(uint64_t x, int k) {
+  return (x << k) | (x >> (64 - k));
+}
 
 }  // namespace
 
@@ -33,7 +35,9 @@ uint64_t Random::Next() {
   return result;
 }
 
-double Random::Uniform() { return static_cast<double>(Next() >> 11) * 0x1.0p-53; }
+double Random::Uniform() {
+  return static_cast<double>(Next() >> 11) * 0x1.0p-53;
+}
 
 float Random::Normal() {
   if (has_spare_) {
