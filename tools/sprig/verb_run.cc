@@ -1,9 +1,11 @@
 // sprig run MODEL --input IN.npy --output OUT.npy [--routes R.npz] [--batch N] [--threads N]
+//           [--stats] [--cold]
 // sprig routes MODEL --input IN.npy [--json]
 //
 // Stack models take float rows [N, in]; transformer models take int32/int64 tokens [T] or
 // [B, T] (each of the B sequences runs independently from position 0).
 #include <algorithm>
+#include <chrono>
 #include <cmath>
 #include <cstdio>
 #include <cstring>
@@ -13,6 +15,7 @@
 #include "cli.h"
 #include "converter/io/tensor_archive.h"
 #include "layers/feed_forward.h"
+#include "sprig/memory.h"
 #include "sprig/session.h"
 
 namespace sprig::cli {
@@ -23,6 +26,8 @@ struct RunArgs {
   size_t batch = 64;
   size_t threads = 1;
   bool json = false;
+  bool stats = false;  // run: print memory and records touched to stderr afterwards
+  bool cold = false;   // run: drop the model file from the page cache first
 };
 
 // Reads float rows [N, in] (or one row [in]) from a .npy file as float32.
@@ -111,6 +116,10 @@ Result<std::vector<int32_t>> ReadTokens(const std::string& path, uint32_t vocab,
 }
 
 struct RunResult {
+  std::shared_ptr<const Model> model;
+  SessionStats stats;
+  double open_seconds = 0;        // Model::open
+  double first_call_seconds = 0;  // the first forward call, cold or warm
   std::vector<float> output;
   std::vector<uint64_t> shape;  // of output
   Routes routes;                // concatenated over batches
@@ -155,6 +164,7 @@ Result<RunResult> RunTransformer(const RunArgs& a, std::shared_ptr<const Model> 
   r.shape =
       per_token ? std::vector<uint64_t>{batch, length, width} : std::vector<uint64_t>{batch, width};
   r.output.resize(batch * per_sequence);
+  r.model = model;
   Progress progress("running " + a.model);
   for (size_t b0 = 0; b0 < batch; b0 += a.batch) {
     const size_t n = std::min(a.batch, batch - b0);
@@ -163,19 +173,30 @@ Result<RunResult> RunTransformer(const RunArgs& a, std::shared_ptr<const Model> 
                                                   r.output.data() + b0 * per_sequence,
                                                   want_routes ? &part : nullptr));
     if (want_routes) AppendRoutes(r.routes, std::move(part));
+    if (b0 == 0) r.first_call_seconds = session->stats().forward_seconds;
     progress.Update(b0 + n, batch);
   }
   progress.Finish();
+  r.stats = session->stats();
   r.summary = std::to_string(batch) + " sequences of " + std::to_string(length) + " tokens";
   return r;
 }
 
 Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
+  const auto start = std::chrono::steady_clock::now();
   SPRIG_ASSIGN_OR_RETURN(auto model, Model::open(a.model));
+  const double open_seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   const ModelConfig& c = model->config();
   if (a.batch == 0) return Status::InvalidArgument("--batch must be at least 1");
-  if (c.family == Family::kTransformer) return RunTransformer(a, model, want_routes);
+  if (c.family == Family::kTransformer) {
+    SPRIG_ASSIGN_OR_RETURN(RunResult r, RunTransformer(a, model, want_routes));
+    r.open_seconds = open_seconds;
+    return r;
+  }
   RunResult r;
+  r.open_seconds = open_seconds;
+  r.model = model;
   SPRIG_ASSIGN_OR_RETURN(std::vector<float> x, ReadRows(a.input, c.input_dim, &r.rows));
   SessionOptions options;
   options.threads = a.threads;
@@ -190,17 +211,60 @@ Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
                                            r.output.data() + r0 * out,
                                            want_routes ? &batch_routes : nullptr));
     if (want_routes) AppendRoutes(r.routes, std::move(batch_routes));
+    if (r0 == 0) r.first_call_seconds = session->stats().forward_seconds;
     progress.Update((r0 + n) * c.input_dim * 4, r.rows * c.input_dim * 4);
   }
   progress.Finish();
+  r.stats = session->stats();
   r.shape = {r.rows, out};
   r.summary = std::to_string(r.rows) + " rows";
   return r;
 }
 
+std::string Mib(uint64_t bytes) {
+  char buf[32];
+  std::snprintf(buf, sizeof(buf), "%.1f MiB", static_cast<double>(bytes) / (1024.0 * 1024.0));
+  return buf;
+}
+
+// --stats: what the run read and what it cost in memory, on stderr.
+void PrintRunStats(const RunResult& r, const ProcessMemory& before, const ProcessMemory& after) {
+  std::fprintf(stderr, "open %.3f ms, first call %.3f ms, all calls %.3f ms\n",
+               r.open_seconds * 1e3, r.first_call_seconds * 1e3, r.stats.forward_seconds * 1e3);
+  for (const LayerTouch& t : r.stats.touched) {
+    std::fprintf(stderr, "layer %zu: %llu of %llu records touched (%.1f%%), %s of %s\n", t.layer,
+                 static_cast<unsigned long long>(t.touched),
+                 static_cast<unsigned long long>(t.records),
+                 t.records ? 100.0 * static_cast<double>(t.touched) / t.records : 0.0,
+                 Mib(t.touched * t.record_size).c_str(), Mib(t.records * t.record_size).c_str());
+  }
+  // Page-cache residency: pages of the file in memory now, whoever read them.
+  const Residency res = r.model->residency();
+  for (const SectionResidency& s : res.sections) {
+    std::fprintf(stderr, "section %-12s %s of %s resident\n", s.name.c_str(),
+                 Mib(s.resident_bytes).c_str(), Mib(s.size).c_str());
+  }
+  std::fprintf(stderr, "resident: hot %s of %s, records %s of %s%s\n",
+               Mib(res.hot_resident).c_str(), Mib(res.hot_size).c_str(),
+               Mib(res.records_resident).c_str(), Mib(res.records_size).c_str(),
+               r.model->hot_locked() ? " (hot locked)" : "");
+  std::fprintf(stderr, "process rss %s (file %s, anonymous %s), peak %s\n",
+               Mib(after.rss).c_str(), Mib(after.rss_file).c_str(),
+               Mib(after.rss_anon).c_str(), Mib(after.peak_rss).c_str());
+  std::fprintf(stderr, "page faults during open and run: %llu major, %llu minor\n",
+               static_cast<unsigned long long>(after.major_faults - before.major_faults),
+               static_cast<unsigned long long>(after.minor_faults - before.minor_faults));
+}
+
 int RunRun(const RunArgs& a) {
+  if (a.cold) {
+    Status s = EvictFromPageCache(a.model);
+    if (!s.ok()) return Fail("run", s);
+  }
+  const ProcessMemory before = ReadProcessMemory();
   auto r = RunModel(a, !a.routes.empty());
   if (!r.ok()) return Fail("run", r.status());
+  const ProcessMemory after = ReadProcessMemory();
   std::vector<uint8_t> bytes(r->output.size() * 4);
   std::memcpy(bytes.data(), r->output.data(), bytes.size());
   Status s = io::WriteNpy(
@@ -223,6 +287,7 @@ int RunRun(const RunArgs& a) {
   std::fprintf(stderr, "ran %s -> %s %s%s\n", r->summary.c_str(), a.output.c_str(),
                ShapeText(r->shape).c_str(),
                a.routes.empty() ? "" : (", routes -> " + a.routes).c_str());
+  if (a.stats) PrintRunStats(*r, before, after);
   return kExitOk;
 }
 
@@ -352,6 +417,11 @@ Verb AddRun(CLI::App& app) {
       ->required();
   c->add_option("--routes", args->routes,
                 "also write each routed layer's choices to this .npz (layer{i}: int32)");
+  c->add_flag("--stats", args->stats,
+              "afterwards print to stderr the records each routed layer touched, how much of "
+              "the file is resident, process memory and page faults");
+  c->add_flag("--cold", args->cold,
+              "drop the model file from the page cache first (only pages no process maps)");
   c->footer("Outputs are whatever the model computes; a model's predictions can be wrong.");
   return {c, [args] { return RunRun(*args); }};
 }

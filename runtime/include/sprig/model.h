@@ -23,10 +23,37 @@ namespace layers {
 class FeedForward;
 }
 
+// How open maps the file. Open reads only the header whatever these say; they are hints to
+// the kernel, and none of them failing makes open fail.
 struct OpenOptions {
   // Tell the kernel that record sections are read at random, so it does not read neighbouring
-  // leaves ahead of use. Default: true.
+  // leaves ahead of use (MADV_RANDOM). Default: true.
   bool advise_random_records = true;
+  // Ask the kernel to start reading the hot section (routing nodes, dense layers) in the
+  // background (MADV_WILLNEED); open does not wait for it. Default: true.
+  bool warm_hot = true;
+  // Lock the hot section in memory (mlock), so it is never paged out. This reads the hot
+  // section during open and needs RLIMIT_MEMLOCK to allow it; if it fails the model still
+  // opens and hot_locked() says false. Default: false.
+  bool lock_hot = false;
+};
+
+// How much of one section of the file is in memory right now.
+struct SectionResidency {
+  std::string name;
+  bool records = false;  // false: the hot section
+  int layer = -1;        // the layer a record section belongs to; -1 for the hot section
+  uint64_t size = 0;
+  uint64_t resident_bytes = 0;
+};
+
+// The file's sections and how much of each is in the page cache (mincore(2), whole pages), plus
+// totals. Pages count whether this process touched them or not; they stay after use until the
+// kernel reclaims them.
+struct Residency {
+  std::vector<SectionResidency> sections;
+  uint64_t hot_size = 0, hot_resident = 0;
+  uint64_t records_size = 0, records_resident = 0;
 };
 
 class Model {
@@ -45,6 +72,12 @@ class Model {
   // Reads every weight and compares it with its stored checksum. Returns CheckFailed naming
   // the damaged tensors and records. Thread-safe; may take a while on large files.
   Status verify_checksums() const;
+
+  // Which parts of the file are in memory now (see Residency). Thread-safe; costs one mincore
+  // call per section and a byte per page.
+  Residency residency() const;
+  // True when OpenOptions::lock_hot was set and the hot section is locked in memory.
+  bool hot_locked() const;
 
   // The underlying file and bound layers, for sprig's own tools. Not part of the stable API.
   const format::ModelFile& file() const { return *file_; }

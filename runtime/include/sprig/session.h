@@ -53,6 +53,14 @@ struct GenerateOptions {
   uint64_t seed = 1;
 };
 
+// The records (leaves, experts or path-tree chunks) of one routed layer that a session has read.
+struct LayerTouch {
+  size_t layer = 0;
+  uint64_t records = 0;      // records the layer has
+  uint64_t touched = 0;      // distinct records read at least once
+  uint64_t record_size = 0;  // bytes of one record in the file
+};
+
 // What a session has done since it was created or since reset_stats(). Plain counters, read
 // with Session::stats(); times are wall-clock seconds inside the calls.
 struct SessionStats {
@@ -65,6 +73,9 @@ struct SessionStats {
   double forward_seconds = 0;     // in forward() and forward_tokens()
   double prefill_seconds = 0;     // in multi-token appends
   double decode_seconds = 0;      // in single-token appends
+  // One entry per layer with records, in layer order: how many distinct records the calls
+  // read. The same whatever the thread count or however rows were split into calls.
+  std::vector<LayerTouch> touched;
 };
 
 class Session {

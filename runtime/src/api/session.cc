@@ -1,5 +1,7 @@
 #include "sprig/session.h"
 
+#include <algorithm>
+#include <bit>
 #include <chrono>
 #include <cmath>
 #include <cstdio>
@@ -63,6 +65,7 @@ struct Session::State {
   transformer::Workspace workspace;
   transformer::KvCache cache;
   SessionStats stats;
+  layers::TouchLog touched;  // one bitset per model layer, sized at creation
 
   layers::Exec MakeExec(bool single_row) {
     layers::Exec exec;
@@ -70,6 +73,7 @@ struct Session::State {
     exec.pool = pool.get();
     exec.scratch = &scratch;
     exec.single_row = single_row;
+    exec.touched = &touched;
     return exec;
   }
 };
@@ -96,6 +100,9 @@ Result<std::unique_ptr<Session>> Session::create(std::shared_ptr<const Model> mo
   }
   if (threads > 1) state->pool = std::make_unique<layers::ThreadPool>(threads);
   state->scratch.resize(threads);
+  for (const auto& layer : model->layers()) {
+    state->touched.bits.emplace_back((layer->record_count() + 63) / 64, 0);
+  }
   if (model->config().family == Family::kTransformer) {
     SPRIG_ASSIGN_OR_RETURN(auto bound, transformer::Transformer::Bind(*model));
     state->transformer.emplace(std::move(bound));
@@ -230,8 +237,27 @@ void Session::reset() {
   state_->cache.Clear();
 }
 
-const SessionStats& Session::stats() const { return state_->stats; }
-void Session::reset_stats() { state_->stats = SessionStats(); }
+const SessionStats& Session::stats() const {
+  // Counted from the bitsets on demand, so forward calls only set bits.
+  SessionStats& s = state_->stats;
+  s.touched.clear();
+  const auto& net = model_->layers();
+  for (size_t i = 0; i < net.size(); ++i) {
+    if (net[i]->records() == nullptr) continue;
+    LayerTouch t;
+    t.layer = i;
+    t.records = net[i]->record_count();
+    t.record_size = net[i]->records()->record_size;
+    for (uint64_t word : state_->touched.bits[i]) t.touched += std::popcount(word);
+    s.touched.push_back(t);
+  }
+  return s;
+}
+
+void Session::reset_stats() {
+  state_->stats = SessionStats();
+  for (auto& bits : state_->touched.bits) std::fill(bits.begin(), bits.end(), 0);
+}
 
 size_t Session::position() const {
   return state_->cache.length;

@@ -5,6 +5,7 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <cerrno>
 #include <cstring>
 #include <map>
@@ -29,7 +30,36 @@ bool MulOk(uint64_t a, uint64_t b, uint64_t* out) { return !__builtin_mul_overfl
 
 std::string Num(uint64_t v) { return std::to_string(v); }
 
+// MADV_WILLNEED over [p, p + size): queues reading without waiting. The kernel caps one call at
+// its read-ahead window, so long ranges go in pieces.
+void WillNeed(uint8_t* p, uint64_t size) {
+  constexpr uint64_t kPiece = 2u << 20;
+  for (uint64_t off = 0; off < size; off += kPiece) {
+    madvise(p + off, std::min(kPiece, size - off), MADV_WILLNEED);
+  }
+}
+
 }  // namespace
+
+uint64_t ResidentBytes(const uint8_t* data, uint64_t size) {
+  if (size == 0) return 0;
+  // mincore works in the system's pages, which may be larger than the file's 4 KiB alignment:
+  // query from the page holding `data` and clip the first and last pages to the range.
+  const uint64_t page = static_cast<uint64_t>(sysconf(_SC_PAGESIZE));
+  const uintptr_t begin = reinterpret_cast<uintptr_t>(data);
+  const uintptr_t start = begin - begin % page;
+  const uint64_t pages = (begin + size - start + page - 1) / page;
+  std::vector<unsigned char> vec(pages);
+  if (mincore(reinterpret_cast<void*>(start), begin + size - start, vec.data()) != 0) return 0;
+  uint64_t resident = 0;
+  for (uint64_t i = 0; i < pages; ++i) {
+    if ((vec[i] & 1) == 0) continue;
+    const uint64_t lo = std::max<uint64_t>(start + i * page, begin);
+    const uint64_t hi = std::min<uint64_t>(start + (i + 1) * page, begin + size);
+    resident += hi - lo;
+  }
+  return resident;
+}
 
 ModelFile::~ModelFile() {
   if (base_ != nullptr) munmap(const_cast<uint8_t*>(base_), size_);
@@ -63,14 +93,33 @@ Result<std::unique_ptr<ModelFile>> ModelFile::Open(const std::string& path,
     return Status::IOError("cannot map " + path + ": " + std::strerror(errno));
   }
   f->base_ = static_cast<const uint8_t*>(map);
+  uint8_t* const base = static_cast<uint8_t*>(map);
+  // A page fault on a normal mapping reads a window of up to the device's read-ahead size
+  // around the page (often megabytes), regardless of section boundaries: faults on the header
+  // or the end of the hot section would pull in the first records. So the whole mapping starts
+  // as random access (faults read only their page); the header is then queued in one go and
+  // the hot section is queued or faulted normally below. madvise failures only cost speed.
+  if (options.advise_random_records) madvise(base, f->size_, MADV_RANDOM);
+  if (auto pre = DecodePreamble(base, f->size_, f->size_, path.c_str()); pre.ok()) {
+    WillNeed(base, pre->header_offset + pre->header_size);
+  }
   SPRIG_RETURN_IF_ERROR(f->Index(path));
-  if (options.advise_random_records) {
-    for (const SectionInfo& s : f->sections_) {
-      if (s.records && s.size > 0) {
-        // Best effort: a failure only costs read-ahead.
-        madvise(const_cast<uint8_t*>(f->base_) + s.offset, s.size, MADV_RANDOM);
-      }
+  for (const SectionInfo& s : f->sections_) {
+    if (s.records || s.size == 0) continue;
+    uint8_t* hot = base + s.offset;
+    if (options.warm_hot) {
+      // Queue the whole hot section for reading and return without waiting for it, so open
+      // stays as fast as reading the header. Its pages are then cached when first touched and
+      // their faults read nothing around them.
+      WillNeed(hot, s.size);
+    } else if (options.advise_random_records) {
+      // Read-around helps a cold hot section; it can still read up to half a read-ahead
+      // window of the first records past the section's end.
+      madvise(hot, s.size, MADV_NORMAL);
     }
+    // mlock faults the pages in now and may fail (RLIMIT_MEMLOCK); that is not an error, the
+    // caller can ask hot_locked(). munmap in the destructor drops the lock.
+    if (options.lock_hot) f->hot_locked_ = mlock(hot, s.size) == 0;
   }
   return f;
 }

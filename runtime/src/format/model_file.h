@@ -53,7 +53,15 @@ struct TensorInfo {
 struct OpenFileOptions {
   // Advise the kernel that record sections are read at random (no read-ahead of neighbours).
   bool advise_random_records = true;
+  // Ask the kernel to start reading the hot section in the background (MADV_WILLNEED).
+  bool warm_hot = true;
+  // Lock the hot section in memory (mlock), which reads it now. Best effort.
+  bool lock_hot = false;
 };
+
+// Bytes of [data, data + size), a range inside a mapping, whose pages are in memory
+// (mincore(2), page granularity); 0 when the query fails.
+uint64_t ResidentBytes(const uint8_t* data, uint64_t size);
 
 class ModelFile {
  public:
@@ -71,6 +79,8 @@ class ModelFile {
   uint64_t file_size() const { return size_; }
   uint64_t header_size() const { return header_size_; }
   const uint8_t* base() const { return base_; }
+  // True when OpenFileOptions::lock_hot was asked for and mlock succeeded.
+  bool hot_locked() const { return hot_locked_; }
 
   const std::vector<SectionInfo>& sections() const { return sections_; }
   const std::vector<TensorInfo>& tensors() const { return tensors_; }
@@ -97,6 +107,7 @@ class ModelFile {
   uint64_t size_ = 0;
   uint32_t version_ = 0;
   uint64_t header_size_ = 0;
+  bool hot_locked_ = false;
   ModelConfig config_;
   std::string config_json_;
   std::string producer_;

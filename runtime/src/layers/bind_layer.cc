@@ -2,8 +2,10 @@
 
 namespace sprig::layers {
 
-Result<std::unique_ptr<FeedForward>> BindLayer(const format::ModelFile& file, size_t index,
-                                               const std::string& prefix) {
+namespace {
+
+Result<std::unique_ptr<FeedForward>> BindKind(const format::ModelFile& file, size_t index,
+                                              const std::string& prefix) {
   const LayerConfig& c = file.config().layers[index];
   Binder b(file, prefix);
   switch (c.kind) {
@@ -17,6 +19,21 @@ Result<std::unique_ptr<FeedForward>> BindLayer(const format::ModelFile& file, si
   }
   return Status::NotSupported(file.path() + ": layer " + std::to_string(index) +
                               " has a kind this build cannot run");
+}
+
+}  // namespace
+
+Result<std::unique_ptr<FeedForward>> BindLayer(const format::ModelFile& file, size_t index,
+                                               const std::string& prefix) {
+  SPRIG_ASSIGN_OR_RETURN(auto layer, BindKind(file, index, prefix));
+  // All of a routed layer's tensors share one record set (one record per leaf, expert or
+  // path-tree chunk).
+  const format::RecordSetInfo* records = nullptr;
+  for (const format::RecordSetInfo& rs : file.record_sets()) {
+    if (rs.layer == index && records == nullptr) records = &rs;
+  }
+  layer->SetRecords(index, records);
+  return layer;
 }
 
 }  // namespace sprig::layers

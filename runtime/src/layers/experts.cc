@@ -58,7 +58,10 @@ void ExpertsLayer::Forward(const Exec& e, const float* x, size_t rows, float* y,
   if (routes) std::copy(chosen.begin(), chosen.end(), routes);
 
   if (e.single_row) {
-    for (size_t j = 0; j < top; ++j) PrefetchMlp(Expert(chosen[j]));
+    for (size_t j = 0; j < top; ++j) {
+      PrefetchMlp(Expert(chosen[j]));
+      Touch(e, static_cast<uint64_t>(chosen[j]));
+    }
     std::fill(y, y + out_, 0.0f);
     if (s0.e.size() < out_) s0.e.resize(out_);
     for (size_t j = 0; j < top; ++j) {
@@ -75,6 +78,7 @@ void ExpertsLayer::Forward(const Exec& e, const float* x, size_t rows, float* y,
   std::vector<uint32_t> order;
   std::vector<RowGroup> groups;
   GroupByUnit(expert_of.data(), rows * top, order, groups);
+  for (const RowGroup& g : groups) Touch(e, g.unit);
   std::vector<float> slot_out(rows * top * out_);
   RunGroups(e, groups, order, top, x, in_, slot_out.data(), out_,
             [this](uint32_t j) { return Expert(j); });

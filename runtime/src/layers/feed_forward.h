@@ -35,6 +35,17 @@ struct Scratch {
 
 class ThreadPool;
 
+// The records a session has read: one bitset per model layer (bit i of word i / 64 is record
+// i), empty for layers without records. Layers mark records on the calling thread only, before
+// or after their parallel parts, so no synchronisation is needed and the result is the same
+// for any thread count.
+struct TouchLog {
+  std::vector<std::vector<uint64_t>> bits;
+  void Mark(size_t layer, uint64_t record) {
+    bits[layer][record / 64] |= uint64_t{1} << (record % 64);
+  }
+};
+
 // How a call runs: kernels, threads and their scratch. Results never depend on the number of
 // threads: work is split only where a row's arithmetic is the same wherever it runs.
 struct Exec {
@@ -44,6 +55,8 @@ struct Exec {
   // The call is for a single row: layers use matrix-vector kernels and prefetch the records
   // they are about to touch. (Batches use matrix-matrix kernels, grouped by record.)
   bool single_row = false;
+  // When not null, layers mark every record they read here.
+  TouchLog* touched = nullptr;
 
   size_t threads() const;
   // fn(task, scratch) for task < count, spread over the pool.
@@ -64,9 +77,27 @@ class FeedForward {
   virtual uint64_t unit_count() const { return 0; }
   size_t in() const { return in_; }
   size_t out() const { return out_; }
+  // The layer's index in the model and its record set (null when it has none). Set once by
+  // BindLayer.
+  size_t index() const { return index_; }
+  const format::RecordSetInfo* records() const { return records_; }
+  uint64_t record_count() const { return records_ ? records_->offsets.size() : 0; }
+  void SetRecords(size_t index, const format::RecordSetInfo* records) {
+    index_ = index;
+    records_ = records;
+  }
 
  protected:
+  // Marks the record holding row `row` of the layer's routed tensors (a leaf, an expert or a
+  // path-tree node) in exec.touched; hot rows live in no record.
+  void Touch(const Exec& exec, uint64_t row) const {
+    if (exec.touched == nullptr || records_ == nullptr || row < records_->map.hot_rows) return;
+    exec.touched->Mark(index_, format::LocateRow(records_->map, row).record);
+  }
+
   size_t in_ = 0, out_ = 0;
+  size_t index_ = 0;
+  const format::RecordSetInfo* records_ = nullptr;
 };
 
 // Binds layer `index` of a validated model file. `prefix` is its tensor-name prefix.

@@ -47,6 +47,7 @@ void LeafTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y
   if (e.single_row) {
     const uint32_t leaf = Descend(k, x, true);
     if (routes) routes[0] = static_cast<int32_t>(leaf);
+    Touch(e, leaf);
     MlpForward(k, Leaf(leaf), x, 1, y, s0, true);
     return;
   }
@@ -65,6 +66,7 @@ void LeafTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y
   std::vector<uint32_t> order;
   std::vector<RowGroup> groups;
   GroupByUnit(leaf_of.data(), rows, order, groups);
+  for (const RowGroup& g : groups) Touch(e, g.unit);
   RunGroups(e, groups, order, 1, x, in_, y, out_, [this](uint32_t leaf) { return Leaf(leaf); });
 }
 

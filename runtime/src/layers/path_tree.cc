@@ -74,6 +74,7 @@ void PathTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y
     init(y);
     uint64_t n = 0;
     for (uint32_t level = 0; level <= depth; ++level) {
+      Touch(e, n);
       const float a = Step(k, n, x, y, level < depth);
       if (level < depth) n = 2 * n + 1 + (a > 0.0f ? 1 : 0);
     }
@@ -89,6 +90,12 @@ void PathTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y
   for (uint32_t level = 0; level <= depth; ++level) {
     for (size_t r = 0; r < rows; ++r) order[r] = {node[r], static_cast<uint32_t>(r)};
     if (level > 0) std::sort(order.begin(), order.end());
+    if (e.touched) {
+      // Rows are sorted by node: mark each distinct node's record once.
+      for (size_t i = 0; i < rows; ++i) {
+        if (i == 0 || order[i].first != order[i - 1].first) Touch(e, order[i].first);
+      }
+    }
     const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
     e.ParallelFor(chunks, [&](size_t c, Scratch&) {
       for (size_t i = c * kRowChunk; i < std::min(rows, (c + 1) * kRowChunk); ++i) {
