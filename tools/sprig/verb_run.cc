@@ -248,9 +248,9 @@ void PrintRunStats(const RunResult& r, const ProcessMemory& before, const Proces
                Mib(res.hot_resident).c_str(), Mib(res.hot_size).c_str(),
                Mib(res.records_resident).c_str(), Mib(res.records_size).c_str(),
                r.model->hot_locked() ? " (hot locked)" : "");
-  std::fprintf(stderr, "process rss %s (file %s, anonymous %s), peak %s\n",
-               Mib(after.rss).c_str(), Mib(after.rss_file).c_str(),
-               Mib(after.rss_anon).c_str(), Mib(after.peak_rss).c_str());
+  std::fprintf(stderr, "process rss %s (file %s, anonymous %s), peak %s\n", Mib(after.rss).c_str(),
+               Mib(after.rss_file).c_str(), Mib(after.rss_anon).c_str(),
+               Mib(after.peak_rss).c_str());
   std::fprintf(stderr, "page faults during open and run: %llu major, %llu minor\n",
                static_cast<unsigned long long>(after.major_faults - before.major_faults),
                static_cast<unsigned long long>(after.minor_faults - before.minor_faults));

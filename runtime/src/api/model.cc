@@ -26,11 +26,21 @@ Result<std::shared_ptr<const Model>> Model::open(const std::string& path,
   return std::shared_ptr<const Model>(std::move(model));
 }
 
-const ModelConfig& Model::config() const { return file_->config(); }
-const std::string& Model::path() const { return file_->path(); }
-uint64_t Model::file_size() const { return file_->file_size(); }
-Status Model::verify_checksums() const { return file_->VerifyChecksums(); }
-bool Model::hot_locked() const { return file_->hot_locked(); }
+const ModelConfig& Model::config() const {
+  return file_->config();
+}
+const std::string& Model::path() const {
+  return file_->path();
+}
+uint64_t Model::file_size() const {
+  return file_->file_size();
+}
+Status Model::verify_checksums() const {
+  return file_->VerifyChecksums();
+}
+bool Model::hot_locked() const {
+  return file_->hot_locked();
+}
 
 Residency Model::residency() const {
   Residency r;

@@ -26,9 +26,13 @@ bool Inside(uint64_t off, uint64_t len, uint64_t lo, uint64_t hi) {
 }
 
 // a * b, or false on overflow.
-bool MulOk(uint64_t a, uint64_t b, uint64_t* out) { return !__builtin_mul_overflow(a, b, out); }
+bool MulOk(uint64_t a, uint64_t b, uint64_t* out) {
+  return !__builtin_mul_overflow(a, b, out);
+}
 
-std::string Num(uint64_t v) { return std::to_string(v); }
+std::string Num(uint64_t v) {
+  return std::to_string(v);
+}
 
 // MADV_WILLNEED over [p, p + size): queues reading without waiting. The kernel caps one call at
 // its read-ahead window, so long ranges go in pieces.
@@ -130,14 +134,16 @@ Status ModelFile::Index(const std::string& src) {
   header_size_ = pre.header_size;
   const uint8_t* header = base_ + pre.header_offset;
   if (Crc32(header, pre.header_size) != pre.header_crc32) {
-    return Status::Corruption(src + ": the header's checksum does not match (the file is "
-                                    "damaged)");
+    return Status::Corruption(src +
+                              ": the header's checksum does not match (the file is "
+                              "damaged)");
   }
   flatbuffers::Verifier verifier(header, pre.header_size,
                                  /*max_depth=*/64, /*max_tables=*/1u << 24);
   if (!fb::VerifyHeaderBuffer(verifier)) {
-    return Status::Corruption(src + ": the header is not a valid sprig header (FlatBuffers "
-                                    "verification failed)");
+    return Status::Corruption(src +
+                              ": the header is not a valid sprig header (FlatBuffers "
+                              "verification failed)");
   }
   const fb::Header* h = fb::GetHeader(header);
   SPRIG_ASSIGN_OR_RETURN(config_, ReadConfig(*h->config(), src));
@@ -184,19 +190,22 @@ Status ModelFile::Index(const std::string& src) {
       rs.section = r->section();
       if (rs.layer >= config_.layers.size() || rs.section >= sections_.size() ||
           !sections_[rs.section].records) {
-        return Status::Corruption(src + ": " + which + " names a layer or section that does not "
-                                                       "exist");
+        return Status::Corruption(src + ": " + which +
+                                  " names a layer or section that does not "
+                                  "exist");
       }
       const LayerConfig& layer = config_.layers[rs.layer];
       if (r->row_map() == fb::RowMap::Subtree) {
         if (layer.kind != LayerKind::kTree || layer.mode != TreeMode::kPath) {
-          return Status::Corruption(src + ": " + which + " uses a subtree map on a layer that "
-                                                         "is not a path tree");
+          return Status::Corruption(src + ": " + which +
+                                    " uses a subtree map on a layer that "
+                                    "is not a path tree");
         }
         rs.map = SubtreeMapFor(layer.depth + 1);
         if (r->hot_levels() != rs.map.hot_levels || r->chunk_levels() != rs.map.chunk_levels) {
-          return Status::NotSupported(src + ": " + which + " uses a path-tree chunking this "
-                                                           "build does not read");
+          return Status::NotSupported(src + ": " + which +
+                                      " uses a path-tree chunking this "
+                                      "build does not read");
         }
       } else if (r->row_map() == fb::RowMap::Contiguous) {
         rs.map.rows_per_record = r->rows_per_record();
@@ -213,8 +222,8 @@ Status ModelFile::Index(const std::string& src) {
         rs.crc32.reserve(r->records()->size());
         for (const fb::RecordRef* ref : *r->records()) {
           if (!Inside(ref->offset(), rs.record_size, sec.offset, sec.offset + sec.size)) {
-            return Status::Corruption(src + ": record " + Num(rs.offsets.size()) + " of " +
-                                      which + " lies outside its section");
+            return Status::Corruption(src + ": record " + Num(rs.offsets.size()) + " of " + which +
+                                      " lies outside its section");
           }
           rs.offsets.push_back(ref->offset());
           rs.crc32.push_back(ref->crc32());
@@ -264,8 +273,8 @@ Status ModelFile::Index(const std::string& src) {
         return Status::Corruption(which + " has a hot size that does not match its shape");
       }
       if (t.hot_size > 0) {
-        if (hot == nullptr || !Inside(ft->hot_offset(), t.hot_size, hot->offset,
-                                      hot->offset + hot->size)) {
+        if (hot == nullptr ||
+            !Inside(ft->hot_offset(), t.hot_size, hot->offset, hot->offset + hot->size)) {
           return Status::Corruption(which + " lies outside the hot section");
         }
         t.hot = base_ + ft->hot_offset();
@@ -281,14 +290,15 @@ Status ModelFile::Index(const std::string& src) {
         }
         // Leaves and experts keep no rows hot; a path tree keeps exactly its top levels.
         if (t.hot_rows != rs.map.hot_rows) {
-          return Status::Corruption(which + " keeps a different number of hot rows than its "
-                                            "record set");
+          return Status::Corruption(which +
+                                    " keeps a different number of hot rows than its "
+                                    "record set");
         }
         t.part_offset = ft->record_part_offset();
         t.part_size = ft->record_part_size();
         uint64_t part_bytes = 0;
-        if (!MulOk(rs.map.rows_per_record, t.row_bytes, &part_bytes) ||
-            part_bytes != t.part_size || !Inside(t.part_offset, t.part_size, 0, rs.record_size)) {
+        if (!MulOk(rs.map.rows_per_record, t.row_bytes, &part_bytes) || part_bytes != t.part_size ||
+            !Inside(t.part_offset, t.part_size, 0, rs.record_size)) {
           return Status::Corruption(which + " has a record part outside its record");
         }
         if (RecordCount(rs.map, rows) != rs.offsets.size()) {
@@ -354,8 +364,8 @@ Status ModelFile::VerifyChecksums() const {
     }
   }
   if (total_bad == 0) return Status::Ok();
-  std::string msg = path_ + ": " + Num(total_bad) + " checksum mismatch" +
-                    (total_bad == 1 ? "" : "es") + ": ";
+  std::string msg =
+      path_ + ": " + Num(total_bad) + " checksum mismatch" + (total_bad == 1 ? "" : "es") + ": ";
   for (size_t i = 0; i < bad.size(); ++i) msg += (i ? ", " : "") + bad[i];
   if (total_bad > bad.size()) msg += ", ...";
   return Status::CheckFailed(msg);

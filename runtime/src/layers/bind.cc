@@ -69,7 +69,9 @@ MlpView MlpOf(const Binder& b, const MlpTensors& t, uint64_t unit, const LayerCo
   return m;
 }
 
-size_t Exec::threads() const { return pool ? pool->size() : 1; }
+size_t Exec::threads() const {
+  return pool ? pool->size() : 1;
+}
 
 void Exec::ParallelFor(size_t count, const std::function<void(size_t, Scratch&)>& fn) const {
   if (pool == nullptr || count <= 1) {

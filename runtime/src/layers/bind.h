@@ -13,7 +13,8 @@ inline constexpr size_t kRowChunk = 16;
 
 class Binder {
  public:
-  Binder(const format::ModelFile& file, std::string prefix) : file_(file), prefix_(std::move(prefix)) {}
+  Binder(const format::ModelFile& file, std::string prefix)
+      : file_(file), prefix_(std::move(prefix)) {}
   // The tensor prefix + name, or null when absent (biases of a bias-free layer, gates).
   const format::TensorInfo* Find(const std::string& name) const {
     return file_.Find(prefix_ + name);

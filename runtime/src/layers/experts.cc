@@ -49,8 +49,8 @@ void ExpertsLayer::Forward(const Exec& e, const float* x, size_t rows, float* y,
   if (e.single_row) {
     kernels::Gemv(k, router_.type, router_.data, x, router_bias_, logits.data(), experts, in_);
   } else {
-    kernels::GemmRows(k, router_.type, router_.data, x, router_bias_, logits.data(), rows,
-                      experts, in_);
+    kernels::GemmRows(k, router_.type, router_.data, x, router_bias_, logits.data(), rows, experts,
+                      in_);
   }
   for (size_t r = 0; r < rows; ++r) {
     Choose(k, logits.data() + r * experts, chosen.data() + r * top, weights.data() + r * top);

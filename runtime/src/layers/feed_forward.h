@@ -50,7 +50,7 @@ struct TouchLog {
 // threads: work is split only where a row's arithmetic is the same wherever it runs.
 struct Exec {
   const kernels::KernelTable* k = nullptr;
-  ThreadPool* pool = nullptr;             // null: the calling thread only
+  ThreadPool* pool = nullptr;               // null: the calling thread only
   std::vector<Scratch>* scratch = nullptr;  // one per thread of the pool (at least one)
   // The call is for a single row: layers use matrix-vector kernels and prefetch the records
   // they are about to touch. (Batches use matrix-matrix kernels, grouped by record.)

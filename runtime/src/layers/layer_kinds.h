@@ -28,7 +28,9 @@ class LeafTreeLayer final : public FeedForward {
 
  private:
   uint32_t Descend(const kernels::KernelTable& k, const float* x, bool prefetch) const;
-  MlpView Leaf(uint64_t leaf) const { return MlpOf(binder_, leaves_, leaf, config_, config_.leaf_width); }
+  MlpView Leaf(uint64_t leaf) const {
+    return MlpOf(binder_, leaves_, leaf, config_, config_.leaf_width);
+  }
 
   Binder binder_;
   LayerConfig config_;

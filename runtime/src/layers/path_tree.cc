@@ -15,13 +15,16 @@ constexpr size_t kPrefetchRowsAhead = 2;
 // Scalar activation of one pre-activation (the same formulas as the kernels' scalar path).
 float ActivateScalar(Activation act, float a) {
   switch (act) {
-    case Activation::kRelu: return a > 0.0f ? a : 0.0f;
-    case Activation::kGelu: return 0.5f * a * std::erfc(-a * 0.70710678118654752f);
+    case Activation::kRelu:
+      return a > 0.0f ? a : 0.0f;
+    case Activation::kGelu:
+      return 0.5f * a * std::erfc(-a * 0.70710678118654752f);
     case Activation::kGeluTanh: {
       const float u = 0.79788456080286536f * (a + 0.044715f * a * a * a);
       return a / (1.0f + std::exp(-2.0f * u));
     }
-    case Activation::kSilu: return a / (1.0f + std::exp(-a));
+    case Activation::kSilu:
+      return a / (1.0f + std::exp(-a));
   }
   return a;
 }
@@ -37,16 +40,16 @@ PathTreeLayer::PathTreeLayer(const Binder& b, const LayerConfig& c) : binder_(b)
   out_bias_ = b.FloatRow(b.Find("out_bias"), 0);
 }
 
-float PathTreeLayer::Step(const kernels::KernelTable& k, uint64_t node, const float* x,
-                          float* y, bool prefetch_child) const {
+float PathTreeLayer::Step(const kernels::KernelTable& k, uint64_t node, const float* x, float* y,
+                          bool prefetch_child) const {
   const format::ModelFile& f = binder_.file();
   const float bias = bias_ ? *reinterpret_cast<const float*>(f.Row(*bias_, node)) : 0.0f;
   const float a = kernels::Dot(k, weight_->dtype, x, f.Row(*weight_, node), in_) + bias;
   // The child is known before this neuron's output row is added: start loading the child's
   // rows now, so they arrive while the axpy below streams the current output row.
   if (prefetch_child) Prefetch(2 * node + 1 + (a > 0.0f ? 1 : 0));
-  kernels::Axpy(k, out_rows_->dtype, ActivateScalar(config_.activation, a),
-                f.Row(*out_rows_, node), y, out_);
+  kernels::Axpy(k, out_rows_->dtype, ActivateScalar(config_.activation, a), f.Row(*out_rows_, node),
+                y, out_);
   return a;
 }
 
