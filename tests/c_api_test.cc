@@ -42,18 +42,9 @@ const char* const kClassifier = R"({"family":"transformer","vocab_size":30,"d_mo
   "head":{"kind":"classifier","classes":3,"pool":"mean"},
   "layers":[{"kind":"dense","width":16,"activation":"gelu"}]})";
 
-// Synthesizes weights for a config and packs them with the CLI; returns the .sprig path.
 std::string MakeModel(const testing::TempDir& dir, const std::string& name,
                       const std::string& config) {
-  const std::string cli = testing::SprigCli();
-  testing::WriteFile(dir.File(name + ".json"), config);
-  auto r = testing::Run(cli + " synth " + Quote(dir.File(name + ".json")) + " -o " +
-                        Quote(dir.File(name + ".npz")) + " --seed 5");
-  EXPECT_EQ(r.exit_code, 0) << r.output;
-  r = testing::Run(cli + " pack " + Quote(dir.File(name + ".json")) + " " +
-                   Quote(dir.File(name + ".npz")) + " -o " + Quote(dir.File(name + ".sprig")));
-  EXPECT_EQ(r.exit_code, 0) << r.output;
-  return dir.File(name + ".sprig");
+  return testing::PackSynthesized(dir, name, config, 5);
 }
 
 std::unique_ptr<Session> CppSession(const std::string& path, size_t threads = 1) {

@@ -11,14 +11,7 @@ using testing::Quote;
 
 std::shared_ptr<const Model> Packed(const testing::TempDir& dir, const std::string& name,
                                     const std::string& config) {
-  const std::string c = dir.File(name + ".json"), w = dir.File(name + ".npz"),
-                    m = dir.File(name + ".sprig");
-  testing::WriteFile(c, config);
-  const std::string cli = testing::SprigCli();
-  EXPECT_EQ(testing::Run(cli + " synth " + Quote(c) + " -o " + Quote(w)).exit_code, 0);
-  EXPECT_EQ(testing::Run(cli + " pack " + Quote(c) + " " + Quote(w) + " -o " + Quote(m)).exit_code,
-            0);
-  auto model = Model::open(m);
+  auto model = Model::open(testing::PackSynthesized(dir, name, config));
   EXPECT_TRUE(model.ok()) << model.status().message();
   return model.ok() ? *model : nullptr;
 }

@@ -49,18 +49,9 @@ const char* const kBidirectional = R"({"family":"transformer","vocab_size":30,"d
   "n_heads":2,"max_seq":20,"positions":"none","causal":false,"head":{"kind":"lm"},
   "layers":[{"kind":"dense","width":16,"activation":"gelu"}]})";
 
-// Synthesizes weights for a config and packs them; returns the .sprig path inside `dir`.
 std::string MakeModel(const testing::TempDir& dir, const std::string& name,
                       const std::string& config, uint64_t seed = 3) {
-  const std::string cli = testing::SprigCli();
-  testing::WriteFile(dir.File(name + ".json"), config);
-  auto r = testing::Run(cli + " synth " + Quote(dir.File(name + ".json")) + " -o " +
-                        Quote(dir.File(name + ".npz")) + " --seed " + std::to_string(seed));
-  EXPECT_EQ(r.exit_code, 0) << r.output;
-  r = testing::Run(cli + " pack " + Quote(dir.File(name + ".json")) + " " +
-                   Quote(dir.File(name + ".npz")) + " -o " + Quote(dir.File(name + ".sprig")));
-  EXPECT_EQ(r.exit_code, 0) << r.output;
-  return dir.File(name + ".sprig");
+  return testing::PackSynthesized(dir, name, config, seed);
 }
 
 std::unique_ptr<Session> Open(const std::string& path, size_t threads = 1) {

@@ -4,6 +4,8 @@
 #include <stdlib.h>
 #include <sys/wait.h>
 
+#include <gtest/gtest.h>
+
 #include <filesystem>
 #include <fstream>
 #include <sstream>
@@ -60,6 +62,20 @@ CommandResult RunPython(const std::string& script, const std::vector<std::string
   cmd.append(" ").append(Python()).append(" -c ").append(Quote(script));
   for (const auto& a : args) cmd.append(" ").append(Quote(a));
   return Run(cmd);
+}
+
+std::string PackSynthesized(const TempDir& dir, const std::string& name, const std::string& config,
+                            uint64_t seed) {
+  const std::string cli = SprigCli();
+  const std::string json = dir.File(name + ".json"), npz = dir.File(name + ".npz"),
+                    model = dir.File(name + ".sprig");
+  WriteFile(json, config);
+  auto r =
+      Run(cli + " synth " + Quote(json) + " -o " + Quote(npz) + " --seed " + std::to_string(seed));
+  if (r.exit_code != 0) ADD_FAILURE() << "synth failed: " << r.output;
+  r = Run(cli + " pack " + Quote(json) + " " + Quote(npz) + " -o " + Quote(model));
+  if (r.exit_code != 0) ADD_FAILURE() << "pack failed: " << r.output;
+  return model;
 }
 
 std::string ReadFile(const std::string& path) {

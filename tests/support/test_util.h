@@ -1,6 +1,7 @@
 // Small helpers shared by the tests: temporary folders, running commands, file contents.
 #pragma once
 
+#include <cstdint>
 #include <string>
 #include <vector>
 
@@ -33,6 +34,11 @@ std::string SprigCli();
 std::string Python();
 // Runs `/usr/bin/python3 -c SCRIPT` (arguments appended, shell-quoted).
 CommandResult RunPython(const std::string& script, const std::vector<std::string>& args = {});
+
+// Writes `config` to dir/name.json, synthesizes weights with `sprig synth --seed seed` and packs
+// them with `sprig pack`; returns dir/name.sprig. A failing step is reported as a test failure.
+std::string PackSynthesized(const TempDir& dir, const std::string& name, const std::string& config,
+                            uint64_t seed = 1);
 
 std::string Quote(const std::string& s);
 std::string ReadFile(const std::string& path);
