@@ -61,7 +61,7 @@ Result<Net> SynthNet(const std::string& json, uint64_t seed) {
   net.specs = ExpectedTensors(net.config);
   for (const io::NdArray& a : convert::SynthesizeWeights(net.config, seed)) {
     std::vector<float> v(a.elements());
-    std::memcpy(v.data(), a.data, a.nbytes());
+    if (a.nbytes() > 0) std::memcpy(v.data(), a.data, a.nbytes());  // empty: data may be null
     net.values[a.name] = std::move(v);
   }
   return net;
