@@ -48,14 +48,7 @@ std::string MakeModel(const testing::TempDir& dir, const std::string& name,
 }
 
 std::unique_ptr<Session> CppSession(const std::string& path, size_t threads = 1) {
-  auto model = Model::open(path);
-  EXPECT_TRUE(model.ok()) << model.status().message();
-  if (!model.ok()) return nullptr;
-  SessionOptions options;
-  options.threads = threads;
-  auto session = Session::create(*model, options);
-  EXPECT_TRUE(session.ok()) << session.status().message();
-  return session.ok() ? std::move(*session) : nullptr;
+  return testing::OpenSession(path, threads);
 }
 
 // Owns C handles and an error string for one test.

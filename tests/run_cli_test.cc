@@ -1,4 +1,4 @@
-// `sprig run` and `sprig routes` (DESIGN §6) through the built program: outputs and routes
+// `sprig run` and `sprig routes` (README.md) through the built program: outputs and routes
 // files that NumPy reads, agreement with Session::forward, the statistics of `routes`, clear
 // errors (exit 2) for bad input, and `--help` of every verb.
 #include <gtest/gtest.h>

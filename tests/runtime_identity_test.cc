@@ -1,12 +1,12 @@
-// Identities of the routed layers (DESIGN §3, the published definitions of each kind), checked
-// through the public runtime API: configs parsed with ParseConfig, weights synthesized and
-// edited in memory, packed with MatchTensors + PackTensors, opened with Model::open and run
-// with Session::forward.
+// Identities of the routed layers (the model semantics in README.md, the published definitions of
+// each kind), checked through the public runtime API: configs parsed with ParseConfig, weights
+// synthesized and edited in memory, packed with MatchTensors + PackTensors, opened with Model::open
+// and run with Session::forward.
 //
-// The independent reference is RefForward below: a plain double-precision C++ transcription
-// of DESIGN §3 (nn.Linear layout, the four activations' formulas, hard descent with a logit of
-// exactly 0 going left, path-mode accumulation, softmax top-k mixing), written from the
-// definitions and sharing no code with the runtime.
+// The independent reference is RefForward below: a plain double-precision C++ rendering
+// of the model semantics in README.md (nn.Linear layout, the four activations' formulas, hard
+// descent with a logit of exactly 0 going left, path-mode accumulation, softmax top-k mixing),
+// written from the definitions and sharing no code with the runtime.
 //
 // Outputs are compared relative to each row's largest magnitude: an entry that nearly cancels
 // carries an absolute rounding error of the size of its terms, so an element-wise relative
@@ -188,7 +188,7 @@ bool BitEqual(const std::vector<float>& a, const std::vector<float>& b) {
   return ::testing::AssertionSuccess();
 }
 
-// ---- the independent double-precision reference (DESIGN §3) ----
+// ---- the independent double-precision reference (the model semantics in README.md) ----
 
 double Act(Activation a, double v) {
   switch (a) {
@@ -371,8 +371,8 @@ struct DenseCase {
 
 class RuntimeIdentityLeafDepthZero : public ::testing::TestWithParam<DenseCase> {};
 
-// DESIGN §3: "d = 0 is one leaf, equal to a dense MLP". The same fc1/fc2(/gate) weights are
-// packed once as a depth-0 tree and once as a dense layer.
+// the model semantics in README.md: "d = 0 is one leaf, equal to a dense MLP". The same
+// fc1/fc2(/gate) weights are packed once as a depth-0 tree and once as a dense layer.
 TEST_P(RuntimeIdentityLeafDepthZero, EqualsDenseMlpOfSameWidth) {
   const DenseCase p = GetParam();
   const std::string common = std::string(R"("activation":")") + p.activation + R"(","gated":)" +
@@ -445,9 +445,9 @@ void ZeroNodes(Net& net, size_t layer) {
 
 class RuntimeIdentityZeroLeafTree : public ::testing::TestWithParam<bool> {};
 
-// DESIGN §3: "A logit of exactly 0 goes left". With every node weight and bias zero each logit
-// is exactly 0, so every row descends left to leaf 0 and the output is leaf 0's MLP (checked
-// against leaf 0's weights packed as a dense layer).
+// the model semantics in README.md: "A logit of exactly 0 goes left". With every node weight and
+// bias zero each logit is exactly 0, so every row descends left to leaf 0 and the output is leaf
+// 0's MLP (checked against leaf 0's weights packed as a dense layer).
 TEST_P(RuntimeIdentityZeroLeafTree, EveryRowTakesLeafZero) {
   const bool bias = GetParam();
   const std::string b = bias ? "true" : "false";
@@ -499,9 +499,9 @@ struct PathCase {
 
 class RuntimeIdentityZeroPathTree : public ::testing::TestWithParam<PathCase> {};
 
-// DESIGN §3, path mode: y = out_bias + Σ_levels act(a)·out[n]. With zero node weights and
-// biases every a is exactly 0, so every row takes the leftmost path (route 0), and since
-// act(0) = 0 for relu, gelu, gelu_tanh and silu, the output is out_bias (0 without biases).
+// the model semantics in README.md, path mode: y = out_bias + Σ_levels act(a)·out[n]. With zero
+// node weights and biases every a is exactly 0, so every row takes the leftmost path (route 0), and
+// since act(0) = 0 for relu, gelu, gelu_tanh and silu, the output is out_bias (0 without biases).
 TEST_P(RuntimeIdentityZeroPathTree, LeftmostPathAndOutBias) {
   const PathCase p = GetParam();
   auto net =
@@ -551,8 +551,9 @@ struct ExpertsCase {
 
 class RuntimeIdentityExpertsFullMixture : public ::testing::TestWithParam<ExpertsCase> {};
 
-// DESIGN §3, experts with top_k = E and renormalize: Σ_S p = 1, so the output is the full
-// softmax mixture Σ_j softmax(router x)_j · expert_j(x), computed here by the reference.
+// the model semantics in README.md, experts with top_k = E and renormalize: Σ_S p = 1, so the
+// output is the full softmax mixture Σ_j softmax(router x)_j · expert_j(x), computed here by the
+// reference.
 TEST_P(RuntimeIdentityExpertsFullMixture, EqualsSoftmaxMixtureOfAllExperts) {
   const ExpertsCase p = GetParam();
   auto net =
@@ -602,8 +603,9 @@ INSTANTIATE_TEST_SUITE_P(Kinds, RuntimeIdentityExpertsFullMixture,
                                   info.param.activation;
                          });
 
-// DESIGN §3: with renormalize false the chosen expert is weighted by p_j itself, so with
-// top_k = 1 the output is p_max · expert_max(x), while renormalize true gives expert_max(x).
+// the model semantics in README.md: with renormalize false the chosen expert is weighted by p_j
+// itself, so with top_k = 1 the output is p_max · expert_max(x), while renormalize true gives
+// expert_max(x).
 TEST(RuntimeIdentityExpertsNoRenormalize, TopOneScaledByItsProbability) {
   const char* kConfig = R"({"family":"stack","input_dim":14,"layers":[{"kind":"experts",)"
                         R"("experts":4,"top_k":1,"width":8,"activation":"silu","gated":true,)"
@@ -816,9 +818,9 @@ TEST(RuntimeIdentityGemmRows, RowResultIndependentOfTheRowsAroundIt) {
   }
 }
 
-// The scalar path against the double-precision reference of DESIGN §3, for the whole stack.
-// Rows with a routing decision within 1e-4 of flipping are left out (float rounding may take
-// the other branch there); with these N(0, 1) inputs there are normally none.
+// The scalar path against the double-precision reference of the model semantics in README.md, for
+// the whole stack. Rows with a routing decision within 1e-4 of flipping are left out (float
+// rounding may take the other branch there); with these N(0, 1) inputs there are normally none.
 TEST_F(RuntimeIdentityEveryKind, ScalarPathMatchesReference) {
   const std::vector<float> x = RandomRows(kRows, kIn, 54);
   const RefOutput ref = RefForward(*net_, x);

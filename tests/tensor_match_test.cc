@@ -1,4 +1,5 @@
-// Matching weights against a config (DESIGN §4) and the NaN/Inf scan behind it.
+// Matching weights against a config (the input contract in README.md) and the NaN/Inf scan behind
+// it.
 #include <gtest/gtest.h>
 
 #include <algorithm>
@@ -82,8 +83,8 @@ NdArray* Find(std::vector<NdArray>& arrays, const std::string& name) {
 // ---------------------------------------------------------------------------------------------
 // Successful matches.
 
-// Names and shapes written out from the table in DESIGN §4 (dense: fc1/gate/fc2; tree leaf:
-// nodes, leaves.fc1, leaves.fc2), not taken from the code under test.
+// Names and shapes written out from the table in the input contract in README.md (dense:
+// fc1/gate/fc2; tree leaf: nodes, leaves.fc1, leaves.fc2), not taken from the code under test.
 TEST(TensorMatch, DesignTableNames) {
   const ModelConfig config = SmallStack();
   std::vector<NdArray> arrays = {

@@ -55,14 +55,7 @@ std::string MakeModel(const testing::TempDir& dir, const std::string& name,
 }
 
 std::unique_ptr<Session> Open(const std::string& path, size_t threads = 1) {
-  auto model = Model::open(path);
-  EXPECT_TRUE(model.ok()) << model.status().message();
-  if (!model.ok()) return nullptr;
-  SessionOptions options;
-  options.threads = threads;
-  auto session = Session::create(*model, options);
-  EXPECT_TRUE(session.ok()) << session.status().message();
-  return session.ok() ? std::move(*session) : nullptr;
+  return testing::OpenSession(path, threads);
 }
 
 std::vector<int32_t> Tokens(size_t n, int32_t vocab, uint32_t seed) {

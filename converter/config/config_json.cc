@@ -1,4 +1,5 @@
-// ParseConfig and ReadConfigFile: config.json → a validated ModelConfig (DESIGN §4).
+// ParseConfig and ReadConfigFile: config.json → a validated ModelConfig (the input contract in
+// README.md).
 #include "converter/config/config_json.h"
 
 #include <string>

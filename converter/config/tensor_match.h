@@ -1,6 +1,6 @@
-// Matching a weights file against the tensors a config requires (DESIGN §4): every expected
-// tensor present once, with the right shape, a floating-point type and finite values; nothing
-// else present.
+// Matching a weights file against the tensors a config requires (the input contract in README.md):
+// every expected tensor present once, with the right shape, a floating-point type and finite
+// values; nothing else present.
 #pragma once
 
 #include <string>

@@ -78,6 +78,17 @@ std::string PackSynthesized(const TempDir& dir, const std::string& name, const s
   return model;
 }
 
+std::unique_ptr<Session> OpenSession(const std::string& path, size_t threads) {
+  auto model = Model::open(path);
+  EXPECT_TRUE(model.ok()) << model.status().message();
+  if (!model.ok()) return nullptr;
+  SessionOptions options;
+  options.threads = threads;
+  auto session = Session::create(*model, options);
+  EXPECT_TRUE(session.ok()) << session.status().message();
+  return session.ok() ? std::move(*session) : nullptr;
+}
+
 std::string ReadFile(const std::string& path) {
   std::ifstream in(path, std::ios::binary);
   std::stringstream ss;

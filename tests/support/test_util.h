@@ -2,8 +2,11 @@
 #pragma once
 
 #include <cstdint>
+#include <memory>
 #include <string>
 #include <vector>
+
+#include "sprig/session.h"
 
 namespace sprig::testing {
 
@@ -39,6 +42,10 @@ CommandResult RunPython(const std::string& script, const std::vector<std::string
 // them with `sprig pack`; returns dir/name.sprig. A failing step is reported as a test failure.
 std::string PackSynthesized(const TempDir& dir, const std::string& name, const std::string& config,
                             uint64_t seed = 1);
+
+// Opens a model and a session over it with `threads` threads; null (and a test failure) when
+// either fails.
+std::unique_ptr<Session> OpenSession(const std::string& path, size_t threads = 1);
 
 std::string Quote(const std::string& s);
 std::string ReadFile(const std::string& path);

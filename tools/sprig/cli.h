@@ -11,7 +11,7 @@
 
 namespace sprig::cli {
 
-// DESIGN: 0 success, 1 a check failed, 2 bad usage or input.
+// README: 0 success, 1 a check failed, 2 bad usage or input.
 inline constexpr int kExitOk = 0;
 inline constexpr int kExitCheckFailed = 1;
 inline constexpr int kExitBadInput = 2;

@@ -4,7 +4,7 @@
 * `sprig_torch.models`  the stack and transformer families;
 * `sprig_torch.export`  writes config.json, weights.npz and reference.npz (also a command).
 
-The modules follow DESIGN.md §3 (semantics) and §4 (config fields and tensor names); the C++
+The modules follow the model semantics in README.md (semantics) and §4 (config fields and tensor names); the C++
 runtime is tested against them.
 """
 

@@ -3,7 +3,7 @@
 `export` writes, into one directory:
 
 * ``config.json``  the model's config (a stack's layers with their ``in``/``out`` spelled out);
-* ``weights.npz``  the state dict as float32 arrays under the tensor names of DESIGN.md §4;
+* ``weights.npz``  the state dict as float32 arrays under the tensor names of the input contract in README.md;
 * ``reference.npz`` ``inputs`` (as given), ``outputs`` (hard mode, float32) and, for each
   routed layer i, ``routes.layer{i}`` (int32: [tokens] leaves or [tokens, k] experts) and
   ``margins.layer{i}`` (float32 [tokens]: how far each row was from another route; see

@@ -1,7 +1,7 @@
-"""Reference models of sprig: the `stack` and `transformer` families (DESIGN.md §3).
+"""Reference models of sprig: the `stack` and `transformer` families (the model semantics in README.md).
 
 Like `layers`, this module is the reference for sprig's model semantics, written from the
-formulas with torch primitives; ``state_dict()`` keys are the tensor names of DESIGN.md §4
+formulas with torch primitives; ``state_dict()`` keys are the tensor names of the input contract in README.md
 (`layers.{i}.…` in a stack; `embed.weight`, `pos.weight`, `blocks.{i}.…`, `norm.*`, `head.*`
 in a transformer).
 
@@ -10,7 +10,7 @@ in a transformer).
 routed layer (stack layer or transformer block) to the layer's routes/margins; a transformer
 flattens its tokens in [B*T] order (batch-major).
 
-Conventions that DESIGN.md leaves implicit and that are fixed here:
+Conventions that the model semantics leave implicit and that are fixed here:
 
 * grouped-query attention: query head h uses key/value head h // (n_heads / n_kv_heads), so
   consecutive query heads share one key/value head;
