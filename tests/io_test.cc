@@ -13,6 +13,8 @@
 
 #include <gtest/gtest.h>
 
+#include "support/test_util.h"
+
 #include <algorithm>
 #include <cstdio>
 #include <cstdlib>
@@ -42,35 +44,14 @@ using nlohmann::json;
 // ---------------------------------------------------------------------------------------------
 // Helpers.
 
-// A fresh folder under the system's temporary folder, removed with everything in it.
-class TempDir {
- public:
-  TempDir() {
-    std::string pattern = (fs::temp_directory_path() / "sprig-io-XXXXXX").string();
-    if (::mkdtemp(pattern.data()) != nullptr) path_ = pattern;
-  }
-  ~TempDir() {
-    std::error_code ec;
-    if (!path_.empty()) fs::remove_all(path_, ec);
-  }
-  TempDir(const TempDir&) = delete;
-  TempDir& operator=(const TempDir&) = delete;
-  const std::string& path() const { return path_; }
-  std::string File(const std::string& name) const { return path_ + "/" + name; }
-
- private:
-  std::string path_;
-};
+using testing::TempDir;
 
 std::string PythonBinary() {
-  const char* env = std::getenv("SPRIG_PYTHON");
-  return env != nullptr && *env != '\0' ? env : "/usr/bin/python3";
+  return testing::Python();
 }
 
 std::string ShellQuote(const std::string& s) {
-  std::string out = "'";
-  for (char c : s) out += c == '\'' ? std::string("'\\''") : std::string(1, c);
-  return out + "'";
+  return testing::Quote(s);
 }
 
 // Runs tests/python/`script` with `args`; returns its exit status and stores what it printed.
