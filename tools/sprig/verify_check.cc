@@ -182,7 +182,13 @@ VerifyReport CheckAgainstReference(const VerifyInputs& in, const Tolerance& tol)
   std::vector<uint64_t> affected_from(in.rows, kNever);
   for (const RoutedLayer& l : in.routed) {
     report.routing.push_back(CheckRouting(in, l, affected_from));
-    if (report.routing.back().unexplained > 0) report.pass = false;
+    if (report.routing.back().unexplained > 0) {
+      report.pass = false;
+      // An unexplained flip is where this layer's outputs diverge, even though the flipped rows
+      // are left out of the comparison of its outputs.
+      if (report.first_divergent_layer < 0)
+        report.first_divergent_layer = static_cast<int>(l.layer);
+    }
   }
   for (const Compared& c : in.layers) {
     const uint64_t layer = static_cast<uint64_t>(c.layer);
@@ -190,7 +196,9 @@ VerifyReport CheckAgainstReference(const VerifyInputs& in, const Tolerance& tol)
         CompareRows(c, tol, [&](uint64_t row) { return affected_from[row] > layer; }));
     if (!report.layers.back().ok) {
       report.pass = false;
-      if (report.first_divergent_layer < 0) report.first_divergent_layer = c.layer;
+      if (report.first_divergent_layer < 0 || c.layer < report.first_divergent_layer) {
+        report.first_divergent_layer = static_cast<int>(c.layer);
+      }
     }
   }
   report.output = CompareRows(in.output, tol, [&](uint64_t row) {

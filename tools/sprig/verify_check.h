@@ -114,7 +114,9 @@ struct VerifyReport {
   ComparedResult output;
   std::vector<ComparedResult> layers;
   std::vector<RoutingResult> routing;
-  int first_divergent_layer = -1;  // the first layer with outputs outside tolerance, or -1
+  // The first layer whose outputs are outside tolerance or that has an unexplained flip; -1
+  // when there is none.
+  int first_divergent_layer = -1;
   bool pass = true;
 };
 
