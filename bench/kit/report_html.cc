@@ -105,8 +105,10 @@ std::string ResultsTable(const json& r) {
          "</td><td>" + Spread(p["model"]["per_second"], 1) + "</td><td>" +
          Spread(p["baseline"]["per_second"], 1) + "</td><td><b>" + Spread(p["speedup"], 2) +
          "</b></td><td>" + Spread(p["bound"], 2) + "</td><td>" +
-         Fixed(p["flops_bound"].get<double>(), 2) + "</td><td>" + lat(p["model"]["latency_ms"]) +
-         "</td><td>" + lat(p["baseline"]["latency_ms"]) + "</td></tr>";
+         (p["flops_bound"].is_null() ? std::string("none")
+                                     : Fixed(p["flops_bound"].get<double>(), 2)) +
+         "</td><td>" + lat(p["model"]["latency_ms"]) + "</td><td>" +
+         lat(p["baseline"]["latency_ms"]) + "</td></tr>";
   }
   return t +
          "</table><p class=\"dim\">Median [min&ndash;max] over repetitions; speedups are "

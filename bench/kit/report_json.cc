@@ -114,7 +114,8 @@ json PointJson(const Point& p) {
   }
   j["speedup"] = SummaryJson(p.speedup);
   j["bound"] = SummaryJson(p.bound);
-  j["flops_bound"] = p.flops_bound;
+  // null when the model is nothing but routed layers: then nothing bounds the speedup.
+  j["flops_bound"] = p.flops_bound > 0 ? json(p.flops_bound) : json(nullptr);
   j["latency_histogram"] = LatencyHistogram(p);
   return j;
 }
