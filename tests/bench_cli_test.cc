@@ -7,10 +7,12 @@
 #include <gtest/gtest.h>
 
 #include <cstdlib>
+#include <filesystem>
 #include <nlohmann/json.hpp>
 #include <regex>
 #include <sstream>
 #include <string>
+#include <tuple>
 #include <vector>
 
 #include "support/test_util.h"
@@ -124,6 +126,8 @@ void ExpectSaneResults(const json& r, size_t repeat) {
     }
     ExpectSummary(p["speedup"], at + " speedup");
     ExpectSummary(p["bound"], at + " bound");
+    // null only for models of nothing but routed layers, which these are not.
+    ASSERT_TRUE(p["flops_bound"].is_number()) << at;
     EXPECT_GT(p["flops_bound"].get<double>(), 0) << at;
   }
 }
@@ -326,6 +330,41 @@ TEST_F(BenchCli, ReportIsSelfContainedAndRendersInChromium) {
   // does not. Many colours: antialiased text and the charts' series.
   EXPECT_GT(m["non_white_fraction"].get<double>(), 0.03) << ink.output;
   EXPECT_GT(m["colours"].get<int>(), 50) << ink.output;
+}
+
+// bench/compare_torch.py runs the PyTorch reference (converter/python/sprig_torch) and sprig's
+// C API on the same weights and prints each ratio with the largest output difference, which
+// must be float32 rounding (the reference tests use atol 1e-6, rtol 1e-5; here 1e-4 absolute on
+// unit-scale outputs, since the script's reference runs in float32, not float64).
+TEST_F(BenchCli, CompareTorchRunsBothSidesOnTheSameWeights) {
+  const std::string build =
+      std::filesystem::path(testing::SprigCli()).parent_path().parent_path().string();
+  if (!std::filesystem::exists(build + "/lib/libsprig_c.so")) {
+    GTEST_SKIP() << "libsprig_c.so is not built (SPRIG_BUILD_BENCHMARKS=OFF); "
+                    "compare_torch.py needs it";
+  }
+  const std::string script = std::string(SPRIG_SOURCE_DIR) + "/bench/compare_torch.py";
+  for (auto [name, config, extra] : {std::tuple{"stack", kStackConfig, " --rows 16 --batch 1,8"},
+                                     std::tuple{"lm", kTransformerConfig, " --prompt-tokens 16"}}) {
+    const std::string json_path = dir_->File(std::string("compare-") + name + ".json");
+    testing::WriteFile(json_path, config);
+    auto r =
+        testing::Run("PYTHONPATH=" + Quote(std::string(SPRIG_SOURCE_DIR) + "/converter/python") +
+                     " " + testing::Python() + " " + Quote(script) + " " + Quote(json_path) +
+                     " --repeat 1 --build " + Quote(build) + extra);
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    // Each result line ends with the largest |difference|; one per batch size or sequence.
+    const std::regex line(R"(^\s*\d+\s.*\s(\d\.\d+e[-+]\d+)\s*$)");
+    size_t lines = 0;
+    std::istringstream out(r.output);
+    std::string text;
+    for (std::smatch m; std::getline(out, text);) {
+      if (!std::regex_match(text, m, line)) continue;
+      ++lines;
+      EXPECT_LT(std::stod(m[1]), 1e-4) << text;
+    }
+    EXPECT_EQ(lines, std::string(name) == "stack" ? 2u : 1u) << r.output;
+  }
 }
 
 }  // namespace

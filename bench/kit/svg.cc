@@ -118,13 +118,18 @@ std::string Decorate(const Axes& a, const Frame& f) {
 
 std::string Legend(const std::vector<Series>& series) {
   std::string s;
-  double x = kLeft + 8;
+  double x = kLeft + 8, y = kTop + 8;
   for (const Series& se : series) {
-    s += Line(x, kTop + 8, x + 18, kTop + 8,
+    const double width = 30 + 7.0 * static_cast<double>(se.name.size());
+    if (x + width > kWidth - kRight && x > kLeft + 8) {  // wrap onto a new line
+      x = kLeft + 8;
+      y += 16;
+    }
+    s += Line(x, y, x + 18, y,
               "stroke=\"" + se.color + "\" stroke-width=\"2.5\"" +
                   (se.dashed ? " stroke-dasharray=\"5 3\"" : ""));
-    s += Text(x + 22, kTop + 12, se.name, "start");
-    x += 30 + 7.0 * static_cast<double>(se.name.size());
+    s += Text(x + 22, y + 4, se.name, "start");
+    x += width;
   }
   return s;
 }
@@ -173,7 +178,7 @@ std::string LineChart(const Axes& a, const std::vector<Series>& series) {
   if (y1 < y0) y0 = 0, y1 = 1;
   if (x1 < x0) x0 = 0, x1 = 1;
   if (!a.x_categories.empty()) x0 = -0.5, x1 = static_cast<double>(a.x_categories.size()) - 0.5;
-  y1 += (y1 - y0) * 0.12 + 1e-12;  // room for the legend
+  y1 += (y1 - y0) * 0.2 + 1e-12;  // room for the legend
   const Frame f{x0, x1, y0, y1, a.log_x};
   std::string s = Open(a) + Decorate(a, f);
   for (const Series& se : series) {

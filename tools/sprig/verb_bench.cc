@@ -219,12 +219,16 @@ void PrintText(const nlohmann::json& r) {
                                   ? "batch " + std::to_string(p["batch"].get<size_t>())
                                   : p["phase"].get<std::string>();
     const auto& l = p["model"]["latency_ms"];
-    std::printf(
-        "%-7zu %-14s %24s %24s %20s %20s %7.2f %.3f/%.3f/%.3f\n", p["threads"].get<size_t>(),
-        point.c_str(), Spread(p["model"]["per_second"], "%.1f").c_str(),
-        Spread(p["baseline"]["per_second"], "%.1f").c_str(), Spread(p["speedup"], "%.2f").c_str(),
-        Spread(p["bound"], "%.2f").c_str(), p["flops_bound"].get<double>(),
-        l["median"].get<double>(), l["p95"].get<double>(), l["p99"].get<double>());
+    char flops_bound[32] = "none";
+    if (!p["flops_bound"].is_null()) {
+      std::snprintf(flops_bound, sizeof flops_bound, "%.2f", p["flops_bound"].get<double>());
+    }
+    std::printf("%-7zu %-14s %24s %24s %20s %20s %7s %.3f/%.3f/%.3f\n", p["threads"].get<size_t>(),
+                point.c_str(), Spread(p["model"]["per_second"], "%.1f").c_str(),
+                Spread(p["baseline"]["per_second"], "%.1f").c_str(),
+                Spread(p["speedup"], "%.2f").c_str(), Spread(p["bound"], "%.2f").c_str(),
+                flops_bound, l["median"].get<double>(), l["p95"].get<double>(),
+                l["p99"].get<double>());
   }
   std::printf("\n%-9s %12s %12s %14s %14s %12s %s\n", "side", "file", "params", "FLOPs/token",
               "resident", "first call", "records touched");
