@@ -121,10 +121,12 @@ void ExpectSaneResults(const json& r, size_t repeat) {
     const std::string at = p["phase"].get<std::string>() + "/" + p["batch"].dump();
     for (const char* side : kSides) {
       ExpectSummary(p[side]["per_second"], at + " " + side + " per_second");
+      ExpectSummary(p[side]["cpu_per_second"], at + " " + side + " cpu_per_second");
       ExpectSummary(p[side]["latency_ms"], at + " " + side + " latency_ms");
       EXPECT_EQ(p[side]["per_second"]["count"], repeat) << at;
     }
     ExpectSummary(p["speedup"], at + " speedup");
+    ExpectSummary(p["cpu_speedup"], at + " cpu_speedup");
     ExpectSummary(p["bound"], at + " bound");
     // null only for models of nothing but routed layers, which these are not.
     ASSERT_TRUE(p["flops_bound"].is_number()) << at;
@@ -214,8 +216,9 @@ TEST_F(BenchCli, FlopsFollowTheCostFormulas) {
 
 TEST_F(BenchCli, TransformerReportsPrefillAndDecode) {
   const json r =
-      Bench(Quote(*transformer_) + " --repeat 2 --prompt-tokens 12 --decode-tokens 10", "t");
+      Bench(Quote(*transformer_) + " --repeat 2 --prompt-tokens 12 --decode-tokens 10 --cold", "t");
   ASSERT_TRUE(r.is_object());
+  EXPECT_EQ(r["settings"]["cold"], true);
   for (const std::string& key : DocumentedKeys()) ExpectPath(r, key, "report");
   ASSERT_EQ(r["results"].size(), 2u);
   EXPECT_EQ(r["results"][0]["phase"], "prefill");

@@ -5,6 +5,7 @@
 #include <cinttypes>
 #include <cstdio>
 #include <cstring>
+#include <ctime>
 
 #include "bench/kit/models.h"
 #include "format/model_file.h"
@@ -18,6 +19,15 @@ using Clock = std::chrono::steady_clock;
 
 double Seconds(Clock::time_point a, Clock::time_point b) {
   return std::chrono::duration<double>(b - a).count();
+}
+
+// CPU time of the whole process (all its threads), in seconds. On a busy machine wall time
+// includes the time other programs held the CPU, and a long run absorbs more of it than a short
+// one; CPU time does not.
+double ProcessCpuSeconds() {
+  timespec t{};
+  clock_gettime(CLOCK_PROCESS_CPUTIME_ID, &t);
+  return static_cast<double>(t.tv_sec) + static_cast<double>(t.tv_nsec) * 1e-9;
 }
 
 // Samples of the memory curve per first pass: enough for a smooth line, few enough that reading
@@ -57,10 +67,11 @@ size_t CallsFor(const MeasureOptions& o, size_t batch) {
 
 // One side's run of a workload; `sample` is called after each step with units done so far.
 struct RunOut {
-  double seconds = 0;              // stack: all calls; transformer: prefill
-  double decode_seconds = 0;       // transformer
-  double first_ms = 0;             // the first call or the prefill
-  std::vector<double> latency_ms;  // per call (stack) or per decoded token
+  double seconds = 0;                              // stack: all calls; transformer: prefill
+  double decode_seconds = 0;                       // transformer
+  double cpu_seconds = 0, decode_cpu_seconds = 0;  // the same in process CPU time
+  double first_ms = 0;                             // the first call or the prefill
+  std::vector<double> latency_ms;                  // per call (stack) or per decoded token
 };
 
 Status RunRows(Session& s, const Inputs& in, size_t batch, size_t calls, RunOut* out,
@@ -68,6 +79,7 @@ Status RunRows(Session& s, const Inputs& in, size_t batch, size_t calls, RunOut*
   const ModelConfig& c = s.model().config();
   std::vector<float> y(batch * c.output_dim());
   const auto start = Clock::now();
+  const double cpu = ProcessCpuSeconds();
   for (size_t i = 0; i < calls; ++i) {
     const auto t0 = Clock::now();
     SPRIG_RETURN_IF_ERROR(s.forward(in.pool.data() + i * batch * c.input_dim, batch, y.data()));
@@ -77,6 +89,7 @@ Status RunRows(Session& s, const Inputs& in, size_t batch, size_t calls, RunOut*
     if (sample) sample(i, (i + 1) * batch);
   }
   out->seconds = Seconds(start, Clock::now());
+  out->cpu_seconds = ProcessCpuSeconds() - cpu;
   return Status::Ok();
 }
 
@@ -85,11 +98,14 @@ Status RunSequence(Session& s, const Inputs& in, RunOut* out,
   std::vector<float> logits(s.model().config().vocab_size);
   s.reset();
   auto t0 = Clock::now();
+  double cpu = ProcessCpuSeconds();
   SPRIG_RETURN_IF_ERROR(s.append_tokens(in.prompt.data(), in.prompt.size(), logits.data()));
   out->seconds = Seconds(t0, Clock::now());
+  out->cpu_seconds = ProcessCpuSeconds() - cpu;
   out->first_ms = out->seconds * 1e3;
   if (sample) sample(0, in.prompt.size());
   const auto start = Clock::now();
+  cpu = ProcessCpuSeconds();
   for (size_t i = 0; i < in.next.size(); ++i) {
     t0 = Clock::now();
     SPRIG_RETURN_IF_ERROR(s.append_token(in.next[i], logits.data()));
@@ -97,6 +113,7 @@ Status RunSequence(Session& s, const Inputs& in, RunOut* out,
     if (sample) sample(i + 1, in.prompt.size() + i + 1);
   }
   out->decode_seconds = Seconds(start, Clock::now());
+  out->decode_cpu_seconds = ProcessCpuSeconds() - cpu;
   return Status::Ok();
 }
 
@@ -285,10 +302,12 @@ class Runner {
     }
   }
 
-  size_t TotalSteps(const std::vector<Point>& points) const {
+  // Steps reported to the progress callback: the first passes, the warm-up and every
+  // repetition, one per side and point run.
+  void SetTotalSteps(const std::vector<Point>& points) {
     size_t per_round = 0;
     for (const Point& p : points) per_round += p.phase == "decode" ? 0 : kSides;
-    return kSides + per_round * (o_.repeat + 1);
+    total_ = kSides + per_round * (o_.repeat + 1);
   }
 
  private:
@@ -304,10 +323,12 @@ class Runner {
   static void Record(const RunOut& out, size_t s, Point* p, Point* decode) {
     SideTiming& t = p->side[s];
     t.seconds.push_back(out.seconds);
+    t.cpu_seconds.push_back(out.cpu_seconds);
     if (p->phase == "prefill") {
       t.latency_ms.push_back(out.seconds * 1e3);
       SideTiming& d = decode->side[s];
       d.seconds.push_back(out.decode_seconds);
+      d.cpu_seconds.push_back(out.decode_cpu_seconds);
       d.latency_ms.insert(d.latency_ms.end(), out.latency_ms.begin(), out.latency_ms.end());
     } else {
       t.latency_ms.insert(t.latency_ms.end(), out.latency_ms.begin(), out.latency_ms.end());
@@ -319,16 +340,12 @@ class Runner {
     if (o_.progress) o_.progress(done_, total_);
   }
 
- public:
-  size_t total_ = 0;
-
- private:
   const MeasureOptions& o_;
   const ModelConfig& config_;
   std::shared_ptr<const Model> models_[kSides];
   std::vector<std::vector<std::unique_ptr<Session>>> sessions_;  // [thread count][side]
   Inputs inputs_;
-  size_t done_ = 0;
+  size_t done_ = 0, total_ = 0;
 };
 
 // Rates, latency summaries and the paired ratios of every point.
@@ -337,17 +354,22 @@ void SummarizePoints(Measurement* m) {
     for (size_t s = 0; s < kSides; ++s) {
       SideTiming& t = p.side[s];
       std::vector<double> rate;
+      std::vector<double> cpu_rate;
       for (double sec : t.seconds) rate.push_back(static_cast<double>(p.units) / sec);
+      for (double sec : t.cpu_seconds) cpu_rate.push_back(static_cast<double>(p.units) / sec);
+      t.cpu_per_second = Summarize(cpu_rate);
       t.per_second = Summarize(rate);
       t.latency = Summarize(t.latency_ms);
     }
-    std::vector<double> speedup, bound;
+    std::vector<double> speedup, bound, cpu_speedup;
     for (size_t r = 0; r < p.side[kModel].seconds.size(); ++r) {
       speedup.push_back(p.side[kBaseline].seconds[r] / p.side[kModel].seconds[r]);
       bound.push_back(p.side[kBaseline].seconds[r] / p.side[kFloor].seconds[r]);
+      cpu_speedup.push_back(p.side[kBaseline].cpu_seconds[r] / p.side[kModel].cpu_seconds[r]);
     }
     p.speedup = Summarize(speedup);
     p.bound = Summarize(bound);
+    p.cpu_speedup = Summarize(cpu_speedup);
     const SideFlops* model = FlopsAt(m->sides[kModel], p.phase);
     const SideFlops* baseline = FlopsAt(m->sides[kBaseline], p.phase);
     if (model && baseline) {
@@ -404,7 +426,7 @@ Result<Measurement> Measure(const std::shared_ptr<const Model> (&models)[kSides]
   }
   m.points = MakePoints(models[kModel]->config(), o);
   Runner runner(models, o);
-  runner.total_ = runner.TotalSteps(m.points);
+  runner.SetTotalSteps(m.points);
   SPRIG_RETURN_IF_ERROR(runner.Open());
   SPRIG_RETURN_IF_ERROR(runner.FirstPass(&m));
   SPRIG_RETURN_IF_ERROR(runner.WarmUp(m.points));

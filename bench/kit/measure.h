@@ -71,10 +71,12 @@ struct SideInfo {
 
 // Time of one side at one point over the repetitions.
 struct SideTiming {
-  std::vector<double> seconds;     // per repetition: the whole workload of the point
-  std::vector<double> latency_ms;  // every call (stack) or decoded token (decode), all reps
-  Summary per_second;              // rows or tokens per second over repetitions
-  Summary latency;                 // of latency_ms
+  std::vector<double> seconds;      // per repetition: the whole workload of the point
+  std::vector<double> cpu_seconds;  // the same in process CPU time
+  std::vector<double> latency_ms;   // every call (stack) or decoded token (decode), all reps
+  Summary per_second;               // rows or tokens per second over repetitions
+  Summary cpu_per_second;           // rows or tokens per second of process CPU time
+  Summary latency;                  // of latency_ms
 };
 
 // One measured configuration: a thread count and a phase (stack rows at a batch size,
@@ -87,6 +89,7 @@ struct Point {
   SideTiming side[kSides];
   Summary speedup;         // baseline / model, paired per repetition
   Summary bound;           // baseline / floor, paired: the measured whole-model bound
+  Summary cpu_speedup;     // baseline / model in process CPU time, paired
   double flops_bound = 0;  // baseline FLOPs / (model FLOPs - routed layers' FLOPs)
 };
 

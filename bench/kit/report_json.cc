@@ -109,11 +109,13 @@ json PointJson(const Point& p) {
   for (size_t s = 0; s < kSides; ++s) {
     const SideTiming& t = p.side[s];
     j[SideName(s)] = {{"per_second", SummaryJson(t.per_second)},
+                      {"cpu_per_second", SummaryJson(t.cpu_per_second)},
                       {"latency_ms", SummaryJson(t.latency)},
                       {"unit_latency_ms", SummaryJson(t.latency, 1.0 / p.batch)}};
   }
   j["speedup"] = SummaryJson(p.speedup);
   j["bound"] = SummaryJson(p.bound);
+  j["cpu_speedup"] = SummaryJson(p.cpu_speedup);
   // null when the model is nothing but routed layers: then nothing bounds the speedup.
   j["flops_bound"] = p.flops_bound > 0 ? json(p.flops_bound) : json(nullptr);
   j["latency_histogram"] = LatencyHistogram(p);
