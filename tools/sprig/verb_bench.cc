@@ -3,12 +3,13 @@
 //                   [--json FILE] [--report FILE.html]
 //
 // Speed and memory of a model against a baseline, measured interleaved in one process (the code
-// is in bench/kit). The baseline is another .sprig file or the model's dense twin, built in
-// memory: its config with every routed layer made dense at the same total width, the
+// is in bench/kit). The baseline is another .sprig file or the model's dense twin, built for
+// the run: its config with every routed layer made dense at the same total width, the
 // model's own weights for everything else, packed into an unlinked temporary file so it is
 // paged in from storage like any model.
 #include <unistd.h>
 
+#include <chrono>
 #include <cstdio>
 #include <memory>
 #include <string>
@@ -40,6 +41,10 @@ class Bar {
   explicit Bar(bool on) : on_(on && isatty(STDERR_FILENO)) {}
   void Update(size_t done, size_t total) {
     if (!on_ || total == 0) return;
+    // Redraw at most ten times a second (and at the end): steps can take microseconds.
+    const auto now = std::chrono::steady_clock::now();
+    if (done < total && shown_ && now - last_ < std::chrono::milliseconds(100)) return;
+    last_ = now;
     const size_t width = 30, filled = width * done / total;
     std::fprintf(stderr, "\rbench [%s%s] %3zu%%  step %zu of %zu", std::string(filled, '#').c_str(),
                  std::string(width - filled, '.').c_str(), 100 * done / total, done, total);
@@ -52,6 +57,7 @@ class Bar {
 
  private:
   bool on_, shown_ = false;
+  std::chrono::steady_clock::time_point last_;
 };
 
 Status CheckArgs(const BenchArgs& a, const ModelConfig& c) {
@@ -288,8 +294,10 @@ Verb AddBench(CLI::App& app) {
       "Measure a model's speed and memory against a dense baseline, interleaved in one run.");
   c->add_option("MODEL", a->model, "the .sprig file")->required();
   auto* baseline = c->add_option("--baseline", a->baseline, "another .sprig file to compare with");
-  auto* twin = c->add_flag("--dense-twin", a->dense_twin,
-                           "compare with the model's dense twin, built in memory (the default)");
+  auto* twin =
+      c->add_flag("--dense-twin", a->dense_twin,
+                  "compare with the model's dense twin, built from its config for this run (the "
+                  "default)");
   baseline->excludes(twin);
   c->add_option("--rows", a->rows, "stack: rows per repetition at each batch size")
       ->capture_default_str()
