@@ -128,11 +128,14 @@ std::string SpeedupChart(const json& r) {
   a.y_reference = 1;
   std::vector<svg::Series> series;
   for (size_t ti = 0; ti < threads.size(); ++ti) {
-    svg::Series s, b;
+    svg::Series s, b, c;
     s.name = "measured, " + std::to_string(threads[ti]) + " thread" + (threads[ti] > 1 ? "s" : "");
     b.name = "bound, " + std::to_string(threads[ti]) + (threads[ti] > 1 ? " threads" : " thread");
-    s.color = b.color = kThreadColors[ti % 4];
+    c.name =
+        "CPU time, " + std::to_string(threads[ti]) + (threads[ti] > 1 ? " threads" : " thread");
+    s.color = b.color = c.color = kThreadColors[ti % 4];
     b.dashed = true;
+    c.dotted = true;
     std::vector<json> points;
     for (const json& p : r["results"]) {
       if (p["threads"] == threads[ti]) points.push_back(p);
@@ -153,8 +156,11 @@ std::string SpeedupChart(const json& r) {
       s.high.push_back(p["speedup"]["max"]);
       b.x.push_back(static_cast<double>(i));
       b.y.push_back(p["bound"]["median"]);
+      c.x.push_back(static_cast<double>(i));
+      c.y.push_back(p["cpu_speedup"]["median"]);
     }
     series.push_back(s);
+    series.push_back(c);
     series.push_back(b);
   }
   return svg::LineChart(a, series);

@@ -116,6 +116,11 @@ std::string Decorate(const Axes& a, const Frame& f) {
   return s;
 }
 
+std::string Dash(const Series& se) {
+  if (se.dotted) return " stroke-dasharray=\"1.5 3\"";
+  return se.dashed ? " stroke-dasharray=\"5 3\"" : "";
+}
+
 std::string Legend(const std::vector<Series>& series) {
   std::string s;
   double x = kLeft + 8, y = kTop + 8;
@@ -125,9 +130,7 @@ std::string Legend(const std::vector<Series>& series) {
       x = kLeft + 8;
       y += 16;
     }
-    s += Line(x, y, x + 18, y,
-              "stroke=\"" + se.color + "\" stroke-width=\"2.5\"" +
-                  (se.dashed ? " stroke-dasharray=\"5 3\"" : ""));
+    s += Line(x, y, x + 18, y, "stroke=\"" + se.color + "\" stroke-width=\"2.5\"" + Dash(se));
     s += Text(x + 22, y + 4, se.name, "start");
     x += width;
   }
@@ -195,7 +198,7 @@ std::string LineChart(const Axes& a, const std::vector<Series>& series) {
       }
     }
     s += "<polyline fill=\"none\" stroke=\"" + se.color + "\" stroke-width=\"2\" points=\"" +
-         points + "\"" + (se.dashed ? " stroke-dasharray=\"5 3\"" : "") + "/>";
+         points + "\"" + Dash(se) + "/>";
   }
   return s + Legend(series) + "</svg>";
 }

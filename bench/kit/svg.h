@@ -13,6 +13,7 @@ struct Series {
   std::vector<double> x, y;
   std::vector<double> low, high;  // optional error bars (same length as y)
   bool dashed = false;
+  bool dotted = false;
   bool markers = true;
 };
 
