@@ -15,15 +15,13 @@
 #include <benchmark/benchmark.h>
 
 #include <cstdio>
-#include <filesystem>
 #include <map>
 #include <memory>
 #include <string>
 #include <vector>
 
+#include "bench/kit/models.h"
 #include "converter/config/config_json.h"
-#include "converter/config/tensor_match.h"
-#include "converter/pack/packer.h"
 #include "converter/synth/synth.h"
 #include "kernels/kernels.h"
 #include "sprig/session.h"
@@ -69,30 +67,18 @@ const std::vector<float>& Pool() {
   return pool;
 }
 
-// Packs a synthesized single-layer model into the temp dir once per case and opens it.
+// A synthesized single-layer model, packed into an unlinked temporary file once per case.
 std::shared_ptr<const Model> ModelFor(const Case& c) {
   static std::map<std::string, std::shared_ptr<const Model>> cache;
   auto it = cache.find(c.name);
   if (it != cache.end()) return it->second;
   const std::string text = R"({"family":"stack","input_dim":768,"layers":[)" + c.layer + "]}";
   auto config = convert::ParseConfig(text, c.name);
-  if (!config.ok()) {
-    std::fprintf(stderr, "%s\n", config.status().message().c_str());
+  auto model = config.ok() ? BuildUnlinkedModel(*config, {}) : config.status();
+  if (!model.ok()) {
+    std::fprintf(stderr, "%s\n", model.status().message().c_str());
     std::abort();
   }
-  const std::vector<io::NdArray> weights = convert::SynthesizeWeights(*config, 1);
-  auto matched = convert::MatchTensors(*config, weights, c.name, {});
-  const std::string path =
-      (std::filesystem::temp_directory_path() / ("sprig-bench-" + c.name + ".sprig")).string();
-  convert::PackOptions options;
-  options.overwrite = true;
-  auto packed = convert::PackTensors(*config, *matched, path, options);
-  if (!packed.ok()) {
-    std::fprintf(stderr, "%s\n", packed.status().message().c_str());
-    std::abort();
-  }
-  auto model = Model::open(path);
-  std::remove(path.c_str());  // the mapping stays valid
   cache[c.name] = *model;
   return *model;
 }

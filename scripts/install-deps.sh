@@ -10,6 +10,7 @@ PACKAGES=(
   libgtest-dev libgmock-dev googletest libbenchmark-dev libopenblas-dev
   python3-numpy python3-torch python3-sklearn
   clang clang-format
+  chromium
 )
 
 missing=()
