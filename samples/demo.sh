@@ -26,7 +26,7 @@ for model in notes notes-f16; do
 done
 
 step "3. continue a note (the text comes from a small sample model and is often wrong)"
-"$SPRIG" generate "$OUT/notes.sprig" --prompt "Day 41 at Brindle Terrace: " --count 160 \
+"$SPRIG" generate "$OUT/notes.sprig" --prompt "Day 41 at Brindle Terrace: " --count 96 \
   --temperature 0.6 --seed 3
 echo
 
