@@ -8,8 +8,8 @@
 The PyTorch side is the reference model of converter/python/sprig_torch in hard mode
 (`forward(x, hard=True)`), float32, eager, `torch.set_num_threads(1)`, under `torch.no_grad()`.
 The sprig side is the same weights packed with `sprig pack` and run through the C API
-(build/lib/libsprig.so, loaded with ctypes) in a one-thread session. Without --weights, the
-weights are `sprig_torch.export.random_model(config, seed)`.
+(build/lib/libsprig.so, through the ctypes module sprig_native) in a one-thread session.
+Without --weights, the weights are `sprig_torch.export.random_model(config, seed)`.
 
 Each repetition runs PyTorch, then sprig, on the same inputs (stack: --rows random N(0, 1) rows
 in calls of each --batch size; transformer: one sequence of --prompt-tokens random tokens
@@ -20,7 +20,6 @@ outputs is printed as a check that both computed the same thing.
 """
 
 import argparse
-import ctypes
 import json
 import os
 import subprocess
@@ -31,60 +30,11 @@ import time
 import numpy as np
 import torch
 
+import sprig_native
 from sprig_torch.export import random_model, weight_arrays
 from sprig_torch.models import StackModel, build_model
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-
-
-def load_library(path):
-    lib = ctypes.CDLL(path)
-    p, sz, err = ctypes.c_void_p, ctypes.c_size_t, ctypes.POINTER(ctypes.c_char_p)
-    lib.sprig_model_open.argtypes = [ctypes.c_char_p, ctypes.POINTER(p), err]
-    lib.sprig_session_create.argtypes = [p, sz, ctypes.POINTER(p), err]
-    lib.sprig_session_forward.argtypes = [p, p, sz, p, err]
-    lib.sprig_session_forward_tokens.argtypes = [p, p, sz, sz, p, err]
-    lib.sprig_session_kernel_path.argtypes = [p]
-    lib.sprig_session_kernel_path.restype = ctypes.c_char_p
-    lib.sprig_session_destroy.argtypes = [p]
-    lib.sprig_model_close.argtypes = [p]
-    return lib
-
-
-def check(code, errptr, what):
-    if code != 0:
-        raise SystemExit(f"sprig: {what}: {errptr.value.decode() if errptr.value else code}")
-
-
-class SprigModel:
-    """A model and a one-thread session through the C API."""
-
-    def __init__(self, lib, path):
-        self.lib = lib
-        self.model, self.session = ctypes.c_void_p(), ctypes.c_void_p()
-        err = ctypes.c_char_p()
-        check(lib.sprig_model_open(path.encode(), ctypes.byref(self.model), ctypes.byref(err)),
-              err, "open " + path)
-        check(lib.sprig_session_create(self.model, 1, ctypes.byref(self.session),
-                                       ctypes.byref(err)), err, "session")
-
-    def forward(self, x, out):
-        err = ctypes.c_char_p()
-        check(self.lib.sprig_session_forward(self.session, x.ctypes.data, x.shape[0],
-                                             out.ctypes.data, ctypes.byref(err)), err, "forward")
-
-    def forward_tokens(self, tokens, out):
-        err = ctypes.c_char_p()
-        check(self.lib.sprig_session_forward_tokens(self.session, tokens.ctypes.data, 1,
-                                                    tokens.shape[0], out.ctypes.data,
-                                                    ctypes.byref(err)), err, "forward_tokens")
-
-    def kernels(self):
-        return self.lib.sprig_session_kernel_path(self.session).decode()
-
-    def close(self):
-        self.lib.sprig_session_destroy(self.session)
-        self.lib.sprig_model_close(self.model)
 
 
 def spread(values, digits):
@@ -125,7 +75,7 @@ def compare_stack(model, sprig, args, rng):
 
         def run_sprig():
             for a, b in calls:
-                sprig.forward(x[a:b], y[a:b])
+                sprig.forward(x[a:b], out=y[a:b])
 
         run_torch(), run_sprig()  # warm-up
         t_torch, t_sprig = [], []
@@ -153,7 +103,7 @@ def compare_transformer(model, sprig, args, rng):
         tt = torch.from_numpy(tokens.astype(np.int64))[None, :]
         y = np.empty(n * out_per_token, dtype=np.float32)
         a = timed(lambda: model(tt, hard=True))
-        b = timed(lambda: sprig.forward_tokens(tokens, y))
+        b = timed(lambda: sprig.forward_tokens(tokens, out=y))
         if r:
             t_torch.append(a)
             t_sprig.append(b)
@@ -192,10 +142,12 @@ def main(argv=None):
             packed = os.path.join(tmp, "model.sprig")
             subprocess.run([os.path.join(args.build, "bin", "sprig"), "pack", args.config,
                             weights, "-o", packed], check=True, stdout=subprocess.DEVNULL)
-            sprig = SprigModel(load_library(os.path.join(args.build, "lib", "libsprig.so")),
-                               packed)
+            os.environ.setdefault("SPRIG_LIBRARY",
+                                  os.path.join(args.build, "lib", "libsprig.so"))
+            sprig_model = sprig_native.Model(packed)
+            sprig = sprig_native.Session(sprig_model, threads=1)
             print(f"{args.config}: PyTorch {torch.__version__} eager, hard mode, 1 thread; "
-                  f"sprig kernels {sprig.kernels()}, 1 thread; {args.repeat} repetitions, "
+                  f"sprig kernels {sprig.kernel_path}, 1 thread; {args.repeat} repetitions, "
                   f"interleaved; median [min-max]")
             rng = np.random.default_rng(args.seed)
             if isinstance(model, StackModel):
@@ -203,6 +155,7 @@ def main(argv=None):
             else:
                 compare_transformer(model, sprig, args, rng)
             sprig.close()
+            sprig_model.close()
     return 0
 
 
