@@ -16,13 +16,15 @@ namespace {
 using testing::Quote;
 
 // Every stack layer kind: dense (plain and gated), tree leaf (gated), tree path deep enough for
-// two record groups (depth 9: hot levels 2, groups at levels 2 and 6), experts (gated).
+// two record groups (depth 9: hot levels 2, groups at levels 2 and 6), tree path small enough
+// to be all hot (depth 2: no record set), experts (gated).
 constexpr const char* kStack = R"({"family":"stack","input_dim":13,"layers":[
  {"kind":"dense","width":12,"activation":"relu","out":11},
  {"kind":"dense","width":10,"activation":"silu","gated":true,"out":12},
  {"kind":"tree","mode":"leaf","depth":3,"leaf_width":5,"activation":"gelu","gated":true,"out":9},
  {"kind":"tree","mode":"path","depth":9,"activation":"gelu_tanh","out":14},
  {"kind":"experts","experts":5,"top_k":2,"width":6,"activation":"silu","gated":true,"out":7},
+ {"kind":"tree","mode":"path","depth":2,"activation":"relu","out":6},
  {"kind":"tree","mode":"leaf","depth":2,"leaf_width":3,"activation":"relu","bias":false,"out":4}]})";
 
 constexpr const char* kTransformer = R"({"family":"transformer","vocab_size":64,"d_model":16,
@@ -43,6 +45,7 @@ struct Case {
   const char* name;
   const char* config;
   const char* dtype;
+  bool float64_source = false;  // weights rewritten as float64 before packing
 };
 
 class SchemaDoc : public ::testing::TestWithParam<Case> {};
@@ -55,6 +58,21 @@ TEST_P(SchemaDoc, PackedFileAgreesWithTheDocument) {
   const std::string cli = testing::SprigCli();
   auto r = testing::Run(cli + " synth " + Quote(json) + " -o " + Quote(npz) + " --seed 3");
   ASSERT_EQ(r.exit_code, 0) << r.output;
+  if (c.float64_source) {
+    // The document: float64 sources are rounded to f16 once, directly. Values off the float32
+    // grid, and one element per tensor, 1 + 2^-11 + 2^-40, that rounds up to 1 + 2^-10 directly
+    // but to 1 through float32 (tie to even), make double rounding visible; the script compares
+    // with NumPy's float64 -> float16 conversion, which rounds once.
+    r = testing::RunPython(
+        "import sys, numpy as np; a = np.load(sys.argv[1]); out = {}\n"
+        "for k in a.files:\n"
+        "    v = a[k].astype(np.float64) * (1 + 2.0**-30)\n"
+        "    v.flat[0] = 1 + 2.0**-11 + 2.0**-40\n"
+        "    out[k] = v\n"
+        "np.savez(sys.argv[1], **out)",
+        {npz});
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+  }
   r = testing::Run(cli + " pack " + Quote(json) + " " + Quote(npz) + " -o " + Quote(model) +
                    " --dtype " + c.dtype);
   ASSERT_EQ(r.exit_code, 0) << r.output;
@@ -64,15 +82,15 @@ TEST_P(SchemaDoc, PackedFileAgreesWithTheDocument) {
   std::printf("[ %s %s ] %s", c.name, c.dtype, r.output.c_str());
 }
 
-INSTANTIATE_TEST_SUITE_P(SchemaDocModels, SchemaDoc,
-                         ::testing::Values(Case{"stack", kStack, "f32"},
-                                           Case{"stack", kStack, "f16"},
-                                           Case{"stack", kStack, "bf16"},
-                                           Case{"transformer", kTransformer, "f32"},
-                                           Case{"transformer", kTransformer, "f16"}),
-                         [](const ::testing::TestParamInfo<Case>& info) {
-                           return std::string(info.param.name) + "_" + info.param.dtype;
-                         });
+INSTANTIATE_TEST_SUITE_P(
+    SchemaDocModels, SchemaDoc,
+    ::testing::Values(Case{"stack", kStack, "f32"}, Case{"stack", kStack, "f16"},
+                      Case{"stack", kStack, "bf16"}, Case{"transformer", kTransformer, "f32"},
+                      Case{"transformer", kTransformer, "f16"},
+                      Case{"stack64", kStack, "f16", true}, Case{"stack64", kStack, "f32", true}),
+    [](const ::testing::TestParamInfo<Case>& info) {
+      return std::string(info.param.name) + "_" + info.param.dtype;
+    });
 
 // Negative controls: the script must notice damage, naming the rule the damage breaks.
 class SchemaDocControl : public ::testing::Test {

@@ -23,6 +23,7 @@ import struct
 import subprocess
 import sys
 import tempfile
+import zipfile
 import zlib
 
 import numpy as np
@@ -149,6 +150,10 @@ def main():
         weights = np.load(npz_path)
     except OSError as e:
         print(f"schema_layout_check: cannot read {e.filename}: {e.strerror}", file=sys.stderr)
+        sys.exit(2)
+    except (ValueError, zipfile.BadZipFile) as e:
+        print(f"schema_layout_check: {npz_path} is not a NumPy .npz archive ({e})",
+              file=sys.stderr)
         sys.exit(2)
     with tempfile.TemporaryDirectory() as folder:
         try:
