@@ -65,7 +65,8 @@ def scalar_slots(folder, table):
     with open(os.path.join(folder, "sprig", "fb", table + ".py")) as f:
         src = f.read()
     pattern = (r"def (\w+)\(self\):\s+o = flatbuffers\.number_types\.UOffsetTFlags\.py_type"
-               r"\(self\._tab\.Offset\((\d+)\)\)\s+if o != 0:\s+return (?:bool\()?self\._tab\.Get\(")
+               r"\(self\._tab\.Offset\((\d+)\)\)\s+if o != 0:\s+"
+               r"return (?:bool\()?self\._tab\.Get\(")  # bools are wrapped in bool()
     return [(m.group(1), int(m.group(2))) for m in re.finditer(pattern, src)]
 
 
