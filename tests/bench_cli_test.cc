@@ -340,11 +340,12 @@ TEST_F(BenchCli, ReportIsSelfContainedAndRendersInChromium) {
 // must be float32 rounding (the reference tests use atol 1e-6, rtol 1e-5; here 1e-4 absolute on
 // unit-scale outputs, since the script's reference runs in float32, not float64).
 TEST_F(BenchCli, CompareTorchRunsBothSidesOnTheSameWeights) {
+  // The build folder from the paths CMake gives the tests (SprigCli() may be quoted and
+  // prefixed with an emulator).
   const std::string build =
-      std::filesystem::path(testing::SprigCli()).parent_path().parent_path().string();
-  if (!std::filesystem::exists(build + "/lib/libsprig.so")) {
-    GTEST_FAIL() << "libsprig.so, which compare_torch.py loads, is missing from " << build;
-  }
+      std::filesystem::path(SPRIG_CLI_PATH).parent_path().parent_path().string();
+  ASSERT_TRUE(std::filesystem::exists(SPRIG_SHARED_LIBRARY))
+      << "libsprig.so, which compare_torch.py loads, is missing: " << SPRIG_SHARED_LIBRARY;
   const std::string script = std::string(SPRIG_SOURCE_DIR) + "/bench/compare_torch.py";
   for (auto [name, config, extra] : {std::tuple{"stack", kStackConfig, " --rows 16 --batch 1,8"},
                                      std::tuple{"lm", kTransformerConfig, " --prompt-tokens 16"}}) {
