@@ -91,7 +91,7 @@ std::shared_ptr<const Model> Build(const Variant& v, DType dtype) {
                                .string();
   convert::PackOptions options;
   options.overwrite = true;
-  options.dtype = dtype;
+  options.storage = {dtype, dtype, dtype};
   auto packed = convert::PackTensors(*config, *matched, path, options);
   if (!packed.ok()) Die(v.name, packed.status());
   auto model = Model::open(path);

@@ -44,12 +44,14 @@ float PathTreeLayer::Step(const kernels::KernelTable& k, uint64_t node, const fl
                           bool prefetch_child) const {
   const format::ModelFile& f = binder_.file();
   const float bias = bias_ ? *reinterpret_cast<const float*>(f.Row(*bias_, node)) : 0.0f;
-  const float a = kernels::Dot(k, weight_->dtype, x, f.Row(*weight_, node), in_) + bias;
+  const float a =
+      kernels::Dot(k, weight_->dtype, x, f.Row(*weight_, node), in_, f.RowScales(*weight_, node)) +
+      bias;
   // The child is known before this neuron's output row is added: start loading the child's
   // rows now, so they arrive while the axpy below streams the current output row.
   if (prefetch_child) Prefetch(2 * node + 1 + (a > 0.0f ? 1 : 0));
   kernels::Axpy(k, out_rows_->dtype, ActivateScalar(config_.activation, a), f.Row(*out_rows_, node),
-                y, out_);
+                y, out_, f.RowScales(*out_rows_, node));
   return a;
 }
 
