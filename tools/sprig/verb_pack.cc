@@ -69,9 +69,14 @@ int RunPack(const PackArgs& a) {
   const double mbps = summary->seconds > 0
                           ? static_cast<double>(summary->input_bytes) / summary->seconds / 1e6
                           : 0.0;
-  std::printf("wrote %s: %s (%s of %s tensor data) in %.2f s, %.0f MB/s of input\n", a.out.c_str(),
+  const bool mixed = !a.dtype_nodes.empty() || !a.dtype_records.empty() || !a.dtype_dense.empty();
+  const std::string what = mixed ? std::string("tensor data: nodes ") + ToString(storage->nodes) +
+                                       ", records " + ToString(storage->records) + ", dense " +
+                                       ToString(storage->dense)
+                                 : a.dtype + " tensor data";
+  std::printf("wrote %s: %s (%s of %s) in %.2f s, %.0f MB/s of input\n", a.out.c_str(),
               HumanBytes(summary->file_size).c_str(), HumanBytes(summary->tensor_bytes).c_str(),
-              a.dtype.c_str(), summary->seconds, mbps);
+              what.c_str(), summary->seconds, mbps);
   PrintStorageErrors(summary->errors);
   return kExitOk;
 }
