@@ -52,5 +52,6 @@ Verb AddSynth(CLI::App& app);
 Verb AddRun(CLI::App& app);
 Verb AddRoutes(CLI::App& app);
 Verb AddGenerate(CLI::App& app);
+Verb AddVerify(CLI::App& app);
 
 }  // namespace sprig::cli

@@ -17,8 +17,9 @@ int main(int argc, char** argv) {
   app.require_subcommand(1);
   app.set_version_flag("--version", "sprig " SPRIG_VERSION);
   std::vector<sprig::cli::Verb> verbs = {
-      sprig::cli::AddPack(app), sprig::cli::AddInspect(app), sprig::cli::AddSynth(app),
-      sprig::cli::AddRun(app),  sprig::cli::AddRoutes(app),  sprig::cli::AddGenerate(app),
+      sprig::cli::AddPack(app),   sprig::cli::AddInspect(app), sprig::cli::AddSynth(app),
+      sprig::cli::AddRun(app),    sprig::cli::AddRoutes(app),  sprig::cli::AddGenerate(app),
+      sprig::cli::AddVerify(app),
   };
   try {
     app.parse(argc, argv);

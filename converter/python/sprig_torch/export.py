@@ -4,10 +4,15 @@
 
 * ``config.json``  the model's config (a stack's layers with their ``in``/``out`` spelled out);
 * ``weights.npz``  the state dict as float32 arrays under the tensor names of the input contract in README.md;
-* ``reference.npz`` ``inputs`` (as given), ``outputs`` (hard mode, float32) and, for each
-  routed layer i, ``routes.layer{i}`` (int32: [tokens] leaves or [tokens, k] experts) and
-  ``margins.layer{i}`` (float32 [tokens]: how far each row was from another route; see
-  sprig_torch.layers).
+* ``reference.npz`` ``inputs`` (as given), ``outputs`` (hard mode, float32); for every
+  layer i (stack layer or transformer block) ``layer_outputs.layer{i}`` (float32 [rows, out]:
+  the layer's output, or the residual stream after the block); and for each routed layer i
+  ``routes.layer{i}`` (int32: [rows] leaves or [rows, k] experts), ``margins.layer{i}``
+  (float32 [rows]: how far each row was from another route; see sprig_torch.layers),
+  ``layer_inputs.layer{i}`` (float32 [rows, in]: what the routed layer read) and
+  ``margin_scales.layer{i}`` / ``margin_norms.layer{i}`` (float32 [rows]: how far weight
+  rounding and input error can move that margin; see the layers' ``margin_bounds``). Rows of a
+  transformer are its tokens in batch-major order. `sprig verify` reads all of these.
 
 The reference outputs are computed in float64 from the float32 weights, so they are the exact
 model of the stored numbers, not one float32 evaluation order.
@@ -61,18 +66,38 @@ def weight_arrays(model, rename=None):
     return out
 
 
+def _routed_layers(model):
+    """The feed-forward module of every layer: stack layers, or each block's ffn."""
+    if isinstance(model, StackModel):
+        return list(model.layers)
+    return [block.ffn for block in model.blocks]
+
+
+def _f32(t):
+    return t.to(torch.float32).cpu().numpy()
+
+
 def reference_arrays(model, inputs):
-    """`inputs`, hard-mode `outputs` and per-layer routes/margins, as NumPy arrays."""
+    """The arrays of reference.npz (see the module docstring) for `inputs`."""
     inputs = np.asarray(inputs)
     reference = copy.deepcopy(model).to(torch.float64).eval()
     x = torch.from_numpy(inputs)
     x = x.to(torch.float64) if x.is_floating_point() else x.to(torch.int64)
+    trace = {}
     with torch.no_grad():
-        y, routes, margins = reference(x, hard=True, return_routes=True)
-    arrays = {"inputs": inputs, "outputs": y.to(torch.float32).numpy()}
-    for i in sorted(routes):
-        arrays[f"routes.layer{i}"] = routes[i].to(torch.int32).numpy()
-        arrays[f"margins.layer{i}"] = margins[i].to(torch.float32).numpy()
+        y, routes, margins = reference(x, hard=True, return_routes=True, trace=trace)
+        ffns = _routed_layers(reference)
+        arrays = {"inputs": inputs, "outputs": _f32(y)}
+        for i in sorted(trace):
+            arrays[f"layer_outputs.layer{i}"] = _f32(trace[i][1])
+        for i in sorted(routes):
+            layer_input = trace[i][0]
+            scales, norms = ffns[i].margin_bounds(layer_input)
+            arrays[f"routes.layer{i}"] = routes[i].to(torch.int32).numpy()
+            arrays[f"margins.layer{i}"] = _f32(margins[i])
+            arrays[f"layer_inputs.layer{i}"] = _f32(layer_input)
+            arrays[f"margin_scales.layer{i}"] = _f32(scales)
+            arrays[f"margin_norms.layer{i}"] = _f32(norms)
     return arrays
 
 

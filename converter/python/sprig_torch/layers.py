@@ -289,6 +289,29 @@ class TreeFF(_FeedForward):
                              self.leaves.forward_all(x, self.act))
         return y, routes, margins
 
+    def margin_bounds(self, x):
+        """How sensitive each row's margin is to error, for explaining flipped decisions.
+
+        Returns (scales, norms), float [rows]: for the deciding node n with the smallest |logit|
+        (the one `margins` reports), scale = sum_i |w_ni x_i| + |b_n| and norm = ||w_n||_2. A
+        relative error eta on every stored weight moves the logit by at most eta * scale; an
+        error dx on the input moves it by at most norm * ||dx||_2 (Cauchy-Schwarz). Zero when
+        depth == 0 (nothing is decided).
+        """
+        rows = x.shape[0]
+        if self.depth == 0:
+            zero = torch.zeros(rows, dtype=x.dtype, device=x.device)
+            return zero, zero.clone()
+        logits = self.node_logits(x)
+        path, _ = self.descend(logits)
+        deciding = path[:, :-1]  # the d nodes whose sign chose the route
+        closest = deciding.gather(1, logits.gather(1, deciding).abs().argmin(1, keepdim=True))[:, 0]
+        w = self.nodes.weight[closest]
+        scale = (w.abs() * x.abs()).sum(1)
+        if self.nodes.bias is not None:
+            scale = scale + self.nodes.bias[closest].abs()
+        return scale, w.norm(dim=1)
+
     def _path_output(self, logits, path):
         # Every one of the d + 1 visited nodes is a neuron that adds to the output.
         a = logits.gather(1, path)  # [rows, d + 1]
@@ -341,6 +364,34 @@ class ExpertsFF(_FeedForward):
             w = w / w.sum(dim=1, keepdim=True)
         y = torch.einsum("rk,rko->ro", w, self.experts.forward_selected(x, chosen, self.act))
         return y, chosen, self._margins(p)
+
+    def margin_bounds(self, x):
+        """Sensitivity of the margin p_a - p_b (a: the k-th choice, b: the best unchosen) to error.
+
+        A relative error eta on the router weights moves logit j by at most eta * S_j with
+        S_j = sum_i |w_ji x_i| + |b_j|; to first order the margin then moves by at most
+        eta * (p_a S_a + p_b S_b + (p_a - p_b) max_j S_j), which is `scales`. `norms` is the same
+        expression with ||w_j||_2 in place of S_j, for an input error ||dx||_2. Zero when
+        top_k == experts.
+        """
+        rows = x.shape[0]
+        if self.top_k == self.router.weight.shape[0]:
+            zero = torch.zeros(rows, dtype=x.dtype, device=x.device)
+            return zero, zero.clone()
+        p = torch.softmax(self.router(x), dim=1)
+        order = torch.sort(p, dim=1, descending=True, stable=True).indices
+        a, b = order[:, self.top_k - 1], order[:, self.top_k]
+        pa, pb = p.gather(1, a[:, None])[:, 0], p.gather(1, b[:, None])[:, 0]
+        s = x.abs() @ self.router.weight.abs().t()
+        if self.router.bias is not None:
+            s = s + self.router.bias.abs()
+        n = self.router.weight.norm(dim=1).expand(rows, -1)
+
+        def bound(t):
+            ta, tb = t.gather(1, a[:, None])[:, 0], t.gather(1, b[:, None])[:, 0]
+            return pa * ta + pb * tb + (pa - pb) * t.max(1).values
+
+        return bound(s), bound(n)
 
     def _margins(self, p):
         if self.top_k == p.shape[1]:

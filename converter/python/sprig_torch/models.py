@@ -5,10 +5,13 @@ formulas with torch primitives; ``state_dict()`` keys are the tensor names of th
 (`layers.{i}.…` in a stack; `embed.weight`, `pos.weight`, `blocks.{i}.…`, `norm.*`, `head.*`
 in a transformer).
 
-``forward(inputs, hard=None, return_routes=False)`` returns the output or, with
+``forward(inputs, hard=None, return_routes=False, trace=None)`` returns the output or, with
 ``return_routes``, ``(output, routes, margins)`` where both are dicts from the index of each
 routed layer (stack layer or transformer block) to the layer's routes/margins; a transformer
-flattens its tokens in [B*T] order (batch-major).
+flattens its tokens in [B*T] order (batch-major). When ``trace`` is a dict, ``trace[i]``
+receives ``(layer_input, layer_output)`` of every layer i: a stack layer's input and output,
+or a block's feed-forward input (norm2 of the residual stream) and the residual stream after
+the block, both [B*T, d_model].
 
 Conventions that the model semantics leave implicit and that are fixed here:
 
@@ -95,10 +98,13 @@ class StackModel(nn.Module):
         self.input_dim = config["input_dim"]
         self.output_dim = width
 
-    def forward(self, x, hard=None, return_routes=False):
+    def forward(self, x, hard=None, return_routes=False, trace=None):
         routes, margins = {}, {}
         for i, layer in enumerate(self.layers):
+            x_in = x
             x = _collect(layer(x, hard=hard, return_routes=True), i, routes, margins)
+            if trace is not None:
+                trace[i] = (x_in, x)
         return (x, routes, margins) if return_routes else x
 
 
@@ -204,13 +210,17 @@ class Block(nn.Module):
         self.norm2 = norm(d, config["norm_eps"])
         self.ffn = build_layer(ffn_config, in_features=d, out_features=d)
 
-    def forward(self, x, hard=None):
-        """x [B, T, D] -> (x, (routes, margins) of the ffn over [B*T] rows or None)."""
+    def forward(self, x, hard=None, trace=None):
+        """x [B, T, D] -> (x, routes, margins), the ffn's routes/margins over [B*T] rows (None
+        for a dense ffn). `trace`, a list, receives (ffn input, block output) as [B*T, D]."""
         h = x + self.attn(self.norm1(x))
         b, t, d = h.shape
-        y, routes, margins = self.ffn(self.norm2(h).reshape(b * t, d), hard=hard,
-                                      return_routes=True)
-        return h + y.reshape(b, t, d), routes, margins
+        ffn_in = self.norm2(h).reshape(b * t, d)
+        y, routes, margins = self.ffn(ffn_in, hard=hard, return_routes=True)
+        out = h + y.reshape(b, t, d)
+        if trace is not None:
+            trace.extend([ffn_in, out.reshape(b * t, d)])
+        return out, routes, margins
 
 
 def normalize_transformer_config(config):
@@ -283,7 +293,7 @@ class TransformerModel(nn.Module):
         else:
             self.head = None
 
-    def forward(self, tokens, hard=None, return_routes=False):
+    def forward(self, tokens, hard=None, return_routes=False, trace=None):
         c = self.full_config
         if tokens.dim() == 1:
             tokens = tokens[None, :]
@@ -300,7 +310,10 @@ class TransformerModel(nn.Module):
             x = x + self.pos.weight[:t]
         routes, margins = {}, {}
         for i, block in enumerate(self.blocks):
-            x = _collect(block(x, hard=hard), i, routes, margins)
+            seen = [] if trace is not None else None
+            x = _collect(block(x, hard=hard, trace=seen), i, routes, margins)
+            if trace is not None:
+                trace[i] = tuple(seen)
         y = self._head(self.norm(x))
         return (y, routes, margins) if return_routes else y
 

@@ -38,6 +38,18 @@ struct Routes {
   std::vector<LayerRoutes> layers;
 };
 
+// What one layer of a forward call read and wrote, for comparing a model with its reference
+// layer by layer (sprig verify). Rows are ordered as in Routes.
+struct LayerTrace {
+  size_t layer = 0;
+  size_t in = 0;               // values per row of `inputs`
+  size_t out = 0;              // values per row of `outputs`
+  std::vector<float> inputs;   // [rows, in]: the feed-forward layer's input (in a transformer
+                               // block, the normalised residual stream it reads)
+  std::vector<float> outputs;  // [rows, out]: the stack layer's output, or the residual stream
+                               // after a transformer block
+};
+
 // How Session::generate picks each token.
 struct GenerateOptions {
   // Tokens to generate at most. Default: 64.
@@ -87,19 +99,22 @@ class Session {
   Session& operator=(const Session&) = delete;
 
   // Stack models: `input` holds rows × input_dim floats, `output` receives rows × output_dim.
-  // When `routes` is not null it receives every routed layer's decisions for these rows.
+  // When `routes` is not null it receives every routed layer's decisions for these rows; when
+  // `trace` is not null it receives every layer's inputs and outputs (one entry per layer).
   // Returns InvalidArgument for a transformer model or a non-finite input value.
-  Status forward(const float* input, size_t rows, float* output, Routes* routes = nullptr);
+  Status forward(const float* input, size_t rows, float* output, Routes* routes = nullptr,
+                 std::vector<LayerTrace>* trace = nullptr);
 
   // Transformer models: runs `batch` sequences of `length` tokens each (row-major
   // [batch, length]), every sequence independently from position 0; the KV cache is neither
   // used nor changed. `output` receives [batch, length, vocab_size] logits (lm head),
   // [batch, classes] (classifier) or [batch, length, d_model] hidden states (no head). When
   // `routes` is not null it receives each routed block's choices for the batch·length tokens in
-  // batch-major order. InvalidArgument for a stack model, length > max_seq or a token outside
-  // [0, vocab_size).
+  // batch-major order; `trace`, when not null, receives each block's feed-forward input and
+  // output residual stream in the same order. InvalidArgument for a stack model,
+  // length > max_seq or a token outside [0, vocab_size).
   Status forward_tokens(const int32_t* tokens, size_t batch, size_t length, float* output,
-                        Routes* routes = nullptr);
+                        Routes* routes = nullptr, std::vector<LayerTrace>* trace = nullptr);
 
   // Causal transformer models with an lm head: runs `token` at the KV cache's next position
   // (position()), keeps its keys and values, and writes the vocab_size logits of the next token

@@ -117,7 +117,8 @@ size_t Session::threads() const {
   return state_->scratch.size();
 }
 
-Status Session::forward(const float* input, size_t rows, float* output, Routes* routes) {
+Status Session::forward(const float* input, size_t rows, float* output, Routes* routes,
+                        std::vector<LayerTrace>* trace) {
   const ModelConfig& c = model_->config();
   if (c.family != Family::kStack) {
     return Status::InvalidArgument(model_->path() +
@@ -134,6 +135,7 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
   const auto start = std::chrono::steady_clock::now();
   const layers::Exec exec = state_->MakeExec(rows == 1);
   if (routes) routes->layers.clear();
+  if (trace) trace->clear();
   const auto& net = model_->layers();
   const float* x = input;
   for (size_t i = 0; i < net.size(); ++i) {
@@ -154,6 +156,10 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
       route_out = routes->layers.back().choices.data();
     }
     layer.Forward(exec, x, rows, y, route_out);
+    if (trace) {
+      trace->push_back({i, layer.in(), layer.out(), std::vector<float>(x, x + rows * layer.in()),
+                        std::vector<float>(y, y + rows * layer.out())});
+    }
     x = y;
   }
   state_->stats.forward_calls += 1;
@@ -167,7 +173,7 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
 namespace sprig {
 
 Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t length, float* output,
-                               Routes* routes) {
+                               Routes* routes, std::vector<LayerTrace>* trace) {
   const ModelConfig& c = model_->config();
   if (!state_->transformer) {
     return Status::InvalidArgument(model_->path() +
@@ -184,7 +190,8 @@ Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t lengt
   SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, batch * length, c.vocab_size));
   const auto start = std::chrono::steady_clock::now();
   const layers::Exec exec = state_->MakeExec(batch * length == 1);
-  state_->transformer->Forward(exec, state_->workspace, tokens, batch, length, output, routes);
+  state_->transformer->Forward(exec, state_->workspace, tokens, batch, length, output, routes,
+                               trace);
   state_->stats.forward_calls += 1;
   state_->stats.sequence_tokens += batch * length;
   state_->stats.forward_seconds += SecondsSince(start);

@@ -203,7 +203,8 @@ void Transformer::NormRows(const Exec& e, const Norm& n, const float* x, size_t 
 }
 
 void Transformer::RunBlocks(const Exec& e, Workspace& ws, const int32_t* tokens, size_t sequences,
-                            size_t length, size_t start, KvCache* cache, Routes* routes) const {
+                            size_t length, size_t start, KvCache* cache, Routes* routes,
+                            std::vector<LayerTrace>* trace) const {
   const size_t rows = sequences * length, d = d_, hd = head_dim_;
   const size_t total = start + length;
   Grow(ws.x, rows * d);
@@ -229,6 +230,7 @@ void Transformer::RunBlocks(const Exec& e, Workspace& ws, const int32_t* tokens,
     cache->values.resize(blocks_.size());
   }
   if (routes) routes->layers.clear();
+  if (trace) trace->clear();
   for (size_t i = 0; i < blocks_.size(); ++i) {
     const Block& b = blocks_[i];
     float* x = ws.x.data();
@@ -274,6 +276,11 @@ void Transformer::RunBlocks(const Exec& e, Workspace& ws, const int32_t* tokens,
     }
     b.ffn->Forward(e, ws.normed.data(), rows, ws.ffn.data(), route_out);
     AddInPlace(x, ws.ffn.data(), rows * d);
+    if (trace) {
+      trace->push_back({i, d, d,
+                        std::vector<float>(ws.normed.begin(), ws.normed.begin() + rows * d),
+                        std::vector<float>(x, x + rows * d)});
+    }
   }
 }
 
@@ -317,12 +324,14 @@ void Transformer::Head(const Exec& e, Workspace& ws, size_t sequences, size_t le
 }
 
 void Transformer::Forward(const Exec& e, Workspace& ws, const int32_t* tokens, size_t sequences,
-                          size_t length, float* output, Routes* routes) const {
+                          size_t length, float* output, Routes* routes,
+                          std::vector<LayerTrace>* trace) const {
   if (sequences == 0 || length == 0) {
     if (routes) routes->layers.clear();
+    if (trace) trace->clear();
     return;
   }
-  RunBlocks(e, ws, tokens, sequences, length, 0, nullptr, routes);
+  RunBlocks(e, ws, tokens, sequences, length, 0, nullptr, routes, trace);
   Head(e, ws, sequences, length, output);
 }
 

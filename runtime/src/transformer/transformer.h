@@ -76,9 +76,11 @@ class Transformer {
   // Runs `sequences` sequences of `length` tokens each, independently and from position 0
   // (no cache). `output` receives [sequences, length, V] (lm), [sequences, C] (classifier) or
   // [sequences, length, D] (none). When `routes` is not null, routes->layers gets one entry per
-  // routed block with [sequences·length, width] choices. Tokens must already be checked.
+  // routed block with [sequences·length, width] choices; `trace`, when not null, one entry per
+  // block (see LayerTrace). Tokens must already be checked.
   void Forward(const layers::Exec& exec, Workspace& ws, const int32_t* tokens, size_t sequences,
-               size_t length, float* output, Routes* routes) const;
+               size_t length, float* output, Routes* routes,
+               std::vector<LayerTrace>* trace = nullptr) const;
 
   // Appends `count` tokens of one sequence to `cache` at positions cache.length onwards and
   // writes the lm logits of the last of them to `logits` (V floats) when it is not null. The
@@ -91,7 +93,8 @@ class Transformer {
   // Embeds and runs every block over rows = sequences · length tokens whose positions start at
   // `start`; leaves the hidden states (before the final norm) in ws.x.
   void RunBlocks(const layers::Exec& exec, Workspace& ws, const int32_t* tokens, size_t sequences,
-                 size_t length, size_t start, KvCache* cache, Routes* routes) const;
+                 size_t length, size_t start, KvCache* cache, Routes* routes,
+                 std::vector<LayerTrace>* trace = nullptr) const;
   void Embed(const layers::Exec& exec, const int32_t* tokens, size_t rows, size_t length,
              size_t start, float* x) const;
   void Attend(const layers::Exec& exec, Workspace& ws, size_t sequences, size_t length,

@@ -1,0 +1,78 @@
+"""Makes the cases that `sprig verify` must catch or explain (used by tests/verify_cli_test.cc).
+
+    verify_cases.py perturb DIR TENSOR INDEX DELTA
+        adds DELTA to element INDEX (flat) of TENSOR in DIR/weights.npz, after export, so the
+        packed model no longer matches DIR/reference.npz;
+    verify_cases.py f16-flip DIR LAYER
+        rewrites DIR/reference.npz for new inputs: the exported inputs, with row 0 moved along
+        the root node's weight vector of stack layer LAYER (a leaf tree) until the root's logit
+        is -d/2 in exact arithmetic, where d is how far rounding the root's weights to IEEE half
+        precision moves that logit (numpy.float16 rounds to nearest even, as IEEE 754 says).
+        With weights stored as float16 the logit is then +d/2: the row goes right instead of
+        left, a flip that rounding explains.
+
+NumPy and PyTorch from Debian (python3-numpy, python3-torch).
+"""
+
+import json
+import os
+import sys
+
+import numpy as np
+import torch
+
+from sprig_torch.export import reference_arrays
+from sprig_torch.models import build_model
+
+
+def load_model(d):
+    with open(os.path.join(d, "config.json"), encoding="utf-8") as f:
+        model = build_model(json.load(f))
+    weights = np.load(os.path.join(d, "weights.npz"))
+    model.load_state_dict({k: torch.from_numpy(weights[k]) for k in weights.files})
+    return model.eval()
+
+
+def perturb(d, tensor, index, delta):
+    path = os.path.join(d, "weights.npz")
+    weights = dict(np.load(path))
+    flat = weights[tensor].reshape(-1)
+    flat[int(index)] += np.float32(delta)
+    np.savez(path, **weights)
+
+
+def f16_flip(d, layer):
+    model = load_model(d)
+    ref_path = os.path.join(d, "reference.npz")
+    inputs = np.load(ref_path)["inputs"].astype(np.float64)
+    prefix = f"layers.{layer}.nodes."
+    weights = np.load(os.path.join(d, "weights.npz"))
+    w = weights[prefix + "weight"][0].astype(np.float64)
+    b = float(weights[prefix + "bias"][0])
+    w16 = w.astype(np.float16).astype(np.float64)
+    if layer != 0:
+        raise ValueError("f16-flip moves the model's input, so LAYER must be 0")
+    x = inputs[0]
+    # The root logit is linear in x: move x along w so that the exact logit is -d/2.
+    drift = float((w16 - w) @ x)
+    if abs(drift) < 1e-7:
+        raise ValueError("float16 rounding does not move this row's logit; pick another seed")
+    target = -drift / 2
+    x = x + (target - (w @ x + b)) / (w @ w) * w
+    inputs[0] = x
+    np.savez(ref_path, **reference_arrays(model, inputs.astype(np.float32)))
+    print(json.dumps({"exact_logit": float(w @ x + b), "f16_logit": float(w16 @ x + b)}))
+
+
+def main():
+    command, d = sys.argv[1], sys.argv[2]
+    if command == "perturb":
+        perturb(d, sys.argv[3], sys.argv[4], float(sys.argv[5]))
+    elif command == "f16-flip":
+        f16_flip(d, int(sys.argv[3]))
+    else:
+        raise SystemExit(f"unknown command {command!r}")
+
+
+if __name__ == "__main__":
+    main()

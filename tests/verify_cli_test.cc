@@ -1,0 +1,202 @@
+// `sprig verify` against references written by the PyTorch exporter (converter/python/sprig_torch,
+// Debian python3-torch): it passes on the exporter's own output for every layer kind and both
+// families, fails (exit 1) with a precise report when a weight is perturbed or a routing node's
+// bias is nudged after export, explains a flip that float16 rounding causes (IEEE 754 half
+// precision, rounded by numpy.float16), and refuses references that do not fit the model (exit 2).
+#include <gtest/gtest.h>
+
+#include <nlohmann/json.hpp>
+#include <string>
+
+#include "support/test_util.h"
+
+namespace sprig {
+namespace {
+
+using testing::Quote;
+
+const char* kStack = R"({"family":"stack","input_dim":12,"layers":[
+ {"kind":"dense","width":16,"activation":"gelu","out":10},
+ {"kind":"tree","mode":"leaf","depth":3,"leaf_width":4,"activation":"relu","out":9},
+ {"kind":"tree","mode":"path","depth":4,"activation":"silu","out":8},
+ {"kind":"experts","experts":5,"top_k":2,"width":6,"activation":"gelu_tanh","gated":true,"out":5}]})";
+
+const char* kTransformer = R"({"family":"transformer","vocab_size":40,"d_model":16,"n_heads":4,
+ "n_kv_heads":2,"max_seq":48,"positions":"rope","norm":"rmsnorm","layers":[
+ {"kind":"tree","mode":"leaf","depth":2,"leaf_width":8,"activation":"gelu"},
+ {"kind":"tree","mode":"path","depth":3,"activation":"relu"},
+ {"kind":"experts","experts":4,"top_k":2,"width":8,"activation":"silu"}]})";
+
+std::string PythonPath() {
+  return "PYTHONPATH=" + Quote(std::string(SPRIG_SOURCE_DIR) + "/converter/python") + " ";
+}
+
+// Exports a random model of `config` into dir/ref and returns its directory.
+std::string Export(const testing::TempDir& dir, const std::string& config, int rows, int seed = 3) {
+  testing::WriteFile(dir.File("c.json"), config);
+  const auto r =
+      testing::Run(PythonPath() + testing::Python() + " -m sprig_torch.export --config " +
+                   Quote(dir.File("c.json")) + " --seed " + std::to_string(seed) + " --rows " +
+                   std::to_string(rows) + " --out " + Quote(dir.File("ref")));
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  return dir.File("ref");
+}
+
+void Case(const std::string& args) {
+  const auto r = testing::Run(
+      PythonPath() + testing::Python() + " " +
+      Quote(std::string(SPRIG_SOURCE_DIR) + "/tests/python/verify_cases.py") + " " + args);
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+}
+
+std::string Pack(const std::string& ref, const std::string& out, const char* dtype) {
+  const auto r = testing::Run(testing::SprigCli() + " pack " + Quote(ref + "/config.json") + " " +
+                              Quote(ref + "/weights.npz") + " -o " + Quote(out) + " --force" +
+                              " --dtype " + dtype);
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  return out;
+}
+
+struct Verified {
+  int exit_code = -1;
+  nlohmann::json report;
+  std::string text;
+};
+
+Verified Verify(const std::string& model, const std::string& ref) {
+  Verified v;
+  auto r = testing::Run(testing::SprigCli() + " verify " + Quote(model) + " " +
+                        Quote(ref + "/reference.npz") + " --json 2>/dev/null");
+  v.exit_code = r.exit_code;
+  if (r.exit_code == 0 || r.exit_code == 1) v.report = nlohmann::json::parse(r.output);
+  v.text = testing::Run(testing::SprigCli() + " verify " + Quote(model) + " " +
+                        Quote(ref + "/reference.npz"))
+               .output;
+  return v;
+}
+
+class VerifyPasses : public ::testing::TestWithParam<const char*> {};
+
+TEST_P(VerifyPasses, OnTheExportersOwnOutput) {
+  testing::TempDir dir;
+  const std::string config = GetParam();
+  const std::string ref = Export(dir, config, 40);
+  for (const char* dtype : {"f32", "f16"}) {
+    const Verified v = Verify(Pack(ref, dir.File(std::string(dtype) + ".sprig"), dtype), ref);
+    EXPECT_EQ(v.exit_code, 0) << dtype << "\n" << v.text;
+    EXPECT_TRUE(v.report["pass"].get<bool>());
+    EXPECT_EQ(v.report["storage"], dtype);
+    EXPECT_TRUE(v.report["first_divergent_layer"].is_null());
+    EXPECT_EQ(v.report["layer_outputs"].size(), 3u + (config.find("stack") != std::string::npos));
+    EXPECT_EQ(v.report["routing"].size(), 3u);
+    for (const auto& layer : v.report["routing"]) {
+      EXPECT_EQ(layer["unexplained"], 0) << v.text;
+      // Exported inputs are unit-scale random rows: no decision is near enough to zero for f32
+      // to flip it.
+      if (std::string(dtype) == "f32") {
+        EXPECT_EQ(layer["agreement_percent"], 100.0) << v.text;
+      }
+    }
+    std::printf("%s", v.text.c_str());
+  }
+}
+
+INSTANTIATE_TEST_SUITE_P(BothFamilies, VerifyPasses, ::testing::Values(kStack, kTransformer));
+
+TEST(Verify, FailsWhenAWeightIsPerturbedAfterExport) {
+  testing::TempDir dir;
+  const std::string ref = Export(dir, kStack, 40);
+  // The dense first layer's output weights: every row's layer-0 outputs move, and so do the
+  // routing decisions after it.
+  Case("perturb " + Quote(ref) + " layers.0.fc2.weight 5 0.5");
+  const Verified v = Verify(Pack(ref, dir.File("m.sprig"), "f32"), ref);
+  EXPECT_EQ(v.exit_code, 1) << v.text;
+  EXPECT_FALSE(v.report["pass"].get<bool>());
+  EXPECT_EQ(v.report["first_divergent_layer"], 0) << v.text;
+  EXPECT_FALSE(v.report["layer_outputs"][0]["ok"].get<bool>());
+  EXPECT_GT(v.report["layer_outputs"][0]["max_abs_error"].get<double>(), 1e-3);
+  EXPECT_NE(v.text.find("first layer whose outputs diverge: 0"), std::string::npos) << v.text;
+  EXPECT_NE(v.text.find("FAIL"), std::string::npos);
+}
+
+TEST(Verify, FailsWhenARoutingNodesBiasIsNudged) {
+  testing::TempDir dir;
+  const std::string ref = Export(dir, kStack, 200);
+  // The root of the leaf tree (layer 1): rows whose root logit lay within 0.3 of zero on the
+  // left now go right, with margins far beyond any rounding.
+  Case("perturb " + Quote(ref) + " layers.1.nodes.bias 0 0.3");
+  const Verified v = Verify(Pack(ref, dir.File("m.sprig"), "f32"), ref);
+  EXPECT_EQ(v.exit_code, 1) << v.text;
+  const auto& layer1 = v.report["routing"][0];
+  EXPECT_EQ(layer1["layer"], 1);
+  EXPECT_GT(layer1["unexplained"].get<int>(), 0) << v.text;
+  EXPECT_LT(layer1["agreement_percent"].get<double>(), 100.0);
+  for (const auto& flip : layer1["disagreements"]) {
+    EXPECT_EQ(flip["verdict"], "UNEXPLAINED");
+    // Each listed flip names both routes and a margin larger than its rounding bound.
+    EXPECT_GT(flip["margin"].get<double>(), flip["bound_rounding"].get<double>());
+  }
+  EXPECT_EQ(v.report["first_divergent_layer"], 1) << v.text;
+  EXPECT_NE(v.text.find("UNEXPLAINED"), std::string::npos);
+}
+
+TEST(Verify, ExplainsAFlipCausedByHalfPrecisionRounding) {
+  testing::TempDir dir;
+  const std::string config = R"({"family":"stack","input_dim":24,"layers":[
+   {"kind":"tree","mode":"leaf","depth":3,"leaf_width":4,"activation":"relu","out":6}]})";
+  const std::string ref = Export(dir, config, 10);
+  Case("f16-flip " + Quote(ref) + " 0");
+  const Verified f32 = Verify(Pack(ref, dir.File("f32.sprig"), "f32"), ref);
+  EXPECT_EQ(f32.exit_code, 0) << f32.text;
+  EXPECT_EQ(f32.report["routing"][0]["agreement_percent"], 100.0) << f32.text;
+  const Verified f16 = Verify(Pack(ref, dir.File("f16.sprig"), "f16"), ref);
+  EXPECT_EQ(f16.exit_code, 0) << f16.text;
+  const auto& routing = f16.report["routing"][0];
+  ASSERT_EQ(routing["disagreements"].size(), 1u) << f16.text;
+  const auto& flip = routing["disagreements"][0];
+  EXPECT_EQ(flip["row"], 0);
+  EXPECT_EQ(flip["verdict"], "explained by rounding");
+  EXPECT_LE(flip["margin"].get<double>(), flip["bound_rounding"].get<double>());
+  // The flipped row's outputs come from another leaf, so they are left out, not failed.
+  EXPECT_EQ(f16.report["outputs"]["rows_skipped"], 1);
+  std::printf("%s", f16.text.c_str());
+}
+
+TEST(Verify, RefusesReferencesThatDoNotFitTheModel) {
+  testing::TempDir dir;
+  const std::string ref = Export(dir, kStack, 8);
+  const std::string model = Pack(ref, dir.File("m.sprig"), "f32");
+  const std::string cli = testing::SprigCli() + " verify " + Quote(model) + " ";
+  struct BadCase {
+    const char* python;  // edits the dict `a` of reference arrays
+    const char* message;
+  };
+  const BadCase cases[] = {
+      {"del a['routes.layer2']", "has no array 'routes.layer2'"},
+      {"del a['outputs']", "has no array 'outputs'"},
+      {"a['outputs'] = a['outputs'][:, :3]", "array 'outputs' has shape [8, 3]"},
+      {"a['inputs'] = a['inputs'][:, :5]", "array 'inputs' has shape [8, 5]"},
+      {"a['routes.layer3'] = a['routes.layer3'][:, :1]", "array 'routes.layer3' has shape [8, 1]"},
+      {"a['margins.layer1'] = a['margins.layer1'].astype('int32')", "expected floats"},
+  };
+  for (const BadCase& c : cases) {
+    const std::string bad = dir.File("bad.npz");
+    auto r = testing::RunPython(std::string("import sys, numpy as np\n"
+                                            "a = dict(np.load(sys.argv[1]))\n") +
+                                    c.python + "\nnp.savez(sys.argv[2], **a)",
+                                {ref + "/reference.npz", bad});
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    r = testing::Run(cli + Quote(bad));
+    EXPECT_EQ(r.exit_code, 2) << c.python << "\n" << r.output;
+    EXPECT_NE(r.output.find(c.message), std::string::npos) << c.python << "\n" << r.output;
+    EXPECT_NE(r.output.find("bad.npz"), std::string::npos) << r.output;
+  }
+  auto r = testing::Run(cli + Quote(dir.File("missing.npz")));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  r = testing::Run(testing::SprigCli() + " verify --help");
+  EXPECT_EQ(r.exit_code, 0);
+  EXPECT_NE(r.output.find("--rtol"), std::string::npos);
+}
+
+}  // namespace
+}  // namespace sprig

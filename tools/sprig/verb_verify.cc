@@ -1,0 +1,444 @@
+// sprig verify MODEL REFERENCE.npz [--atol A] [--rtol R] [--threads N] [--show N] [--json]
+//
+// Runs a model on a reference file's inputs and compares outputs, every layer's outputs and
+// every routing decision with the reference (as sprig_torch.export writes it). Each routing
+// disagreement is judged against how far rounding could have moved its margin; see
+// verify_check.h for the rules.
+#include <cmath>
+#include <cstdio>
+#include <cstring>
+#include <nlohmann/json.hpp>
+
+#include "cli.h"
+#include "converter/io/tensor_archive.h"
+#include "layers/feed_forward.h"
+#include "numeric/half.h"
+#include "sprig/session.h"
+#include "verify_check.h"
+
+namespace sprig::cli {
+namespace {
+
+struct VerifyArgs {
+  std::string model, reference;
+  double atol = -1, rtol = -1;  // negative: the storage type's default
+  size_t threads = 1;
+  size_t show = 20;
+  bool json = false;
+};
+
+std::string ShapeOf(const std::vector<uint64_t>& shape) {
+  std::string s = "[";
+  for (size_t i = 0; i < shape.size(); ++i) s += (i ? ", " : "") + std::to_string(shape[i]);
+  return s + "]";
+}
+
+double ElementAsDouble(const io::NdArray& a, uint64_t i) {
+  const uint8_t* p = a.data + i * io::ElementSize(a.type);
+  switch (a.type) {
+    case io::ElementType::kF64: {
+      double v;
+      std::memcpy(&v, p, 8);
+      return v;
+    }
+    case io::ElementType::kF32: {
+      float v;
+      std::memcpy(&v, p, 4);
+      return v;
+    }
+    case io::ElementType::kF16: {
+      uint16_t v;
+      std::memcpy(&v, p, 2);
+      return numeric::HalfToFloat(v);
+    }
+    case io::ElementType::kBF16: {
+      uint16_t v;
+      std::memcpy(&v, p, 2);
+      return numeric::BFloat16ToFloat(v);
+    }
+    case io::ElementType::kI64: {
+      int64_t v;
+      std::memcpy(&v, p, 8);
+      return static_cast<double>(v);
+    }
+    case io::ElementType::kI32: {
+      int32_t v;
+      std::memcpy(&v, p, 4);
+      return v;
+    }
+    default:
+      return std::nan("");
+  }
+}
+
+// The reference file with its arrays checked by name, type and shape.
+class Reference {
+ public:
+  explicit Reference(io::TensorArchive archive) : archive_(std::move(archive)) {}
+  const std::string& path() const { return archive_.path(); }
+  bool Has(const std::string& name) const { return archive_.Find(name) != nullptr; }
+
+  // A float array of `elements` values whose last axis is `width` (0: any).
+  Result<std::vector<double>> Floats(const std::string& name, uint64_t elements,
+                                     uint64_t width) const {
+    const io::NdArray* a = archive_.Find(name);
+    if (a == nullptr) return Missing(name);
+    if (!io::IsFloating(a->type)) {
+      return Status::InvalidArgument(path() + ": array '" + name + "' holds " +
+                                     io::ElementTypeName(a->type) + " values, expected floats");
+    }
+    const uint64_t last = a->shape.empty() ? 1 : a->shape.back();
+    if (a->elements() != elements || (width != 0 && last != width)) {
+      return Status::InvalidArgument(path() + ": array '" + name + "' has shape " +
+                                     ShapeOf(a->shape) + ", expected " + std::to_string(elements) +
+                                     " values" +
+                                     (width ? " in rows of " + std::to_string(width) : "") +
+                                     " for this model and these inputs");
+    }
+    std::vector<double> v(elements);
+    for (uint64_t i = 0; i < elements; ++i) v[i] = ElementAsDouble(*a, i);
+    return v;
+  }
+
+  // An integer array of rows × width values ([rows] allowed when width is 1).
+  Result<std::vector<int64_t>> Ints(const std::string& name, uint64_t rows, uint64_t width) const {
+    const io::NdArray* a = archive_.Find(name);
+    if (a == nullptr) return Missing(name);
+    if (a->type != io::ElementType::kI32 && a->type != io::ElementType::kI64) {
+      return Status::InvalidArgument(path() + ": array '" + name + "' holds " +
+                                     io::ElementTypeName(a->type) + " values, expected int32 or " +
+                                     "int64");
+    }
+    const bool flat = a->shape.size() == 1 && width == 1;
+    const bool matrix = a->shape.size() == 2 && a->shape[1] == width;
+    if (a->elements() != rows * width || !(flat || matrix)) {
+      return Status::InvalidArgument(path() + ": array '" + name + "' has shape " +
+                                     ShapeOf(a->shape) + ", expected [" + std::to_string(rows) +
+                                     (width == 1 ? "" : ", " + std::to_string(width)) + "]");
+    }
+    std::vector<int64_t> v(rows * width);
+    for (uint64_t i = 0; i < v.size(); ++i) v[i] = static_cast<int64_t>(ElementAsDouble(*a, i));
+    return v;
+  }
+
+  const io::NdArray* Find(const std::string& name) const { return archive_.Find(name); }
+
+ private:
+  Status Missing(const std::string& name) const {
+    return Status::InvalidArgument(path() + " has no array '" + name +
+                                   "'; sprig_torch.export writes every array verify reads");
+  }
+  io::TensorArchive archive_;
+};
+
+// What the model computed on the reference inputs.
+struct Computed {
+  std::vector<float> output;
+  std::vector<uint64_t> shape;  // the output's logical shape
+  Routes routes;
+  std::vector<LayerTrace> trace;
+  size_t rows = 0;       // rows of routes and traces
+  size_t sequences = 0;  // transformer: batch
+  size_t length = 0;     // transformer: tokens per sequence
+};
+
+Result<Computed> RunStack(Session& session, const Reference& ref, const ModelConfig& c) {
+  const io::NdArray* in = ref.Find("inputs");
+  if (in == nullptr) return Status::InvalidArgument(ref.path() + " has no array 'inputs'");
+  if (in->shape.empty() || in->shape.back() != c.input_dim || in->shape.size() > 2) {
+    return Status::InvalidArgument(ref.path() + ": array 'inputs' has shape " + ShapeOf(in->shape) +
+                                   "; this model takes rows [N, " + std::to_string(c.input_dim) +
+                                   "]");
+  }
+  Computed r;
+  r.rows = in->shape.size() == 1 ? 1 : in->shape[0];
+  SPRIG_ASSIGN_OR_RETURN(std::vector<double> x, ref.Floats("inputs", r.rows * c.input_dim, 0));
+  std::vector<float> xf(x.begin(), x.end());
+  r.output.resize(r.rows * c.output_dim());
+  r.shape = {r.rows, c.output_dim()};
+  SPRIG_RETURN_IF_ERROR(session.forward(xf.data(), r.rows, r.output.data(), &r.routes, &r.trace));
+  return r;
+}
+
+Result<Computed> RunTokens(Session& session, const Reference& ref, const ModelConfig& c) {
+  const io::NdArray* in = ref.Find("inputs");
+  if (in == nullptr) return Status::InvalidArgument(ref.path() + " has no array 'inputs'");
+  if ((in->type != io::ElementType::kI32 && in->type != io::ElementType::kI64) ||
+      in->shape.empty() || in->shape.size() > 2) {
+    return Status::InvalidArgument(ref.path() + ": array 'inputs' is " +
+                                   io::ElementTypeName(in->type) + " " + ShapeOf(in->shape) +
+                                   "; this transformer takes int32/int64 tokens [T] or [B, T]");
+  }
+  Computed r;
+  r.sequences = in->shape.size() == 1 ? 1 : in->shape[0];
+  r.length = in->shape.back();
+  r.rows = r.sequences * r.length;
+  SPRIG_ASSIGN_OR_RETURN(std::vector<int64_t> t, ref.Ints("inputs", 1, r.rows));
+  std::vector<int32_t> tokens(r.rows);
+  for (size_t i = 0; i < r.rows; ++i) {
+    if (t[i] < 0 || t[i] >= static_cast<int64_t>(c.vocab_size)) {
+      return Status::InvalidArgument(ref.path() + ": inputs[" + std::to_string(i) + "] is token " +
+                                     std::to_string(t[i]) + ", outside the vocabulary [0, " +
+                                     std::to_string(c.vocab_size) + ")");
+    }
+    tokens[i] = static_cast<int32_t>(t[i]);
+  }
+  const bool per_token = c.head.kind != HeadKind::kClassifier;
+  r.shape = per_token ? std::vector<uint64_t>{r.sequences, r.length, c.output_dim()}
+                      : std::vector<uint64_t>{r.sequences, c.output_dim()};
+  r.output.resize((per_token ? r.rows : r.sequences) * c.output_dim());
+  SPRIG_RETURN_IF_ERROR(session.forward_tokens(tokens.data(), r.sequences, r.length,
+                                               r.output.data(), &r.routes, &r.trace));
+  return r;
+}
+
+std::string TensorPrefix(const ModelConfig& c, size_t layer) {
+  return (c.family == Family::kStack ? "layers." : "blocks.") + std::to_string(layer) +
+         (c.family == Family::kStack ? "." : ".ffn.");
+}
+
+// The storage type of the tensor that makes a routed layer's decisions.
+DType DecidingType(const Model& model, size_t layer) {
+  const ModelConfig& c = model.config();
+  const std::string name =
+      TensorPrefix(c, layer) +
+      (c.layers[layer].kind == LayerKind::kExperts ? "router.weight" : "nodes.weight");
+  const format::TensorInfo* t = model.file().Find(name);
+  return t ? t->dtype : DType::kF32;
+}
+
+// Builds the check's inputs: reference arrays next to what sprig computed.
+Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& got) {
+  const ModelConfig& c = model.config();
+  VerifyInputs v;
+  v.transformer = c.family == Family::kTransformer;
+  v.causal = c.causal;
+  v.sequences = got.sequences;
+  v.length = got.length;
+  v.rows = got.rows;
+  v.storage = DType::kF32;
+  for (const auto& t : model.file().tensors()) {
+    if (StorageRoundoff(t.dtype) > StorageRoundoff(v.storage)) v.storage = t.dtype;
+  }
+  const uint64_t out_rows = got.shape[0] * (got.shape.size() == 3 ? got.shape[1] : 1);
+  v.output.name = "outputs";
+  v.output.rows = out_rows;
+  v.output.width = got.shape.back();
+  v.output.got.assign(got.output.begin(), got.output.end());
+  SPRIG_ASSIGN_OR_RETURN(v.output.want, ref.Floats("outputs", got.output.size(), got.shape.back()));
+  v.output_per_sequence = c.family == Family::kTransformer && c.head.kind == HeadKind::kClassifier;
+  for (const LayerTrace& t : got.trace) {
+    const std::string name = "layer_outputs.layer" + std::to_string(t.layer);
+    if (!ref.Has(name)) continue;  // older references: no per-layer check for this layer
+    Compared layer;
+    layer.name = name;
+    layer.layer = t.layer;
+    layer.rows = got.rows;
+    layer.width = t.out;
+    layer.got.assign(t.outputs.begin(), t.outputs.end());
+    SPRIG_ASSIGN_OR_RETURN(layer.want, ref.Floats(name, t.outputs.size(), t.out));
+    v.layers.push_back(std::move(layer));
+  }
+  for (const LayerRoutes& lr : got.routes.layers) {
+    const std::string suffix = ".layer" + std::to_string(lr.layer);
+    RoutedLayer r;
+    r.layer = lr.layer;
+    r.width = lr.width;
+    r.units = model.layers()[lr.layer]->unit_count();
+    r.kind = c.layers[lr.layer].kind;
+    r.storage = DecidingType(model, lr.layer);
+    r.in = model.layers()[lr.layer]->in();
+    r.got.assign(lr.choices.begin(), lr.choices.end());
+    SPRIG_ASSIGN_OR_RETURN(r.want, ref.Ints("routes" + suffix, got.rows, lr.width));
+    SPRIG_ASSIGN_OR_RETURN(r.margins, ref.Floats("margins" + suffix, got.rows, 0));
+    // The sensitivity arrays are optional: without them a flip is listed but not explained.
+    if (ref.Has("margin_scales" + suffix) && ref.Has("margin_norms" + suffix) &&
+        ref.Has("layer_inputs" + suffix)) {
+      SPRIG_ASSIGN_OR_RETURN(r.scales, ref.Floats("margin_scales" + suffix, got.rows, 0));
+      SPRIG_ASSIGN_OR_RETURN(r.norms, ref.Floats("margin_norms" + suffix, got.rows, 0));
+      SPRIG_ASSIGN_OR_RETURN(std::vector<double> want_in,
+                             ref.Floats("layer_inputs" + suffix, got.rows * r.in, r.in));
+      const LayerTrace& t = got.trace[lr.layer];
+      r.input_error.assign(got.rows, 0.0);
+      for (size_t row = 0; row < got.rows; ++row) {
+        double sum = 0;
+        for (size_t j = 0; j < r.in; ++j) {
+          const double d = static_cast<double>(t.inputs[row * r.in + j]) - want_in[row * r.in + j];
+          sum += d * d;
+        }
+        r.input_error[row] = std::sqrt(sum);
+      }
+    }
+    v.routed.push_back(std::move(r));
+  }
+  return v;
+}
+
+void PrintCompared(const ComparedResult& c) {
+  std::printf("  %-22s max abs error %.3g, max rel error %.3g, worst row %lld; %s\n",
+              c.name.c_str(), c.max_abs_error, c.max_rel_error, static_cast<long long>(c.worst_row),
+              c.ok ? "within tolerance" : "OUTSIDE tolerance");
+  if (c.rows_skipped) {
+    std::printf("  %-22s (%llu of %llu rows compared; the others follow a flipped route)\n", "",
+                static_cast<unsigned long long>(c.rows_compared),
+                static_cast<unsigned long long>(c.rows_compared + c.rows_skipped));
+  }
+}
+
+std::string RouteText(const std::vector<int64_t>& r) {
+  std::string s;
+  for (size_t i = 0; i < r.size(); ++i) s += (i ? "," : "") + std::to_string(r[i]);
+  return s;
+}
+
+void PrintReport(const VerifyArgs& a, const VerifyReport& r) {
+  std::printf("verify %s against %s\n", a.model.c_str(), a.reference.c_str());
+  std::printf("  storage %s: rtol %.3g, atol %.3g%s\n", ToString(r.storage), r.rtol, r.atol_factor,
+              r.atol_is_relative ? " x RMS of each compared array" : "");
+  PrintCompared(r.output);
+  for (const ComparedResult& l : r.layers) PrintCompared(l);
+  for (const RoutingResult& l : r.routing) {
+    std::printf(
+        "  routing layer %zu: %llu of %llu rows agree (%.2f%%), %llu disagree: %llu "
+        "explained by rounding, %llu follow an earlier flip, %llu unexplained\n",
+        l.layer, static_cast<unsigned long long>(l.agree), static_cast<unsigned long long>(l.rows),
+        l.agreement_percent, static_cast<unsigned long long>(l.flips.size()),
+        static_cast<unsigned long long>(l.explained), static_cast<unsigned long long>(l.downstream),
+        static_cast<unsigned long long>(l.unexplained));
+    size_t shown = 0;
+    for (const Flip& f : l.flips) {
+      if (shown++ == a.show) {
+        std::printf("    ... %zu more (all in --json)\n", l.flips.size() - a.show);
+        break;
+      }
+      std::printf(
+          "    row %llu: reference %s, sprig %s; margin %.3g, bound %.3g (rounding %.3g "
+          "+ input error %.3g): %s\n",
+          static_cast<unsigned long long>(f.row), RouteText(f.want).c_str(),
+          RouteText(f.got).c_str(), f.margin, f.bound_rounding + f.bound_input, f.bound_rounding,
+          f.bound_input, FlipVerdictText(f.verdict));
+    }
+  }
+  if (r.first_divergent_layer >= 0) {
+    std::printf("  first layer whose outputs diverge: %d\n", r.first_divergent_layer);
+  } else {
+    std::printf("  first layer whose outputs diverge: none\n");
+  }
+  std::printf("%s\n", r.pass ? "PASS" : "FAIL");
+}
+
+nlohmann::json ComparedJson(const ComparedResult& c) {
+  return {{"name", c.name},
+          {"max_abs_error", c.max_abs_error},
+          {"max_rel_error", c.max_rel_error},
+          {"worst_row", c.worst_row},
+          {"atol", c.atol},
+          {"rows_compared", c.rows_compared},
+          {"rows_skipped", c.rows_skipped},
+          {"ok", c.ok}};
+}
+
+nlohmann::json ReportJson(const VerifyArgs& a, const VerifyReport& r) {
+  nlohmann::json j;
+  j["model"] = a.model;
+  j["reference"] = a.reference;
+  j["storage"] = ToString(r.storage);
+  j["rtol"] = r.rtol;
+  j["atol"] = r.atol_factor;
+  j["atol_relative_to_rms"] = r.atol_is_relative;
+  j["outputs"] = ComparedJson(r.output);
+  j["layer_outputs"] = nlohmann::json::array();
+  for (const ComparedResult& l : r.layers) {
+    nlohmann::json e = ComparedJson(l);
+    e["layer"] = l.layer;
+    j["layer_outputs"].push_back(e);
+  }
+  j["routing"] = nlohmann::json::array();
+  for (const RoutingResult& l : r.routing) {
+    nlohmann::json flips = nlohmann::json::array();
+    for (const Flip& f : l.flips) {
+      flips.push_back({{"row", f.row},
+                       {"reference", f.want},
+                       {"sprig", f.got},
+                       {"margin", f.margin},
+                       {"bound_rounding", f.bound_rounding},
+                       {"bound_input", f.bound_input},
+                       {"verdict", FlipVerdictText(f.verdict)}});
+    }
+    j["routing"].push_back({{"layer", l.layer},
+                            {"storage", ToString(l.storage)},
+                            {"rows", l.rows},
+                            {"agree", l.agree},
+                            {"agreement_percent", l.agreement_percent},
+                            {"explained", l.explained},
+                            {"downstream", l.downstream},
+                            {"unexplained", l.unexplained},
+                            {"disagreements", flips}});
+  }
+  j["first_divergent_layer"] = r.first_divergent_layer >= 0
+                                   ? nlohmann::json(r.first_divergent_layer)
+                                   : nlohmann::json(nullptr);
+  j["pass"] = r.pass;
+  return j;
+}
+
+int RunVerify(const VerifyArgs& a) {
+  auto model = Model::open(a.model);
+  if (!model.ok()) return Fail("verify", model.status());
+  auto archive = io::TensorArchive::Open(a.reference);
+  if (!archive.ok()) return Fail("verify", archive.status());
+  const Reference ref(std::move(*archive));
+  SessionOptions options;
+  options.threads = a.threads;
+  auto session = Session::create(*model, options);
+  if (!session.ok()) return Fail("verify", session.status());
+  const ModelConfig& c = (*model)->config();
+  auto got =
+      c.family == Family::kStack ? RunStack(**session, ref, c) : RunTokens(**session, ref, c);
+  if (!got.ok()) return Fail("verify", got.status());
+  auto inputs = Gather(**model, ref, *got);
+  if (!inputs.ok()) return Fail("verify", inputs.status());
+  Tolerance tol = DefaultTolerance(inputs->storage);
+  if (a.rtol >= 0) tol.rtol = a.rtol;
+  if (a.atol >= 0) {
+    tol.atol = a.atol;
+    tol.atol_relative_to_rms = false;
+  }
+  const VerifyReport report = CheckAgainstReference(*inputs, tol);
+  if (a.json) {
+    std::printf("%s\n", ReportJson(a, report).dump(2).c_str());
+  } else {
+    PrintReport(a, report);
+  }
+  return report.pass ? kExitOk : kExitCheckFailed;
+}
+
+}  // namespace
+
+Verb AddVerify(CLI::App& app) {
+  auto args = std::make_shared<VerifyArgs>();
+  CLI::App* c =
+      app.add_subcommand("verify",
+                         "Check a model against reference outputs and routes (reference.npz from "
+                         "sprig_torch.export): exit 0 when they agree, 1 when they do not.");
+  c->add_option("MODEL", args->model, "the .sprig file")->required();
+  c->add_option("REFERENCE", args->reference,
+                "reference .npz: inputs, outputs, routes.layer{i}, margins.layer{i} and "
+                "optionally layer_outputs/layer_inputs/margin_scales/margin_norms.layer{i}")
+      ->required();
+  c->add_option("--atol", args->atol,
+                "absolute tolerance (default: a factor of each array's RMS, by storage type)");
+  c->add_option("--rtol", args->rtol, "relative tolerance (default: by storage type)");
+  c->add_option("--threads", args->threads, "threads (0: one per CPU)")->capture_default_str();
+  c->add_option("--show", args->show, "disagreements listed per layer in the text report")
+      ->capture_default_str();
+  c->add_flag("--json", args->json, "print the report as JSON");
+  c->footer(
+      "An element passes when |sprig - reference| <= atol + rtol * |reference|. A routing "
+      "disagreement is explained when its margin is within what the storage type's rounding, "
+      "float32 accumulation and the measured error of the layer's input can move it; rows "
+      "after a flip are not compared.");
+  return {c, [args] { return RunVerify(*args); }};
+}
+
+}  // namespace sprig::cli
