@@ -200,3 +200,69 @@ TEST(Verify, RefusesReferencesThatDoNotFitTheModel) {
 
 }  // namespace
 }  // namespace sprig
+
+namespace sprig {
+namespace {
+
+// The README's path for a module of one's own (samples/export/own_module.py): its weights under
+// its own names, a rename map, the export checked against the module's own outputs, then pack
+// --rename and verify.
+TEST(Verify, ExampleOfAnOwnModuleRoundTrips) {
+  testing::TempDir dir;
+  const std::string src = SPRIG_SOURCE_DIR;
+  auto r = testing::Run(PythonPath() + testing::Python() + " " +
+                        Quote(src + "/samples/export/own_module.py") + " --out " +
+                        Quote(dir.File("seeds")));
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  const std::string seeds = dir.File("seeds");
+  r = testing::Run(testing::SprigCli() + " pack " + Quote(seeds + "/config.json") + " " +
+                   Quote(seeds + "/weights.npz") + " --rename " + Quote(seeds + "/rename.json") +
+                   " -o " + Quote(dir.File("seeds.sprig")));
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  const Verified v = Verify(dir.File("seeds.sprig"), seeds);
+  EXPECT_EQ(v.exit_code, 0) << v.text;
+  EXPECT_EQ(v.report["routing"][0]["agreement_percent"], 100.0) << v.text;
+}
+
+// The exporter refuses to write a reference that does not describe the trained module.
+TEST(Verify, ExportRefusesAReferenceThatDisagreesWithTheModule) {
+  testing::TempDir dir;
+  const std::string script = R"(
+import sys
+sys.path.insert(0, sys.argv[1])
+import own_module
+from sprig_torch.export import export, load_weights
+import torch
+net = own_module.SeedSorter()
+x = torch.randn(50, 6)
+with torch.no_grad():
+    theirs = net(x, hard=True).numpy()
+# A wrong map: the two biases swapped is caught by shape; two same-shape weights are not.
+rename = dict(own_module.RENAME)
+try:
+    load_weights(own_module.CONFIG, net.state_dict(),
+                 dict(rename, hidden_b='layers.0.leaves.fc2.bias'))
+    print('no error for a misshaped map'); sys.exit(1)
+except ValueError as e:
+    print('refused:', e)
+model = load_weights(own_module.CONFIG, net.state_dict(), rename)
+theirs[3, 1] += 0.5
+try:
+    export(model, sys.argv[2], x.numpy(), rename=rename, expected_outputs=theirs)
+    print('no error for disagreeing outputs'); sys.exit(1)
+except ValueError as e:
+    print('refused:', e)
+)";
+  const std::string src = SPRIG_SOURCE_DIR;
+  auto r = testing::Run(PythonPath() + testing::Python() + " -c " + Quote(script) + " " +
+                        Quote(src + "/samples/export") + " " + Quote(dir.File("out")));
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  EXPECT_NE(r.output.find("has shape [4, 8], expected [4, 3]"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("differ from the reference model's in 1 values"), std::string::npos)
+      << r.output;
+  EXPECT_FALSE(testing::Run("test -e " + Quote(dir.File("out"))).exit_code == 0)
+      << "a refused export wrote files";
+}
+
+}  // namespace
+}  // namespace sprig

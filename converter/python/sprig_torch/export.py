@@ -101,12 +101,65 @@ def reference_arrays(model, inputs):
     return arrays
 
 
-def export(model, out_dir, inputs, *, config=None, rename=None):
+def load_weights(config, state_dict, rename=None):
+    """Builds the reference model for `config` and loads a trained model's weights into it.
+
+    `state_dict` maps names to tensors or arrays, as the trained module's ``state_dict()``;
+    `rename` maps those names to ours (the same map ``sprig pack --rename`` takes). Every tensor
+    of the config must be given exactly once with its shape: a missing, extra or misshaped
+    tensor is a ValueError that names it.
+    """
+    model = build_model(config)
+    ours = model.state_dict()
+    rename = rename or {}
+    loaded = {}
+    for name, value in state_dict.items():
+        target = rename.get(name, name)
+        if target not in ours:
+            raise ValueError(f"tensor {name!r} (as {target!r}) is not a tensor of this config; "
+                             f"expected one of {sorted(ours)}")
+        if target in loaded:
+            raise ValueError(f"two tensors map to {target!r}")
+        t = torch.as_tensor(np.asarray(value.detach().cpu() if torch.is_tensor(value) else value))
+        if tuple(t.shape) != tuple(ours[target].shape):
+            raise ValueError(f"tensor {name!r} has shape {list(t.shape)}, expected "
+                             f"{list(ours[target].shape)} for {target!r}")
+        loaded[target] = t.to(ours[target].dtype)
+    missing = sorted(set(ours) - set(loaded))
+    if missing:
+        raise ValueError(f"missing tensors {missing}")
+    model.load_state_dict(loaded)
+    return model.eval()
+
+
+def check_outputs(reference, expected, rtol=1e-4, atol_rms=1e-4):
+    """Raises ValueError unless `expected` (the trained module's own hard-mode outputs) is within
+    rtol / atol_rms x RMS of the reference model's outputs: the reference model is then a
+    faithful description of the trained module, and verifying sprig against it proves the
+    conversion end to end."""
+    expected = np.asarray(expected, dtype=np.float64).reshape(reference.shape)
+    reference = reference.astype(np.float64)
+    atol = atol_rms * float(np.sqrt(np.mean(reference**2))) if reference.size else 0.0
+    err = np.abs(expected - reference)
+    bad = err > atol + rtol * np.abs(reference)
+    if bad.any():
+        row = int(np.unravel_index(np.argmax(err), err.shape)[0])
+        raise ValueError(f"the trained module's outputs differ from the reference model's in "
+                         f"{int(bad.sum())} values (max abs error {float(err.max()):.3g} at row "
+                         f"{row}): the config or the rename map does not describe the module")
+
+
+def export(model, out_dir, inputs, *, config=None, rename=None, expected_outputs=None):
     """Writes config.json, weights.npz and reference.npz for `model` into `out_dir`.
 
     `config` overrides the written config (default: the model's own); `rename` is as in
-    `weight_arrays`. Returns the paths written.
+    `weight_arrays`. `expected_outputs`, when given, are the trained module's own hard-mode
+    outputs on `inputs`; they must agree with the reference model's (check_outputs) or nothing
+    is written. Returns the paths written.
     """
+    references = reference_arrays(model, inputs)
+    if expected_outputs is not None:
+        check_outputs(references["outputs"], expected_outputs)
     os.makedirs(out_dir, exist_ok=True)
     paths = {name: os.path.join(out_dir, name)
              for name in ("config.json", "weights.npz", "reference.npz")}
@@ -114,7 +167,7 @@ def export(model, out_dir, inputs, *, config=None, rename=None):
         json.dump(model.config if config is None else config, f, indent=2)
         f.write("\n")
     np.savez(paths["weights.npz"], **weight_arrays(model, rename))
-    np.savez(paths["reference.npz"], **reference_arrays(model, inputs))
+    np.savez(paths["reference.npz"], **references)
     return paths
 
 
