@@ -42,11 +42,13 @@ std::string Export(const testing::TempDir& dir, const std::string& config, int r
   return dir.File("ref");
 }
 
-void Case(const std::string& args) {
+// Runs verify_cases.py; returns what it printed.
+std::string Case(const std::string& args) {
   const auto r = testing::Run(
       PythonPath() + testing::Python() + " " +
       Quote(std::string(SPRIG_SOURCE_DIR) + "/tests/python/verify_cases.py") + " " + args);
-  ASSERT_EQ(r.exit_code, 0) << r.output;
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  return r.output;
 }
 
 std::string Pack(const std::string& ref, const std::string& out, const char* dtype) {
@@ -160,6 +162,27 @@ TEST(Verify, ExplainsAFlipCausedByHalfPrecisionRounding) {
   // The flipped row's outputs come from another leaf, so they are left out, not failed.
   EXPECT_EQ(f16.report["outputs"]["rows_skipped"], 1);
   std::printf("%s", f16.text.c_str());
+}
+
+// int8 has no relative error bound: verify bounds the logit's change by (s / 2)·||x||_1 from the
+// row scales in the file. The flip is built against NumPy's int8 rounding of the root's row.
+TEST(Verify, ExplainsAFlipCausedByInt8Rounding) {
+  testing::TempDir dir;
+  const std::string config = R"({"family":"stack","input_dim":24,"layers":[
+   {"kind":"tree","mode":"leaf","depth":3,"leaf_width":4,"activation":"relu","out":6}]})";
+  const std::string ref = Export(dir, config, 10);
+  const nlohmann::json made = nlohmann::json::parse(Case("i8-flip " + Quote(ref) + " 0"));
+  const Verified i8 = Verify(Pack(ref, dir.File("i8.sprig"), "i8"), ref);
+  EXPECT_EQ(i8.exit_code, 0) << i8.text;
+  const auto& routing = i8.report["routing"][0];
+  ASSERT_EQ(routing["disagreements"].size(), 1u) << i8.text;
+  const auto& flip = routing["disagreements"][0];
+  EXPECT_EQ(flip["row"], 0);
+  EXPECT_EQ(flip["verdict"], "explained by rounding");
+  EXPECT_LE(flip["margin"].get<double>(), flip["bound_rounding"].get<double>());
+  // The bound covers the proven worst case for the root's row, computed by NumPy.
+  EXPECT_GE(flip["bound_rounding"].get<double>(), 0.999 * made["int8_bound"].get<double>());
+  std::printf("%s", i8.text.c_str());
 }
 
 TEST(Verify, RefusesReferencesThatDoNotFitTheModel) {
