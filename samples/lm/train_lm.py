@@ -129,7 +129,7 @@ def train(model, data, steps, batch, seed, harden):
         loss.backward()
         torch.nn.utils.clip_grad_norm_(model.parameters(), 1.0)
         opt.step()
-        if step % 250 == 0 or step == steps - 1:
+        if step % 100 == 0 or step == steps - 1:
             print(f"  step {step}: loss {loss.item():.3f}", file=sys.stderr, flush=True)
     return model.eval()
 

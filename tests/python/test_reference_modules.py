@@ -470,14 +470,24 @@ class ExportTest(unittest.TestCase):
         self.assertEqual({k: weights[k].shape for k in weights.files}, expected)
         self.assertTrue(all(weights[k].dtype == np.float32 for k in weights.files))
         ref = np.load(os.path.join(out_dir, "reference.npz"))
-        keys = {"inputs", "outputs"}
+        keys = {"inputs", "outputs"} | {f"layer_outputs.layer{i}" for i in range(len(layers))}
         for i, k in routed:
-            keys |= {f"routes.layer{i}", f"margins.layer{i}"}
+            keys |= {f"routes.layer{i}", f"margins.layer{i}", f"layer_inputs.layer{i}",
+                     f"margin_scales.layer{i}", f"margin_norms.layer{i}"}
+            margins, scales = ref[f"margins.layer{i}"], ref[f"margin_scales.layer{i}"]
+            finite = np.isfinite(margins)
+            # A tree's margin is some |w.x + b|, at most sum |w_i x_i| + |b| (triangle
+            # inequality); an experts' probability gap p_a - p_b is at most p_a + p_b <= 1.
+            if k is None:
+                self.assertTrue((margins[finite] <= scales[finite] * (1 + 1e-5)).all())
+            self.assertTrue((ref[f"margin_norms.layer{i}"][finite] > 0).all())
             self.assertEqual(ref[f"routes.layer{i}"].dtype, np.int32)
             self.assertEqual(ref[f"routes.layer{i}"].shape, (rows, k) if k else (rows,))
             self.assertEqual(ref[f"margins.layer{i}"].dtype, np.float32)
             self.assertEqual(ref[f"margins.layer{i}"].shape, (rows,))
         self.assertEqual(set(ref.files), keys)
+        np.testing.assert_array_equal(ref[f"layer_outputs.layer{len(layers) - 1}"],
+                                      ref["outputs"])
         self.assertEqual(ref["inputs"].shape, (rows, config["input_dim"]))
         self.assertEqual(ref["outputs"].shape, (rows, width))
         self.assertEqual(ref["outputs"].dtype, np.float32)
