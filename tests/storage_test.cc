@@ -188,6 +188,40 @@ TEST(StorageInt8, ModelEqualsFloatModelOfDequantisedWeights) {
   }
 }
 
+// The same for a transformer: int8 embeddings (looked up row by row and tied to the head),
+// positions, attention projections and routed blocks.
+TEST(StorageInt8, TransformerEqualsFloatModelOfDequantisedWeights) {
+  Fixture f;
+  ASSERT_NO_FATAL_FAILURE(Prepare(f, R"({"family":"transformer","vocab_size":48,"d_model":16,
+    "n_heads":4,"max_seq":24,"positions":"learned","tie_embeddings":true,"layers":[
+    {"kind":"tree","mode":"leaf","depth":2,"leaf_width":8,"activation":"gelu"},
+    {"kind":"tree","mode":"path","depth":5,"activation":"relu"},
+    {"kind":"experts","experts":4,"top_k":2,"width":8,"activation":"silu"}]})"));
+  const std::string i8 = Pack(f, f.weights, "i8.sprig", "--dtype i8");
+  const std::string f32 = Pack(f, f.dequantised, "deq.sprig", "--dtype f32");
+  constexpr size_t kBatch = 2, kLength = 20, kVocab = 48;
+  std::vector<int32_t> tokens(kBatch * kLength);
+  for (size_t i = 0; i < tokens.size(); ++i) tokens[i] = int32_t((i * 7 + 3) % kVocab);
+  std::vector<float> a(kBatch * kLength * kVocab), b(a.size());
+  Routes ra, rb;
+  auto sa = OpenSession(i8), sb = OpenSession(f32);
+  ASSERT_TRUE(sa && sb);
+  ASSERT_TRUE(sa->forward_tokens(tokens.data(), kBatch, kLength, a.data(), &ra).ok());
+  ASSERT_TRUE(sb->forward_tokens(tokens.data(), kBatch, kLength, b.data(), &rb).ok());
+  ASSERT_EQ(ra.layers.size(), rb.layers.size());
+  for (size_t l = 0; l < ra.layers.size(); ++l) {
+    EXPECT_EQ(ra.layers[l].choices, rb.layers[l].choices) << "block " << l;
+  }
+  for (size_t i = 0; i < a.size(); ++i) {
+    EXPECT_NEAR(a[i], b[i], 1e-4 * (1.0 + std::fabs(b[i]))) << i;
+  }
+  // One decode step takes the single-token paths (matrix-vector products, the tied head).
+  std::vector<float> la(kVocab), lb(kVocab);
+  ASSERT_TRUE(sa->append_tokens(tokens.data(), 1, la.data()).ok());
+  ASSERT_TRUE(sb->append_tokens(tokens.data(), 1, lb.data()).ok());
+  for (size_t i = 0; i < kVocab; ++i) EXPECT_NEAR(la[i], lb[i], 1e-4 * (1.0 + std::fabs(lb[i])));
+}
+
 // Per-part types go where schema/README.md says, and packing twice gives the same bytes.
 TEST(StoragePlan, PartsAndReproducibleBytes) {
   Fixture f;
