@@ -13,6 +13,7 @@
 
 #include "converter/io/tensor_archive.h"
 #include "format/model_file.h"
+#include "format/preamble.h"
 #include "support/test_util.h"
 
 namespace sprig::testing {
@@ -220,6 +221,70 @@ TEST(StorageInt8, TransformerEqualsFloatModelOfDequantisedWeights) {
   ASSERT_TRUE(sa->append_tokens(tokens.data(), 1, la.data()).ok());
   ASSERT_TRUE(sb->append_tokens(tokens.data(), 1, lb.data()).ok());
   for (size_t i = 0; i < kVocab; ++i) EXPECT_NEAR(la[i], lb[i], 1e-4 * (1.0 + std::fabs(lb[i])));
+}
+
+// Replaces the one occurrence of the 8-byte little-endian `from` inside the header of `bytes`
+// with `to` and makes the header checksum valid again, so that only the loader's own range
+// checks stand between the edited field and the reader. Returns "" when `from` is not there
+// exactly once.
+std::string EditHeaderU64(std::string bytes, uint64_t from, uint64_t to) {
+  auto pre = format::DecodePreamble(reinterpret_cast<const uint8_t*>(bytes.data()), bytes.size(),
+                                    bytes.size(), "m");
+  if (!pre.ok()) return "";
+  char a[8], b[8];
+  std::memcpy(a, &from, 8);
+  std::memcpy(b, &to, 8);
+  const std::string needle(a, 8);
+  const size_t begin = pre->header_offset, end = begin + pre->header_size;
+  const size_t at = bytes.find(needle, begin);
+  if (at == std::string::npos || at + 8 > end || bytes.find(needle, at + 1) < end) return "";
+  std::memcpy(bytes.data() + at, b, 8);
+  format::Preamble p = *pre;
+  p.header_crc32 = format::Crc32(bytes.data() + begin, pre->header_size);
+  uint8_t raw[format::kPreambleSize];
+  format::EncodePreamble(p, raw);
+  std::memcpy(bytes.data(), raw, sizeof(raw));
+  return bytes;
+}
+
+// Hostile int8 scale locations are refused at open with the tensor's name.
+TEST(StorageInt8, ScalesOutsideTheirSectionOrRecordAreRefused) {
+  Fixture f;
+  ASSERT_NO_FATAL_FAILURE(Prepare(f, kStackConfig));
+  const std::string path = Pack(f, f.weights, "i8.sprig", "--dtype i8");
+  const std::string bytes = ReadFile(path);
+  auto file = format::ModelFile::Open(path);
+  ASSERT_TRUE(file.ok()) << file.status().message();
+  const format::TensorInfo* hot = (*file)->Find("layers.0.fc1.weight");
+  const format::TensorInfo* rec = (*file)->Find("layers.3.experts.fc2.weight");
+  ASSERT_TRUE(hot && rec && hot->scales_hot && rec->record_set >= 0);
+  const uint64_t hot_offset = static_cast<uint64_t>(hot->scales_hot - (*file)->base());
+  struct Edit {
+    const char* what;
+    uint64_t from, to;
+    const char* tensor;
+    const char* message;
+  } edits[] = {
+      {"hot scales past the end", hot_offset, bytes.size(), "layers.0.fc1.weight",
+       "scales outside the hot section"},
+      {"hot scales misaligned", hot_offset, hot_offset + 2, "layers.0.fc1.weight",
+       "scales outside the hot section"},
+      {"record scales past the record", rec->scales_part_offset,
+       (*file)->record_sets()[rec->record_set].record_size, "layers.3.experts.fc2.weight",
+       "scales outside its record"},
+  };
+  for (const Edit& e : edits) {
+    const std::string edited = EditHeaderU64(bytes, e.from, e.to);
+    ASSERT_FALSE(edited.empty()) << e.what << ": the field's value is not unique in the header";
+    const std::string bad = f.dir.File("bad.sprig");
+    WriteFile(bad, edited);
+    auto opened = format::ModelFile::Open(bad);
+    ASSERT_FALSE(opened.ok()) << e.what;
+    EXPECT_NE(opened.status().message().find(e.tensor), std::string::npos)
+        << e.what << ": " << opened.status().message();
+    EXPECT_NE(opened.status().message().find(e.message), std::string::npos)
+        << e.what << ": " << opened.status().message();
+  }
 }
 
 // Per-part types go where schema/README.md says, and packing twice gives the same bytes.
