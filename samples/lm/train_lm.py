@@ -98,12 +98,19 @@ class NodeInputs:
     def _keep(self, module, args):
         self.inputs[id(module)] = args[0]
 
-    def entropy(self):
-        total = 0.0
+    def terms(self):
+        """(hardening, balance), averaged over the tree layers: the mean binary entropy of the
+        node decisions, and KL(leaf usage || uniform) of the batch, so that hardening does not
+        settle every token on one leaf."""
+        entropy, balance = 0.0, 0.0
         for tree in self.trees:
-            p = torch.sigmoid(tree.node_logits(self.inputs[id(tree)])).clamp(1e-6, 1 - 1e-6)
-            total = total + (-(p * p.log() + (1 - p) * (1 - p).log())).mean()
-        return total / max(1, len(self.trees))
+            logits = tree.node_logits(self.inputs[id(tree)])
+            p = torch.sigmoid(logits).clamp(1e-6, 1 - 1e-6)
+            entropy = entropy + (-(p * p.log() + (1 - p) * (1 - p).log())).mean()
+            usage = tree.leaf_probabilities(logits).mean(0).clamp_min(1e-9)
+            balance = balance + (usage * (usage * usage.numel()).log()).sum()
+        n = max(1, len(self.trees))
+        return entropy / n, balance / n
 
 
 def loss_of(model, x, y, hard):
@@ -124,7 +131,8 @@ def train(model, data, steps, batch, seed, harden):
         x, y = windows(data, batch, gen)
         loss = loss_of(model, x, y, hard=False)
         if nodes:
-            loss = loss + harden * min(1.0, 2.0 * step / steps) * nodes.entropy()
+            entropy, balance = nodes.terms()
+            loss = loss + harden * min(1.0, 2.0 * step / steps) * entropy + balance
         opt.zero_grad()
         loss.backward()
         torch.nn.utils.clip_grad_norm_(model.parameters(), 1.0)
@@ -141,6 +149,15 @@ def held_out_loss(model, data, hard, seed):
         return float(loss_of(model, x, y, hard))
 
 
+def leaf_usage(model, data, seed):
+    """Held-out tokens per leaf in each block (hard descent), to show that routing spreads."""
+    gen = torch.Generator().manual_seed(seed)
+    x, _ = windows(data, 64, gen)
+    with torch.no_grad():
+        _, routes, _ = model(x, hard=True, return_routes=True)
+    return [np.bincount(routes[i].numpy(), minlength=8).tolist() for i in sorted(routes)]
+
+
 def main(argv=None):
     here = os.path.dirname(os.path.abspath(__file__))
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
@@ -149,7 +166,7 @@ def main(argv=None):
     parser.add_argument("--batch", type=int, default=16)
     parser.add_argument("--lines", type=int, default=20000, help="corpus lines")
     parser.add_argument("--seed", type=int, default=1)
-    parser.add_argument("--threads", type=int, default=2)
+    parser.add_argument("--threads", type=int, default=1)
     args = parser.parse_args(argv)
     torch.set_num_threads(args.threads)
     train_data, held_out = split_corpus(args.seed, args.lines)
@@ -167,6 +184,7 @@ def main(argv=None):
         if name == "tree":
             results[name]["held_out_loss_soft"] = held_out_loss(model, held_out, False,
                                                                 args.seed)
+            results[name]["leaf_tokens_per_block"] = leaf_usage(model, held_out, args.seed)
         export(model, os.path.join(args.out, name), reference_inputs,
                config=copy.deepcopy(config))
     with open(os.path.join(args.out, "results.json"), "w", encoding="utf-8") as f:

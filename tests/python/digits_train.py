@@ -10,7 +10,9 @@ Models, both stacks of 64 inputs -> 10 class logits, trained with PyTorch on the
 * ``tree``: one fast feedforward layer (kind tree, mode leaf), depth 3, 8 leaves of 16 units;
   trained in the soft form (each node sends sigmoid(logit) of a row's weight right) with a
   hardening term, the mean binary entropy of the node decisions, that grows over training so
-  that the hard descent the engine runs agrees with the soft mixture the training optimised;
+  that the hard descent the engine runs agrees with the soft mixture the training optimised,
+  and a balance term, the KL divergence of the batch's leaf usage from uniform, so that rows
+  spread over the leaves instead of settling on one;
 * ``dense``: one dense layer of the same hidden width (8 x 16 = 128 units).
 
 Writes, under --out: ``tree/`` and ``dense/`` (config.json, weights.npz and reference.npz from
@@ -75,11 +77,20 @@ def init_model(config, seed):
     return model
 
 
-def node_entropy(model, x):
-    """Mean binary entropy of every node decision, the hardening term."""
+def routing_terms(model, x):
+    """The hardening and balance terms of the tree's soft routing on a batch.
+
+    Hardening: the mean binary entropy of every node decision (small when each row's path is
+    decided). Balance: KL(usage || uniform) of the batch's mean leaf probabilities, so the
+    hardening does not settle every row on one leaf.
+    """
     tree = model.layers[0]
-    p = torch.sigmoid(tree.node_logits(x)).clamp(1e-6, 1 - 1e-6)
-    return -(p * p.log() + (1 - p) * (1 - p).log()).mean()
+    logits = tree.node_logits(x)
+    p = torch.sigmoid(logits).clamp(1e-6, 1 - 1e-6)
+    entropy = -(p * p.log() + (1 - p) * (1 - p).log()).mean()
+    usage = tree.leaf_probabilities(logits).mean(0).clamp_min(1e-9)
+    balance = (usage * (usage * usage.numel()).log()).sum()
+    return entropy, balance
 
 
 def train(model, x, y, epochs, harden, seed):
@@ -93,8 +104,9 @@ def train(model, x, y, epochs, harden, seed):
         for i in range(0, len(x), 64):
             idx = order[i:i + 64]
             loss = F.cross_entropy(model(x[idx], hard=False), y[idx])
-            if weight:
-                loss = loss + weight * node_entropy(model, x[idx])
+            if harden:
+                entropy, balance = routing_terms(model, x[idx])
+                loss = loss + weight * entropy + balance
             opt.zero_grad()
             loss.backward()
             opt.step()
@@ -112,11 +124,13 @@ def main(argv=None):
     parser.add_argument("--out", required=True, help="directory to write")
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--epochs", type=int, default=100)
+    parser.add_argument("--harden", type=float, default=HARDEN,
+                        help="weight of the hardening term at full strength")
     args = parser.parse_args(argv)
     torch.set_num_threads(1)
     start = time.time()
     x_train, x_test, y_train, y_test = load_split(args.seed)
-    tree = train(init_model(TREE_CONFIG, args.seed), x_train, y_train, args.epochs, HARDEN,
+    tree = train(init_model(TREE_CONFIG, args.seed), x_train, y_train, args.epochs, args.harden,
                  args.seed)
     dense = train(init_model(DENSE_CONFIG, args.seed), x_train, y_train, args.epochs, 0.0,
                   args.seed)
@@ -129,6 +143,8 @@ def main(argv=None):
         "tree_soft": accuracy(tree, x_test, y_test, hard=False),
         "tree_hard": accuracy(tree, x_test, y_test, hard=True),
         "dense": accuracy(dense, x_test, y_test, hard=True),
+        "tree_leaf_rows": np.bincount(np.load(os.path.join(args.out, "tree", "reference.npz"))[
+            "routes.layer0"], minlength=2**DEPTH).tolist(),
         "seconds": round(time.time() - start, 1),
     }
     with open(os.path.join(args.out, "accuracy.json"), "w", encoding="utf-8") as f:

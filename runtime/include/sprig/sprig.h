@@ -166,6 +166,51 @@ int sprig_session_generate(sprig_session_t* session, const int32_t* prompt, size
                            const sprig_generate_options_t* options, sprig_token_callback callback,
                            void* user, char** errptr);
 
+/* ---- statistics ---- */
+
+/* What a session has done since it was created or since sprig_session_reset_stats (see
+ * sprig::SessionStats). Times are wall-clock seconds inside the calls. */
+typedef struct sprig_session_stats_t {
+  uint64_t forward_calls;    /* forward and forward_tokens calls that succeeded */
+  uint64_t rows;             /* stack rows run by forward */
+  uint64_t sequence_tokens;  /* tokens run by forward_tokens */
+  uint64_t prefill_tokens;   /* tokens added to the KV cache by multi-token appends */
+  uint64_t decode_tokens;    /* tokens added to the KV cache one at a time */
+  uint64_t generated_tokens; /* tokens handed to generate's callback */
+  double forward_seconds;
+  double prefill_seconds;
+  double decode_seconds;
+  size_t routed_layers; /* layers with records; sprig_session_touched takes 0..routed_layers-1 */
+} sprig_session_stats_t;
+
+/* Fills *stats. Both must be non-NULL (else nothing is written). */
+void sprig_session_stats(const sprig_session_t* session, sprig_session_stats_t* stats);
+void sprig_session_reset_stats(sprig_session_t* session);
+
+/* The records (leaves, experts, path-tree chunks) the session has read in its `index`-th layer
+ * with records: the model layer it is, how many distinct records were read, of how many, and
+ * the bytes of one record. SPRIG_INVALID_ARGUMENT when index >= routed_layers. */
+int sprig_session_touched(const sprig_session_t* session, size_t index, size_t* layer,
+                          uint64_t* touched, uint64_t* records, uint64_t* record_size,
+                          char** errptr);
+
+/* How much of the model's file is in the page cache now (mincore(2)): the hot section and the
+ * record sections, each as bytes resident of bytes in all. */
+typedef struct sprig_residency_t {
+  uint64_t hot_size, hot_resident;
+  uint64_t records_size, records_resident;
+} sprig_residency_t;
+void sprig_model_residency(const sprig_model_t* model, sprig_residency_t* residency);
+
+/* This process's memory now (from /proc/self/status and getrusage): resident bytes, the peak,
+ * file-backed and anonymous resident bytes, and page-fault counts. Zeros where the system does
+ * not tell. */
+typedef struct sprig_process_memory_t {
+  uint64_t rss, peak_rss, rss_file, rss_anon;
+  uint64_t minor_faults, major_faults;
+} sprig_process_memory_t;
+void sprig_process_memory(sprig_process_memory_t* memory);
+
 #ifdef __cplusplus
 } /* extern "C" */
 #endif

@@ -12,6 +12,7 @@
 #include <string>
 #include <vector>
 
+#include "sprig/memory.h"
 #include "sprig/model.h"
 #include "sprig/session.h"
 
@@ -309,6 +310,65 @@ int sprig_session_generate(sprig_session_t* session, const int32_t* prompt, size
     return session->session->generate(tokens, o,
                                       [&](int32_t token) { return callback(token, user) != 0; });
   });
+}
+
+void sprig_session_stats(const sprig_session_t* session, sprig_session_stats_t* stats) {
+  if (session == nullptr || stats == nullptr) return;
+  const sprig::SessionStats& s = session->session->stats();
+  stats->forward_calls = s.forward_calls;
+  stats->rows = s.rows;
+  stats->sequence_tokens = s.sequence_tokens;
+  stats->prefill_tokens = s.prefill_tokens;
+  stats->decode_tokens = s.decode_tokens;
+  stats->generated_tokens = s.generated_tokens;
+  stats->forward_seconds = s.forward_seconds;
+  stats->prefill_seconds = s.prefill_seconds;
+  stats->decode_seconds = s.decode_seconds;
+  stats->routed_layers = s.touched.size();
+}
+
+void sprig_session_reset_stats(sprig_session_t* session) {
+  if (session != nullptr) session->session->reset_stats();
+}
+
+int sprig_session_touched(const sprig_session_t* session, size_t index, size_t* layer,
+                          uint64_t* touched, uint64_t* records, uint64_t* record_size,
+                          char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    if (session == nullptr) return Null("sprig_session_touched", "session");
+    const auto& all = session->session->stats().touched;
+    if (index >= all.size()) {
+      return Status::InvalidArgument("sprig_session_touched: index " + std::to_string(index) +
+                                     " is not below the " + std::to_string(all.size()) +
+                                     " layers with records");
+    }
+    const sprig::LayerTouch& t = all[index];
+    if (layer) *layer = t.layer;
+    if (touched) *touched = t.touched;
+    if (records) *records = t.records;
+    if (record_size) *record_size = t.record_size;
+    return Status::Ok();
+  });
+}
+
+void sprig_model_residency(const sprig_model_t* model, sprig_residency_t* residency) {
+  if (model == nullptr || residency == nullptr) return;
+  try {
+    const sprig::Residency r = model->model->residency();
+    *residency = {r.hot_size, r.hot_resident, r.records_size, r.records_resident};
+  } catch (...) {
+    *residency = {};  // no exception may cross into C; zeros say "unknown"
+  }
+}
+
+void sprig_process_memory(sprig_process_memory_t* memory) {
+  if (memory == nullptr) return;
+  try {
+    const sprig::ProcessMemory m = sprig::ReadProcessMemory();
+    *memory = {m.rss, m.peak_rss, m.rss_file, m.rss_anon, m.minor_faults, m.major_faults};
+  } catch (...) {
+    *memory = {};
+  }
 }
 
 }  // extern "C"
