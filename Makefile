@@ -25,7 +25,7 @@ demo: build
 	@bash samples/demo.sh $(BUILD)
 
 bench: build
-	@OPENBLAS_NUM_THREADS=1 $(BUILD)/bench/sprig_bench --benchmark_min_time=0.2
+	@OPENBLAS_NUM_THREADS=1 $(BUILD)/bin/sprig_bench --benchmark_min_time=0.2
 
 asan:
 	@$(MAKE) test BUILD=build-asan CMAKE_FLAGS="-DCMAKE_BUILD_TYPE=RelWithDebInfo -DSPRIG_SANITIZE=ON -DSPRIG_BUILD_BENCHMARKS=OFF"

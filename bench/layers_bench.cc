@@ -24,15 +24,13 @@
 #include <cstdio>
 #include <cstring>
 #include <ctime>
-#include <filesystem>
 #include <map>
 #include <memory>
 #include <string>
 #include <vector>
 
+#include "bench/kit/models.h"
 #include "converter/config/config_json.h"
-#include "converter/config/tensor_match.h"
-#include "converter/pack/packer.h"
 #include "converter/synth/synth.h"
 #include "kernels/kernels.h"
 #include "sprig/session.h"
@@ -78,8 +76,8 @@ const std::vector<float>& Pool() {
   return pool;
 }
 
-// Packs a synthesized single-layer model into the temp dir once per case and storage type and
-// opens it.
+// A synthesized single-layer model, packed into an unlinked temporary file once per case and
+// storage type.
 std::shared_ptr<const Model> ModelFor(const Case& c, DType dtype = DType::kF32) {
   static std::map<std::string, std::shared_ptr<const Model>> cache;
   const std::string key = c.name + "." + ToString(dtype);
@@ -87,24 +85,13 @@ std::shared_ptr<const Model> ModelFor(const Case& c, DType dtype = DType::kF32) 
   if (it != cache.end()) return it->second;
   const std::string text = R"({"family":"stack","input_dim":768,"layers":[)" + c.layer + "]}";
   auto config = convert::ParseConfig(text, c.name);
-  if (!config.ok()) {
-    std::fprintf(stderr, "%s\n", config.status().message().c_str());
+  BuildOptions options;
+  options.dtype = dtype;
+  auto model = config.ok() ? BuildUnlinkedModel(*config, options) : config.status();
+  if (!model.ok()) {
+    std::fprintf(stderr, "%s\n", model.status().message().c_str());
     std::abort();
   }
-  const std::vector<io::NdArray> weights = convert::SynthesizeWeights(*config, 1);
-  auto matched = convert::MatchTensors(*config, weights, c.name, {});
-  const std::string path =
-      (std::filesystem::temp_directory_path() / ("sprig-bench-" + key + ".sprig")).string();
-  convert::PackOptions options;
-  options.overwrite = true;
-  options.storage = {dtype, dtype, dtype};
-  auto packed = convert::PackTensors(*config, *matched, path, options);
-  if (!packed.ok()) {
-    std::fprintf(stderr, "%s\n", packed.status().message().c_str());
-    std::abort();
-  }
-  auto model = Model::open(path);
-  std::remove(path.c_str());  // the mapping stays valid
   cache[key] = *model;
   return *model;
 }

@@ -5,8 +5,10 @@
 // head) that differ only in their feed-forward layers:
 //
 //   routed  path tree of depth 10 (2,047 neurons, 11 used per token), gelu
-//   dense   dense width 2,048, gelu: the routed model's dense twin
+//   dense   dense width 2,047 (the tree's neurons), gelu: the routed model's dense twin
 //   no_ffn  dense width 1: costs next to nothing, so its time is everything but the FFN
+//
+// (bench/kit/models.h builds the last two from the first, as `sprig bench` does.)
 //
 // time(dense) / time(no_ffn) is the Amdahl bound: the whole-model speedup if the FFN were free.
 // The routed model's speedup over dense is printed beside it, and measured / bound says how much
@@ -25,13 +27,13 @@
 #include <cstdio>
 #include <cstdlib>
 #include <cstring>
-#include <filesystem>
 #include <memory>
 #include <string>
 #include <vector>
 
+#include "bench/kit/models.h"
+#include "bench/kit/stats.h"
 #include "converter/config/config_json.h"
-#include "converter/config/tensor_match.h"
 #include "converter/pack/packer.h"
 #include "converter/synth/synth.h"
 #include "model/flops.h"
@@ -43,16 +45,10 @@ namespace {
 
 constexpr size_t kPrompt = 128;
 
-struct Variant {
-  const char* name;
-  const char* ffn;  // JSON layer entry, repeated for each block
-};
-
-constexpr Variant kVariants[] = {
-    {"routed", R"({"kind":"tree","mode":"path","depth":10,"activation":"gelu"})"},
-    {"dense", R"({"kind":"dense","width":2048,"activation":"gelu"})"},
-    {"no_ffn", R"({"kind":"dense","width":1,"activation":"gelu"})"},
-};
+// The routed model's FFN; the dense twin and the floor (no_ffn) come from bench/kit/models.h.
+constexpr const char* kRoutedFfn =
+    R"({"kind":"tree","mode":"path","depth":10,"activation":"gelu"})";
+constexpr const char* kVariantNames[] = {"routed", "dense", "no_ffn"};
 constexpr size_t kRouted = 0, kDense = 1, kNoFfn = 2, kModels = 3;
 
 struct Options {
@@ -63,13 +59,12 @@ struct Options {
   std::string dtype = "f32";
 };
 
-std::string ConfigText(const Variant& v) {
+std::string RoutedConfigText() {
   std::string layers;
-  for (int i = 0; i < 6; ++i) layers += std::string(i ? "," : "") + v.ffn;
-  return std::string(R"({"family":"transformer","name":"bench_)") + v.name +
-         R"(","tokenizer":"byte","vocab_size":256,"d_model":512,"n_heads":8,"max_seq":512,)"
-         R"("norm":"layernorm","positions":"rope","causal":true,"head":{"kind":"lm"},)"
-         R"("layers":[)" +
+  for (int i = 0; i < 6; ++i) layers += std::string(i ? "," : "") + kRoutedFfn;
+  return R"({"family":"transformer","name":"bench_routed","tokenizer":"byte","vocab_size":256,)"
+         R"("d_model":512,"n_heads":8,"max_seq":512,"norm":"layernorm","positions":"rope",)"
+         R"("causal":true,"head":{"kind":"lm"},"layers":[)" +
          layers + "]}";
 }
 
@@ -78,26 +73,21 @@ std::string ConfigText(const Variant& v) {
   std::exit(1);
 }
 
-// Synthesizes and packs one variant into the temp dir, opens it and removes the file (the
-// mapping stays valid).
-std::shared_ptr<const Model> Build(const Variant& v, DType dtype) {
-  auto config = convert::ParseConfig(ConfigText(v), v.name);
-  if (!config.ok()) Die(v.name, config.status());
-  const std::vector<io::NdArray> weights = convert::SynthesizeWeights(*config, 1);
-  auto matched = convert::MatchTensors(*config, weights, v.name, {});
-  if (!matched.ok()) Die(v.name, matched.status());
-  const std::string path = (std::filesystem::temp_directory_path() /
-                            (std::string("sprig-bench-transformer-") + v.name + ".sprig"))
-                               .string();
-  convert::PackOptions options;
-  options.overwrite = true;
-  options.storage = {dtype, dtype, dtype};
-  auto packed = convert::PackTensors(*config, *matched, path, options);
-  if (!packed.ok()) Die(v.name, packed.status());
-  auto model = Model::open(path);
-  std::remove(path.c_str());
-  if (!model.ok()) Die(v.name, model.status());
-  return *model;
+// The routed model, its dense twin and its floor, each synthesized (seed 1), packed into an
+// unlinked temporary file and opened.
+std::vector<std::shared_ptr<const Model>> BuildModels(DType dtype) {
+  auto routed = convert::ParseConfig(RoutedConfigText(), "routed");
+  if (!routed.ok()) Die("routed", routed.status());
+  const ModelConfig configs[kModels] = {*routed, DenseTwinConfig(*routed), FloorConfig(*routed)};
+  BuildOptions options;
+  options.dtype = dtype;
+  std::vector<std::shared_ptr<const Model>> models;
+  for (size_t m = 0; m < kModels; ++m) {
+    auto model = BuildUnlinkedModel(configs[m], options);
+    if (!model.ok()) Die(kVariantNames[m], model.status());
+    models.push_back(*model);
+  }
+  return models;
 }
 
 std::vector<int32_t> RandomBytes(convert::Random& rng, size_t n) {
@@ -134,18 +124,7 @@ Timing RunOnce(Session& s, const std::vector<int32_t>& prompt, const std::vector
   return t;
 }
 
-struct Spread {
-  double median = 0, min = 0, max = 0;
-};
-
-Spread SpreadOf(std::vector<double> v) {
-  std::sort(v.begin(), v.end());
-  const size_t n = v.size();
-  const double median = n % 2 ? v[n / 2] : (v[n / 2 - 1] + v[n / 2]) / 2;
-  return {median, v.front(), v.back()};
-}
-
-std::string Format(const Spread& s, const char* fmt) {
+std::string Format(const Summary& s, const char* fmt) {
   char a[32], b[32], c[32];
   std::snprintf(a, sizeof a, fmt, s.median);
   std::snprintf(b, sizeof b, fmt, s.min);
@@ -163,7 +142,7 @@ void PrintFlops(const std::vector<std::shared_ptr<const Model>>& models, size_t 
   for (size_t m = 0; m < kModels; ++m) {
     for (uint64_t c : contexts) {
       const ModelCost cost = CostOf(models[m]->config(), c);
-      std::printf("%-8s %12llu %8llu %12llu %12llu %12llu %12llu\n", kVariants[m].name,
+      std::printf("%-8s %12llu %8llu %12llu %12llu %12llu %12llu\n", kVariantNames[m],
                   static_cast<unsigned long long>(cost.params), static_cast<unsigned long long>(c),
                   static_cast<unsigned long long>(cost.ffn_flops),
                   static_cast<unsigned long long>(cost.other_flops),
@@ -233,8 +212,8 @@ void PrintThreads(const std::vector<Timing>* t, size_t threads, const char* kern
         rate.push_back(tokens / PhaseSeconds(x, phase));
         ms.push_back(PhaseSeconds(x, phase) * 1e3 / tokens);
       }
-      std::printf("%-8s %-8s %28s %12.3f\n", PhaseName(phase), kVariants[m].name,
-                  Format(SpreadOf(rate), "%.1f").c_str(), SpreadOf(ms).median);
+      std::printf("%-8s %-8s %28s %12.3f\n", PhaseName(phase), kVariantNames[m],
+                  Format(Summarize(rate), "%.1f").c_str(), Summarize(ms).median);
     }
   }
   std::printf("\n%-8s %-22s %-22s %-22s %s\n", "phase", "speedup routed/dense",
@@ -249,8 +228,9 @@ void PrintThreads(const std::vector<Timing>* t, size_t threads, const char* kern
       share.push_back(1 - sec(kNoFfn) / sec(kDense));
     }
     std::printf("%-8s %-22s %-22s %-22s %s\n", PhaseName(phase),
-                Format(SpreadOf(speedup), "%.2f").c_str(), Format(SpreadOf(bound), "%.2f").c_str(),
-                Format(SpreadOf(ratio), "%.3f").c_str(), Format(SpreadOf(share), "%.2f").c_str());
+                Format(Summarize(speedup), "%.2f").c_str(),
+                Format(Summarize(bound), "%.2f").c_str(), Format(Summarize(ratio), "%.3f").c_str(),
+                Format(Summarize(share), "%.2f").c_str());
   }
 }
 
@@ -264,13 +244,13 @@ void PrintScaling(const std::vector<std::vector<Timing>>& t, const Options& o) {
   std::printf("\n");
   for (int phase = 0; phase < 2; ++phase) {
     for (size_t m = 0; m < kModels; ++m) {
-      std::printf("%-8s %-8s", PhaseName(phase), kVariants[m].name);
+      std::printf("%-8s %-8s", PhaseName(phase), kVariantNames[m]);
       for (size_t ti = 1; ti < o.threads.size(); ++ti) {
         std::vector<double> s;
         for (size_t r = 0; r < o.reps; ++r) {
           s.push_back(PhaseSeconds(t[m][r], phase) / PhaseSeconds(t[ti * kModels + m][r], phase));
         }
-        std::printf(" %22s", Format(SpreadOf(s), "%.2f").c_str());
+        std::printf(" %22s", Format(Summarize(s), "%.2f").c_str());
       }
       std::printf("\n");
     }
@@ -340,8 +320,7 @@ int main(int argc, char** argv) {
   auto dtype = sprig::convert::ParseStorageType(o.dtype);
   if (!dtype.ok()) Die("--dtype", dtype.status());
 
-  std::vector<std::shared_ptr<const sprig::Model>> models;
-  for (const Variant& v : kVariants) models.push_back(Build(v, *dtype));
+  const auto models = BuildModels(*dtype);
   PrintFlops(models, o.decode);
   std::vector<std::vector<std::unique_ptr<sprig::Session>>> sessions;
   const auto t = RunAll(models, o, &sessions);

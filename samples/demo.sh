@@ -1,43 +1,40 @@
 #!/usr/bin/env bash
-# The demo: synthesize a small routed model, pack it (f32 and f16), inspect and check it, run it
-# on a few rows, and show how the rows spread over its leaves and experts.
+# The demo: the whole job on the sample language model of samples/lm (a byte-level model of
+# orchard logbook notes whose blocks use fast feedforward leaf trees, and its dense twin, both
+# trained with PyTorch by samples/lm/train_lm.py): pack, verify against PyTorch, generate,
+# benchmark against the dense twin, and write an HTML report.
 set -euo pipefail
 BUILD="${1:-build}"
 ROOT="$(cd "$(dirname "$0")/.." && pwd)"
 SPRIG="$BUILD/bin/sprig"
 OUT="$ROOT/demo-out"
+LM="$ROOT/samples/lm"
 mkdir -p "$OUT"
-CONFIG="$ROOT/samples/demo/orchard.json"
 
 step() { printf '\n== %s\n' "$*"; }
 
-step "1. random weights for the demo config (samples/demo/orchard.json)"
-"$SPRIG" synth "$CONFIG" -o "$OUT/orchard-weights.npz" --seed 7 --force
+step "1. pack the sample model as float32 and as half precision, and its dense twin"
+"$SPRIG" pack "$LM/tree/config.json" "$LM/tree/weights.npz" -o "$OUT/notes.sprig" --force
+"$SPRIG" pack "$LM/tree/config.json" "$LM/tree/weights.npz" -o "$OUT/notes-f16.sprig" \
+  --dtype f16 --force
+"$SPRIG" pack "$LM/dense/config.json" "$LM/dense/weights.npz" -o "$OUT/notes-dense.sprig" --force
+"$SPRIG" inspect "$OUT/notes.sprig" | sed -n '/^layers/,$p'
 
-step "2. pack them into .sprig files, as float32 and as half precision"
-"$SPRIG" pack "$CONFIG" "$OUT/orchard-weights.npz" -o "$OUT/orchard.sprig" --force
-"$SPRIG" pack "$CONFIG" "$OUT/orchard-weights.npz" -o "$OUT/orchard-f16.sprig" --dtype f16 --force
+step "2. verify both files against the PyTorch reference outputs and routes"
+for model in notes notes-f16; do
+  "$SPRIG" verify "$OUT/$model.sprig" "$LM/tree/reference.npz" | grep -E '^verify|^  outputs|routing|diverge|^PASS|^FAIL'
+done
 
-step "3. inspect the file and verify every checksum"
-"$SPRIG" inspect "$OUT/orchard.sprig" --check
+step "3. continue a note (the text comes from a small sample model and is often wrong)"
+"$SPRIG" generate "$OUT/notes.sprig" --prompt "Day 41 at Brindle Terrace: " --count 96 \
+  --temperature 0.6 --seed 3
+echo
 
-step "4. run it on 8 rows of made-up readings"
-/usr/bin/python3 - "$OUT/readings.npy" <<'PY'
-import sys, numpy as np
-np.save(sys.argv[1], np.random.default_rng(3).standard_normal((256, 48)).astype(np.float32))
-PY
-"$SPRIG" run "$OUT/orchard.sprig" --input "$OUT/readings.npy" --output "$OUT/grades.npy" \
-  --routes "$OUT/routes.npz"
-/usr/bin/python3 - "$OUT/grades.npy" "$OUT/routes.npz" <<'PY'
-import sys, numpy as np
-y = np.load(sys.argv[1]); r = np.load(sys.argv[2])
-print("first rows' scores for the 6 grades (random weights: the grades mean nothing):")
-for i in range(8):
-    print("  row %d: %s  -> grade %d, leaf %d" % (i, np.array2string(y[i], precision=2,
-          suppress_small=True), int(y[i].argmax()), int(r["layer1"][i])))
-PY
+step "4. benchmark the routed model against its trained dense twin (decode and prefill)"
+"$SPRIG" bench "$OUT/notes.sprig" --baseline "$OUT/notes-dense.sprig" --prompt-tokens 64 \
+  --decode-tokens 64 --repeat 5 --report "$OUT/report.html"
 
-step "5. how the 256 rows spread over the routed layers"
-"$SPRIG" routes "$OUT/orchard.sprig" --input "$OUT/readings.npy" | head -24
-
-printf '\nDemo files are in %s\n' "$OUT"
+step "5. the report"
+printf 'Open %s in a browser: speedup, latency distribution, memory and leaf usage.\n' \
+  "$OUT/report.html"
+printf 'Demo files are in %s\n' "$OUT"

@@ -8,8 +8,9 @@ PACKAGES=(
   libxsimd-dev libflatbuffers-dev flatbuffers-compiler
   libspdlog-dev libfmt-dev nlohmann-json3-dev libcli11-dev zlib1g-dev
   libgtest-dev libgmock-dev googletest libbenchmark-dev libopenblas-dev
-  python3-numpy python3-torch python3-sklearn
+  python3-numpy python3-torch python3-sklearn python3-flatbuffers
   clang clang-format
+  chromium
 )
 
 missing=()

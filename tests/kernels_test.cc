@@ -168,6 +168,16 @@ TEST(KernelDispatch, AvailablePathsAndTables) {
   EXPECT_FALSE(IsPathAvailable(KernelPath::kNeon));
   EXPECT_EQ(Kernels(KernelPath::kNeon).path, KernelPath::kScalar);  // never an unusable table
 #endif
+#if defined(__aarch64__)
+  // Source: the Arm Architecture Reference Manual (from memory) requires Advanced SIMD of AArch64
+  // cores meant for standard software, and QEMU's emulated core has it, so run-time detection
+  // must pick neon; no x86 path is ever offered.
+  EXPECT_EQ(DetectBestPath(), KernelPath::kNeon);
+  for (KernelPath x86 : {KernelPath::kSse42, KernelPath::kAvx2, KernelPath::kAvx512}) {
+    EXPECT_FALSE(IsPathAvailable(x86)) << ToString(x86);
+    EXPECT_EQ(Kernels(x86).path, KernelPath::kScalar);
+  }
+#endif
 }
 
 // The first path this machine cannot run (neon on x86, the x86 paths elsewhere).

@@ -50,12 +50,16 @@ std::vector<uint8_t> BuildHeader(const ModelConfig& config, const LayoutPlan& pl
   std::vector<flatbuffers::Offset<fb::Tensor>> tensors;
   for (size_t i = 0; i < plan.tensors.size(); ++i) {
     const PlannedTensor& t = plan.tensors[i];
+    // Built in named steps, shape first: C++ leaves the order of evaluating arguments open,
+    // and GCC takes them in another order on aarch64 than on x86-64, which gave another (as
+    // valid) header there. This order keeps the bytes x86-64 builds always wrote.
+    auto shape = b.CreateVector(t.spec.shape);
+    auto name = b.CreateString(t.spec.name);
     tensors.push_back(fb::CreateTensor(
-        b, b.CreateString(t.spec.name), static_cast<fb::DType>(t.dtype),
-        b.CreateVector(t.spec.shape), t.hot_offset, t.hot_rows, t.hot_rows * t.row_bytes,
-        crc.hot[i], t.record_set, t.part_offset, t.part_size, t.spec.layer, t.scales_hot_offset,
-        crc.hot_scales[i], t.scales_part_offset, static_cast<float>(errors[i].error.max_abs),
-        static_cast<float>(errors[i].error.rel_rms)));
+        b, name, static_cast<fb::DType>(t.dtype), shape, t.hot_offset, t.hot_rows,
+        t.hot_rows * t.row_bytes, crc.hot[i], t.record_set, t.part_offset, t.part_size,
+        t.spec.layer, t.scales_hot_offset, crc.hot_scales[i], t.scales_part_offset,
+        static_cast<float>(errors[i].error.max_abs), static_cast<float>(errors[i].error.rel_rms)));
   }
   auto tensors_vec = b.CreateVector(tensors);
   std::vector<flatbuffers::Offset<fb::RecordSet>> sets;

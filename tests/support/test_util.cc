@@ -48,8 +48,16 @@ CommandResult Run(const std::string& command_line) {
   return r;
 }
 
+std::string BuiltProgram(const std::string& program) {
+#ifdef SPRIG_TEST_EMULATOR
+  return std::string(SPRIG_TEST_EMULATOR) + " " + Quote(program);
+#else
+  return Quote(program);
+#endif
+}
+
 std::string SprigCli() {
-  return SPRIG_CLI_PATH;
+  return BuiltProgram(SPRIG_CLI_PATH);
 }
 std::string Python() {
   return "/usr/bin/python3";

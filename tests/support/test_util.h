@@ -32,7 +32,12 @@ struct CommandResult {
 // Runs a shell command line and captures what it prints.
 CommandResult Run(const std::string& command_line);
 
-// The sprig program built with the tests, and Debian's Python (with NumPy and PyTorch).
+// A command-line prefix that runs `program`, a program built with the tests: its quoted path,
+// preceded in a cross build by the emulator that runs the tests (CMAKE_CROSSCOMPILING_EMULATOR),
+// since a shell started from an emulated test is a host shell that cannot start it directly.
+std::string BuiltProgram(const std::string& program);
+// The sprig program built with the tests (as BuiltProgram), and Debian's Python (with NumPy and
+// PyTorch), which is a host program even in a cross build.
 std::string SprigCli();
 std::string Python();
 // Runs `/usr/bin/python3 -c SCRIPT` (arguments appended, shell-quoted).

@@ -53,5 +53,6 @@ Verb AddRun(CLI::App& app);
 Verb AddRoutes(CLI::App& app);
 Verb AddGenerate(CLI::App& app);
 Verb AddVerify(CLI::App& app);
+Verb AddBench(CLI::App& app);
 
 }  // namespace sprig::cli

@@ -20,6 +20,7 @@ int main(int argc, char** argv) {
       sprig::cli::AddPack(app),   sprig::cli::AddInspect(app), sprig::cli::AddSynth(app),
       sprig::cli::AddRun(app),    sprig::cli::AddRoutes(app),  sprig::cli::AddGenerate(app),
       sprig::cli::AddVerify(app),
+      sprig::cli::AddBench(app),
   };
   try {
     app.parse(argc, argv);

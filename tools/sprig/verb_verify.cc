@@ -101,7 +101,8 @@ class Reference {
     return v;
   }
 
-  // An integer array of rows × width values ([rows] allowed when width is 1).
+  // An integer array of rows × width values ([rows] allowed when width is 1, [width] when rows
+  // is 1).
   Result<std::vector<int64_t>> Ints(const std::string& name, uint64_t rows, uint64_t width) const {
     const io::NdArray* a = archive_.Find(name);
     if (a == nullptr) return Missing(name);
@@ -110,7 +111,7 @@ class Reference {
                                      io::ElementTypeName(a->type) + " values, expected int32 or " +
                                      "int64");
     }
-    const bool flat = a->shape.size() == 1 && width == 1;
+    const bool flat = a->shape.size() == 1 && (width == 1 || rows == 1);
     const bool matrix = a->shape.size() == 2 && a->shape[1] == width;
     if (a->elements() != rows * width || !(flat || matrix)) {
       return Status::InvalidArgument(path() + ": array '" + name + "' has shape " +
@@ -174,7 +175,7 @@ Result<Computed> RunTokens(Session& session, const Reference& ref, const ModelCo
   r.sequences = in->shape.size() == 1 ? 1 : in->shape[0];
   r.length = in->shape.back();
   r.rows = r.sequences * r.length;
-  SPRIG_ASSIGN_OR_RETURN(std::vector<int64_t> t, ref.Ints("inputs", 1, r.rows));
+  SPRIG_ASSIGN_OR_RETURN(std::vector<int64_t> t, ref.Ints("inputs", r.sequences, r.length));
   std::vector<int32_t> tokens(r.rows);
   for (size_t i = 0; i < r.rows; ++i) {
     if (t[i] < 0 || t[i] >= static_cast<int64_t>(c.vocab_size)) {

@@ -137,6 +137,16 @@ def _check(code, err):
     raise SprigError(code, message)
 
 
+def _output(out, shape):
+    """A float32 array of `shape` to write into: `out` itself when it fits, else a new one."""
+    if out is None:
+        return np.empty(shape, dtype=np.float32)
+    if (out.dtype != np.float32 or not out.flags.c_contiguous or not out.flags.writeable
+            or out.size != int(np.prod(shape))):
+        raise ValueError(f"out must be a writable C-contiguous float32 array of {list(shape)}")
+    return out.reshape(shape)
+
+
 def _struct_dict(s):
     return {name: getattr(s, name) for name, _ in s._fields_}
 
@@ -201,22 +211,24 @@ class Session:
         self.threads = lib.sprig_session_threads(self._handle)
         self.kernel_path = lib.sprig_session_kernel_path(self._handle).decode()
 
-    def forward(self, rows):
-        """Stack models: float rows [N, input_dim] -> float32 [N, output_dim]."""
+    def forward(self, rows, out=None):
+        """Stack models: float rows [N, input_dim] -> float32 [N, output_dim]. `out`, when
+        given, is a C-contiguous float32 array of that shape to write into (no allocation)."""
         x = np.ascontiguousarray(rows, dtype=np.float32)
         if x.ndim == 1:
             x = x[None, :]
         if x.ndim != 2 or x.shape[1] != self.model.input_dim:
             raise ValueError(f"rows must be [N, {self.model.input_dim}], got {list(x.shape)}")
-        y = np.empty((x.shape[0], self.model.output_dim), dtype=np.float32)
+        y = _output(out, (x.shape[0], self.model.output_dim))
         err = ctypes.c_void_p()
         _check(_library().sprig_session_forward(self._handle, x.ctypes.data, x.shape[0],
                                                 y.ctypes.data, ctypes.byref(err)), err)
         return y
 
-    def forward_tokens(self, tokens):
+    def forward_tokens(self, tokens, out=None):
         """Transformer models: int tokens [B, T] (or [T]) -> logits [B, T, V], class scores
-        [B, C] or hidden states [B, T, D], as float32."""
+        [B, C] or hidden states [B, T, D], as float32. `out` as in forward, of as many
+        values."""
         t = np.ascontiguousarray(tokens, dtype=np.int32)
         if t.ndim == 1:
             t = t[None, :]
@@ -224,7 +236,7 @@ class Session:
             raise ValueError(f"tokens must be [B, T] or [T], got {list(t.shape)}")
         b, n = t.shape
         size = _library().sprig_model_tokens_output_size(self.model._handle, b, n)
-        y = np.empty(size, dtype=np.float32)
+        y = _output(out, (size,)).reshape(-1)
         err = ctypes.c_void_p()
         _check(_library().sprig_session_forward_tokens(self._handle, t.ctypes.data, b, n,
                                                        y.ctypes.data, ctypes.byref(err)), err)

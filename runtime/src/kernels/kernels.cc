@@ -8,6 +8,11 @@
 
 #include "kernels/kernels_internal.h"
 
+#if defined(__aarch64__) && defined(__linux__)
+#include <asm/hwcap.h>
+#include <sys/auxv.h>
+#endif
+
 namespace sprig::kernels {
 namespace {
 
@@ -34,8 +39,15 @@ bool CpuSupports(KernelPath path) {
              __builtin_cpu_supports("fma") && __builtin_cpu_supports("f16c");
 #endif
 #if defined(__aarch64__)
+    // Advanced SIMD (with the f16 <-> f32 conversions the path uses) is required of AArch64
+    // cores meant for standard software, but the architecture lets specialised cores omit it;
+    // Linux reports it as HWCAP_ASIMD, so such a core falls back to scalar instead of faulting.
     case KernelPath::kNeon:
-      return true;  // Advanced SIMD is mandatory on AArch64.
+#if defined(__linux__)
+      return (getauxval(AT_HWCAP) & HWCAP_ASIMD) != 0;
+#else
+      return true;
+#endif
 #endif
     default:
       return false;

@@ -101,8 +101,8 @@ const char* ToString(KernelPath path);
 Result<KernelPath> ParseKernelPath(std::string_view name);
 
 // True when `path` is compiled into this build and this CPU (and OS) supports it: sse42 needs
-// SSE4.2; avx2 needs AVX2, FMA and F16C; avx512 needs AVX-512 F, BW, DQ and VL; neon is
-// always there on aarch64.
+// SSE4.2; avx2 needs AVX2, FMA and F16C; avx512 needs AVX-512 F, BW, DQ and VL; neon needs
+// Advanced SIMD (on every AArch64 laptop, desktop and server core).
 bool IsPathAvailable(KernelPath path);
 // Every available path, kScalar first, in the order of the enum.
 std::vector<KernelPath> AvailablePaths();

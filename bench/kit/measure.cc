@@ -1,0 +1,441 @@
+#include "bench/kit/measure.h"
+
+#include <algorithm>
+#include <chrono>
+#include <cinttypes>
+#include <cstdio>
+#include <cstring>
+#include <ctime>
+
+#include "bench/kit/models.h"
+#include "format/model_file.h"
+#include "layers/feed_forward.h"
+#include "numeric/random.h"
+
+namespace sprig::bench {
+namespace {
+
+using Clock = std::chrono::steady_clock;
+
+double Seconds(Clock::time_point a, Clock::time_point b) {
+  return std::chrono::duration<double>(b - a).count();
+}
+
+// CPU time of the whole process (all its threads), in seconds. On a busy machine wall time
+// includes the time other programs held the CPU, and a long run absorbs more of it than a short
+// one; CPU time does not.
+double ProcessCpuSeconds() {
+  timespec t{};
+  clock_gettime(CLOCK_PROCESS_CPUTIME_ID, &t);
+  return static_cast<double>(t.tv_sec) + static_cast<double>(t.tv_nsec) * 1e-9;
+}
+
+// Samples of the memory curve per first pass: enough for a smooth line, few enough that reading
+// /proc/self/smaps (about a millisecond) stays out of the way.
+constexpr size_t kCurveSamples = 48;
+
+// The inputs of one repetition: stack rows are fixed for the run (distinct rows within a
+// repetition, so a tree's path does not stay in cache as it would for one repeated row);
+// transformer prompts and decoded tokens are new random tokens per repetition, the same for
+// every side within it.
+struct Inputs {
+  std::vector<float> pool;  // stack: rows × input_dim
+  std::vector<int32_t> prompt, next;
+};
+
+std::vector<float> RowPool(size_t rows, size_t in, uint64_t seed) {
+  numeric::Random rng(seed);
+  std::vector<float> v(rows * in);
+  for (float& x : v) x = rng.Normal();
+  return v;
+}
+
+void NewTokens(const ModelConfig& c, const MeasureOptions& o, uint64_t seed, Inputs* in) {
+  numeric::Random rng(seed);
+  auto draw = [&](size_t n) {
+    std::vector<int32_t> t(n);
+    for (int32_t& v : t) v = static_cast<int32_t>(rng.Next() % c.vocab_size);
+    return t;
+  };
+  in->prompt = draw(o.prompt_tokens);
+  in->next = draw(o.decode_tokens);
+}
+
+size_t CallsFor(const MeasureOptions& o, size_t batch) {
+  return std::max<size_t>(1, (o.rows + batch - 1) / batch);
+}
+
+// One side's run of a workload; `sample` is called after each step with units done so far.
+struct RunOut {
+  double seconds = 0;                              // stack: all calls; transformer: prefill
+  double decode_seconds = 0;                       // transformer
+  double cpu_seconds = 0, decode_cpu_seconds = 0;  // the same in process CPU time
+  double first_ms = 0;                             // the first call or the prefill
+  std::vector<double> latency_ms;                  // per call (stack) or per decoded token
+};
+
+Status RunRows(Session& s, const Inputs& in, size_t batch, size_t calls, RunOut* out,
+               const std::function<void(size_t, size_t)>& sample) {
+  const ModelConfig& c = s.model().config();
+  std::vector<float> y(batch * c.output_dim());
+  const auto start = Clock::now();
+  const double cpu = ProcessCpuSeconds();
+  for (size_t i = 0; i < calls; ++i) {
+    const auto t0 = Clock::now();
+    SPRIG_RETURN_IF_ERROR(s.forward(in.pool.data() + i * batch * c.input_dim, batch, y.data()));
+    const double ms = Seconds(t0, Clock::now()) * 1e3;
+    out->latency_ms.push_back(ms);
+    if (i == 0) out->first_ms = ms;
+    if (sample) sample(i, (i + 1) * batch);
+  }
+  out->seconds = Seconds(start, Clock::now());
+  out->cpu_seconds = ProcessCpuSeconds() - cpu;
+  return Status::Ok();
+}
+
+Status RunSequence(Session& s, const Inputs& in, RunOut* out,
+                   const std::function<void(size_t, size_t)>& sample) {
+  std::vector<float> logits(s.model().config().vocab_size);
+  s.reset();
+  auto t0 = Clock::now();
+  double cpu = ProcessCpuSeconds();
+  SPRIG_RETURN_IF_ERROR(s.append_tokens(in.prompt.data(), in.prompt.size(), logits.data()));
+  out->seconds = Seconds(t0, Clock::now());
+  out->cpu_seconds = ProcessCpuSeconds() - cpu;
+  out->first_ms = out->seconds * 1e3;
+  if (sample) sample(0, in.prompt.size());
+  const auto start = Clock::now();
+  cpu = ProcessCpuSeconds();
+  for (size_t i = 0; i < in.next.size(); ++i) {
+    t0 = Clock::now();
+    SPRIG_RETURN_IF_ERROR(s.append_token(in.next[i], logits.data()));
+    out->latency_ms.push_back(Seconds(t0, Clock::now()) * 1e3);
+    if (sample) sample(i + 1, in.prompt.size() + i + 1);
+  }
+  out->decode_seconds = Seconds(start, Clock::now());
+  out->decode_cpu_seconds = ProcessCpuSeconds() - cpu;
+  return Status::Ok();
+}
+
+uint64_t RoutedFlops(const ModelConfig& c) {
+  uint64_t f = 0;
+  for (const LayerConfig& l : c.layers) {
+    if (IsRouted(l)) f += CostOf(l).flops_per_token;
+  }
+  return f;
+}
+
+std::vector<SideFlops> FlopsOf(const ModelConfig& c, const MeasureOptions& o) {
+  std::vector<std::pair<std::string, uint64_t>> phases;
+  if (c.family == Family::kStack) {
+    phases = {{"rows", 0}};
+  } else {
+    // Attention grows with the position: the prompt's tokens average P / 2, the decoded ones
+    // P + G / 2.
+    phases = {{"prefill", o.prompt_tokens / 2}, {"decode", o.prompt_tokens + o.decode_tokens / 2}};
+  }
+  std::vector<SideFlops> out;
+  for (const auto& [phase, context] : phases) {
+    out.push_back({phase, context, CostOf(c, context), RoutedFlops(c)});
+  }
+  return out;
+}
+
+const SideFlops* FlopsAt(const SideInfo& s, const std::string& phase) {
+  for (const SideFlops& f : s.flops) {
+    if (f.phase == phase) return &f;
+  }
+  return nullptr;
+}
+
+// The points of the run, in the order repetitions visit them.
+std::vector<Point> MakePoints(const ModelConfig& c, const MeasureOptions& o) {
+  std::vector<Point> points;
+  for (size_t t : o.threads) {
+    if (c.family == Family::kStack) {
+      for (size_t b : o.batches) {
+        Point p;
+        p.threads = t;
+        p.phase = "rows";
+        p.batch = b;
+        p.units = CallsFor(o, b) * b;
+        points.push_back(p);
+      }
+    } else {
+      Point p;
+      p.threads = t;
+      p.phase = "prefill";
+      p.batch = o.prompt_tokens;
+      p.units = o.prompt_tokens;
+      points.push_back(p);
+      p.phase = "decode";
+      p.batch = 1;
+      p.units = o.decode_tokens;
+      points.push_back(p);
+    }
+  }
+  return points;
+}
+
+class Runner {
+ public:
+  Runner(const std::shared_ptr<const Model> (&models)[kSides], const MeasureOptions& o)
+      : o_(o), config_(models[kModel]->config()) {
+    for (size_t s = 0; s < kSides; ++s) models_[s] = models[s];
+  }
+
+  Status Open() {
+    for (size_t t : o_.threads) {
+      sessions_.emplace_back();
+      for (size_t s = 0; s < kSides; ++s) {
+        SessionOptions so;
+        so.threads = t;
+        SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(models_[s], so));
+        sessions_.back().push_back(std::move(session));
+      }
+    }
+    if (config_.family == Family::kStack) {
+      size_t rows = 0;
+      for (size_t b : o_.batches) rows = std::max(rows, CallsFor(o_, b) * b);
+      inputs_.pool = RowPool(rows, config_.input_dim, o_.seed);
+    }
+    return Status::Ok();
+  }
+
+  // The first pass of each side: first call and resident memory against tokens processed.
+  Status FirstPass(Measurement* m) {
+    if (config_.family == Family::kTransformer) NewTokens(config_, o_, o_.seed, &inputs_);
+    for (size_t s = 0; s < kSides; ++s) {
+      SideMemory& mem = m->sides[s].memory;
+      const void* base = models_[s]->file().base();
+      const size_t steps =
+          config_.family == Family::kStack ? CallsFor(o_, o_.batches[0]) : 1 + o_.decode_tokens;
+      const size_t stride = std::max<size_t>(1, steps / kCurveSamples);
+      auto sample = [&](size_t step, size_t units) {
+        if (step % stride != 0 && step + 1 != steps) return;
+        const uint64_t r = MappedResidentBytes(base);
+        mem.curve.push_back({units, r});
+        mem.mapped_resident_peak = std::max(mem.mapped_resident_peak, r);
+      };
+      mem.curve.push_back({0, MappedResidentBytes(base)});
+      RunOut out;
+      SPRIG_RETURN_IF_ERROR(RunOnce(*sessions_[0][s], o_.batches[0], &out, sample));
+      mem.first_call_ms = out.first_ms;
+      Step();
+    }
+    return Status::Ok();
+  }
+
+  Status WarmUp(const std::vector<Point>& points) {
+    for (size_t ti = 0; ti < o_.threads.size(); ++ti) {
+      for (const Point& p : points) {
+        if (p.threads != o_.threads[ti] || p.phase == "decode") continue;
+        for (size_t s = 0; s < kSides; ++s) {
+          RunOut out;
+          SPRIG_RETURN_IF_ERROR(RunOnce(*sessions_[ti][s], p.batch, &out, nullptr));
+          Step();
+        }
+      }
+    }
+    return Status::Ok();
+  }
+
+  Status Repeat(std::vector<Point>* points) {
+    for (size_t r = 0; r < o_.repeat; ++r) {
+      if (config_.family == Family::kTransformer) {
+        NewTokens(config_, o_, o_.seed + 1 + r, &inputs_);
+      }
+      for (size_t ti = 0; ti < o_.threads.size(); ++ti) {
+        for (size_t pi = 0; pi < points->size(); ++pi) {
+          Point& p = (*points)[pi];
+          // A transformer's decode point is measured in the same run as its prefill point.
+          if (p.threads != o_.threads[ti] || p.phase == "decode") continue;
+          for (size_t i = 0; i < kSides; ++i) {
+            const size_t s = (r + i) % kSides;
+            RunOut out;
+            SPRIG_RETURN_IF_ERROR(RunOnce(*sessions_[ti][s], p.batch, &out, nullptr));
+            Record(out, s, &p, pi + 1 < points->size() ? &(*points)[pi + 1] : nullptr);
+            Step();
+          }
+        }
+      }
+    }
+    return Status::Ok();
+  }
+
+  // The model's routing on the benchmark's inputs, from a fresh session so that no side's
+  // records-touched count sees inputs the others did not.
+  Status Usage(Measurement* m) {
+    SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(models_[kModel]));
+    Routes routes;
+    if (config_.family == Family::kStack) {
+      const size_t rows = inputs_.pool.size() / config_.input_dim;
+      std::vector<float> y(rows * config_.output_dim());
+      SPRIG_RETURN_IF_ERROR(session->forward(inputs_.pool.data(), rows, y.data(), &routes));
+    } else {
+      std::vector<int32_t> seq = inputs_.prompt;
+      seq.insert(seq.end(), inputs_.next.begin(), inputs_.next.end());
+      std::vector<float> y(seq.size() * config_.output_dim());
+      SPRIG_RETURN_IF_ERROR(session->forward_tokens(seq.data(), 1, seq.size(), y.data(), &routes));
+    }
+    for (const LayerRoutes& lr : routes.layers) {
+      LayerUsage u;
+      u.layer = lr.layer;
+      u.counts.assign(models_[kModel]->layers()[lr.layer]->unit_count(), 0);
+      for (int32_t c : lr.choices) {
+        if (c >= 0 && static_cast<size_t>(c) < u.counts.size()) ++u.counts[c];
+      }
+      m->usage.push_back(std::move(u));
+    }
+    return Status::Ok();
+  }
+
+  void Finish(Measurement* m) {
+    m->kernel_path = sessions_[0][0]->kernel_path();
+    for (size_t s = 0; s < kSides; ++s) {
+      SideMemory& mem = m->sides[s].memory;
+      mem.file_size = models_[s]->file_size();
+      mem.residency = models_[s]->residency();
+      mem.touched = sessions_[0][s]->stats().touched;
+      mem.mapped_resident = MappedResidentBytes(models_[s]->file().base());
+      mem.mapped_resident_peak = std::max(mem.mapped_resident_peak, mem.mapped_resident);
+    }
+  }
+
+  // Steps reported to the progress callback: the first passes, the warm-up and every
+  // repetition, one per side and point run.
+  void SetTotalSteps(const std::vector<Point>& points) {
+    size_t per_round = 0;
+    for (const Point& p : points) per_round += p.phase == "decode" ? 0 : kSides;
+    total_ = kSides + per_round * (o_.repeat + 1);
+  }
+
+ private:
+  Status RunOnce(Session& s, size_t batch, RunOut* out,
+                 const std::function<void(size_t, size_t)>& sample) {
+    if (config_.family == Family::kStack) {
+      return RunRows(s, inputs_, batch, CallsFor(o_, batch), out, sample);
+    }
+    return RunSequence(s, inputs_, out, sample);
+  }
+
+  // Stores one run: for a transformer the prefill point and the decode point after it.
+  static void Record(const RunOut& out, size_t s, Point* p, Point* decode) {
+    SideTiming& t = p->side[s];
+    t.seconds.push_back(out.seconds);
+    t.cpu_seconds.push_back(out.cpu_seconds);
+    if (p->phase == "prefill") {
+      t.latency_ms.push_back(out.seconds * 1e3);
+      SideTiming& d = decode->side[s];
+      d.seconds.push_back(out.decode_seconds);
+      d.cpu_seconds.push_back(out.decode_cpu_seconds);
+      d.latency_ms.insert(d.latency_ms.end(), out.latency_ms.begin(), out.latency_ms.end());
+    } else {
+      t.latency_ms.insert(t.latency_ms.end(), out.latency_ms.begin(), out.latency_ms.end());
+    }
+  }
+
+  void Step() {
+    ++done_;
+    if (o_.progress) o_.progress(done_, total_);
+  }
+
+  const MeasureOptions& o_;
+  const ModelConfig& config_;
+  std::shared_ptr<const Model> models_[kSides];
+  std::vector<std::vector<std::unique_ptr<Session>>> sessions_;  // [thread count][side]
+  Inputs inputs_;
+  size_t done_ = 0, total_ = 0;
+};
+
+// Rates, latency summaries and the paired ratios of every point.
+void SummarizePoints(Measurement* m) {
+  for (Point& p : m->points) {
+    for (size_t s = 0; s < kSides; ++s) {
+      SideTiming& t = p.side[s];
+      std::vector<double> rate;
+      std::vector<double> cpu_rate;
+      for (double sec : t.seconds) rate.push_back(static_cast<double>(p.units) / sec);
+      for (double sec : t.cpu_seconds) cpu_rate.push_back(static_cast<double>(p.units) / sec);
+      t.cpu_per_second = Summarize(cpu_rate);
+      t.per_second = Summarize(rate);
+      t.latency = Summarize(t.latency_ms);
+    }
+    std::vector<double> speedup, bound, cpu_speedup;
+    for (size_t r = 0; r < p.side[kModel].seconds.size(); ++r) {
+      speedup.push_back(p.side[kBaseline].seconds[r] / p.side[kModel].seconds[r]);
+      bound.push_back(p.side[kBaseline].seconds[r] / p.side[kFloor].seconds[r]);
+      cpu_speedup.push_back(p.side[kBaseline].cpu_seconds[r] / p.side[kModel].cpu_seconds[r]);
+    }
+    p.speedup = Summarize(speedup);
+    p.bound = Summarize(bound);
+    p.cpu_speedup = Summarize(cpu_speedup);
+    const SideFlops* model = FlopsAt(m->sides[kModel], p.phase);
+    const SideFlops* baseline = FlopsAt(m->sides[kBaseline], p.phase);
+    if (model && baseline) {
+      const uint64_t rest = model->cost.ffn_flops + model->cost.other_flops - model->routed_flops;
+      const uint64_t base = baseline->cost.ffn_flops + baseline->cost.other_flops;
+      p.flops_bound = rest > 0 ? static_cast<double>(base) / static_cast<double>(rest) : 0;
+    }
+  }
+}
+
+}  // namespace
+
+const char* SideName(size_t side) {
+  static const char* names[kSides] = {"model", "baseline", "floor"};
+  return side < kSides ? names[side] : "?";
+}
+
+uint64_t MappedResidentBytes(const void* base) {
+  FILE* f = std::fopen("/proc/self/smaps", "r");
+  if (!f) return 0;
+  const uintptr_t want = reinterpret_cast<uintptr_t>(base);
+  char line[512];
+  bool in_mapping = false;
+  uint64_t rss = 0;
+  while (std::fgets(line, sizeof(line), f)) {
+    uintptr_t start = 0, end = 0;
+    // A mapping's first line is "start-end perms offset dev inode path"; its fields follow.
+    if (std::sscanf(line, "%" SCNxPTR "-%" SCNxPTR " ", &start, &end) == 2 &&
+        std::strchr(line, ' ') > std::strchr(line, '-')) {
+      if (in_mapping) break;
+      in_mapping = start == want;
+      continue;
+    }
+    unsigned long long kb = 0;
+    if (in_mapping && std::sscanf(line, "Rss: %llu kB", &kb) == 1) rss = kb * 1024;
+  }
+  std::fclose(f);
+  return rss;
+}
+
+Result<Measurement> Measure(const std::shared_ptr<const Model> (&models)[kSides],
+                            const std::string (&labels)[kSides], const MeasureOptions& o) {
+  if (o.threads.empty() || o.batches.empty() || o.repeat == 0) {
+    return Status::InvalidArgument(
+        "a benchmark needs a thread count, a batch size and a repetition");
+  }
+  Measurement m;
+  m.family = models[kModel]->config().family;
+  m.memory_start = ReadProcessMemory();
+  for (size_t s = 0; s < kSides; ++s) {
+    m.sides[s].label = labels[s];
+    m.sides[s].model = models[s];
+    m.sides[s].flops = FlopsOf(models[s]->config(), o);
+  }
+  m.points = MakePoints(models[kModel]->config(), o);
+  Runner runner(models, o);
+  runner.SetTotalSteps(m.points);
+  SPRIG_RETURN_IF_ERROR(runner.Open());
+  SPRIG_RETURN_IF_ERROR(runner.FirstPass(&m));
+  SPRIG_RETURN_IF_ERROR(runner.WarmUp(m.points));
+  SPRIG_RETURN_IF_ERROR(runner.Repeat(&m.points));
+  runner.Finish(&m);
+  SPRIG_RETURN_IF_ERROR(runner.Usage(&m));
+  m.memory_end = ReadProcessMemory();
+  SummarizePoints(&m);
+  return m;
+}
+
+}  // namespace sprig::bench

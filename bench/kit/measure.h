@@ -1,0 +1,118 @@
+// Measures a model against a baseline and a floor in one process, interleaved, so that drift of
+// the machine (other programs, frequency, temperature) falls on all of them alike.
+//
+// A repetition runs, for each thread count and each batch size (stack) or once (transformer),
+// every side in turn, the order rotating from one repetition to the next; ratios are formed
+// within a repetition and summarized over repetitions. Before the repetitions a first pass per
+// side records its first call (cold when the files were evicted) and its resident memory as
+// tokens are processed, and every session runs the workload once untimed (warm-up).
+#pragma once
+
+#include <cstdint>
+#include <functional>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "bench/kit/stats.h"
+#include "model/flops.h"
+#include "sprig/memory.h"
+#include "sprig/model.h"
+#include "sprig/session.h"
+
+namespace sprig::bench {
+
+inline constexpr size_t kSides = 3;
+enum Side : size_t { kModel = 0, kBaseline = 1, kFloor = 2 };
+const char* SideName(size_t side);  // "model", "baseline", "floor"
+
+struct MeasureOptions {
+  std::vector<size_t> threads = {1};
+  std::vector<size_t> batches = {1};  // stack: rows per call
+  size_t rows = 256;                  // stack: rows per repetition (each batch size)
+  size_t prompt_tokens = 128;         // transformer
+  size_t decode_tokens = 128;         // transformer
+  size_t repeat = 10;
+  uint64_t seed = 1;  // inputs
+  // Called after each step with steps done and the total (progress display).
+  std::function<void(size_t done, size_t total)> progress;
+};
+
+// One resident-memory sample of a side's first pass.
+struct MemorySample {
+  uint64_t tokens = 0;           // rows or tokens processed so far
+  uint64_t mapped_resident = 0;  // this process's resident bytes of the model's mapping
+};
+
+struct SideMemory {
+  uint64_t file_size = 0;
+  Residency residency;                // page cache, after the run
+  std::vector<LayerTouch> touched;    // records read (any one session; all ran the same inputs)
+  uint64_t mapped_resident = 0;       // this process's resident bytes of the mapping, at the end
+  uint64_t mapped_resident_peak = 0;  // the most seen in any sample
+  double first_call_ms = 0;           // the very first call (cold with --cold)
+  std::vector<MemorySample> curve;    // first pass
+};
+
+// FLOPs per token of a side at one phase (transformer attention grows with the context).
+struct SideFlops {
+  std::string phase;  // "rows", "prefill", "decode"
+  uint64_t context = 0;
+  ModelCost cost;
+  uint64_t routed_flops = 0;  // of cost.ffn_flops, the routed layers' part
+};
+
+struct SideInfo {
+  std::string label;  // what it is: the file, "dense twin of ...", "floor of ..."
+  std::shared_ptr<const Model> model;
+  std::vector<SideFlops> flops;
+  SideMemory memory;
+};
+
+// Time of one side at one point over the repetitions.
+struct SideTiming {
+  std::vector<double> seconds;      // per repetition: the whole workload of the point
+  std::vector<double> cpu_seconds;  // the same in process CPU time
+  std::vector<double> latency_ms;   // every call (stack) or decoded token (decode), all reps
+  Summary per_second;               // rows or tokens per second over repetitions
+  Summary cpu_per_second;           // rows or tokens per second of process CPU time
+  Summary latency;                  // of latency_ms
+};
+
+// One measured configuration: a thread count and a phase (stack rows at a batch size,
+// transformer prefill or decode).
+struct Point {
+  size_t threads = 1;
+  std::string phase;  // "rows", "prefill", "decode"
+  size_t batch = 1;   // rows per call; prompt tokens for prefill; 1 for decode
+  size_t units = 0;   // rows or tokens per repetition
+  SideTiming side[kSides];
+  Summary speedup;         // baseline / model, paired per repetition
+  Summary bound;           // baseline / floor, paired: the measured whole-model bound
+  Summary cpu_speedup;     // baseline / model in process CPU time, paired
+  double flops_bound = 0;  // baseline FLOPs / (model FLOPs - routed layers' FLOPs)
+};
+
+struct LayerUsage {
+  size_t layer = 0;
+  std::vector<uint64_t> counts;  // choices per leaf or expert
+};
+
+struct Measurement {
+  Family family = Family::kStack;
+  std::string kernel_path;
+  SideInfo sides[kSides];
+  std::vector<Point> points;
+  std::vector<LayerUsage> usage;  // the model's routed layers on the benchmark's inputs
+  ProcessMemory memory_start, memory_end;
+};
+
+// `sides` holds the opened model, baseline and floor. They must take the same inputs (checked
+// by the caller). Errors come from the sessions (InvalidArgument for an unsuitable model).
+Result<Measurement> Measure(const std::shared_ptr<const Model> (&models)[kSides],
+                            const std::string (&labels)[kSides], const MeasureOptions& options);
+
+// This process's resident bytes of the mapping that starts at `base` (/proc/self/smaps).
+uint64_t MappedResidentBytes(const void* base);
+
+}  // namespace sprig::bench

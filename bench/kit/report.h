@@ -1,0 +1,31 @@
+// What `sprig bench` writes: the JSON document (its schema is in the README) and a
+// self-contained HTML report drawn from that document (inline SVG; no scripts, fonts or
+// network).
+#pragma once
+
+#include <nlohmann/json.hpp>
+#include <string>
+#include <vector>
+
+#include "bench/kit/measure.h"
+
+namespace sprig::bench {
+
+struct ReportContext {
+  std::string command;        // the command line
+  std::string baseline_kind;  // "dense_twin" or "file"
+  std::string paths[kSides];  // files; empty for models built in memory
+  MeasureOptions options;
+  bool cold = false;
+  std::vector<double> load_start, load_end;  // 1, 5 and 15 minute load averages
+};
+
+nlohmann::json ToJson(const Measurement& m, const ReportContext& context);
+
+// The HTML report of a ToJson document.
+std::string ToHtml(const nlohmann::json& report);
+
+// The system's 1, 5 and 15 minute load averages (empty where unavailable).
+std::vector<double> LoadAverages();
+
+}  // namespace sprig::bench

@@ -1,0 +1,373 @@
+// `sprig bench` (README "Benchmarking") through the built program: every key the README
+// documents for --json, with sane values on small models; FLOPs against the README's cost
+// formulas; a model benchmarked against itself reports identical FLOPs, records touched and
+// memory sections on both sides; the HTML report is self-contained and renders in a real
+// browser (headless Chromium, Debian's chromium package) to a non-blank screenshot. No timing
+// is asserted beyond "positive and ordered".
+#include <gtest/gtest.h>
+
+#include <cstdlib>
+#include <filesystem>
+#include <nlohmann/json.hpp>
+#include <regex>
+#include <sstream>
+#include <string>
+#include <tuple>
+#include <vector>
+
+#include "support/test_util.h"
+
+namespace sprig {
+namespace {
+
+using nlohmann::json;
+using testing::Quote;
+
+// Layer 0 is dense; 1 to 3 are routed. Inputs 64 wide.
+constexpr const char* kStackConfig = R"({"family":"stack","input_dim":64,"name":"small","layers":[
+ {"kind":"dense","width":32,"activation":"gelu","out":64},
+ {"kind":"tree","mode":"leaf","depth":4,"leaf_width":8,"activation":"relu","out":64},
+ {"kind":"experts","experts":4,"top_k":2,"width":16,"activation":"silu","gated":true,"out":64},
+ {"kind":"tree","mode":"path","depth":5,"activation":"gelu","out":10}]})";
+
+constexpr const char* kTransformerConfig = R"({"family":"transformer","vocab_size":256,
+ "d_model":32,"n_heads":4,"max_seq":64,"head":{"kind":"lm"},"tokenizer":"byte",
+ "positions":"rope","layers":[{"kind":"tree","mode":"path","depth":4,"activation":"gelu"},
+ {"kind":"tree","mode":"leaf","depth":3,"leaf_width":4,"activation":"gelu"}]})";
+
+const char* const kSides[] = {"model", "baseline", "floor"};
+
+class BenchCli : public ::testing::Test {
+ protected:
+  static void SetUpTestSuite() {
+    dir_ = new testing::TempDir;
+    stack_ = new std::string(testing::PackSynthesized(*dir_, "stack", kStackConfig));
+    transformer_ = new std::string(testing::PackSynthesized(*dir_, "lm", kTransformerConfig));
+  }
+  static void TearDownTestSuite() {
+    delete dir_;
+    delete stack_;
+    delete transformer_;
+  }
+
+  // Runs `sprig bench ARGS --json FILE` and returns the parsed document (null on failure).
+  static json Bench(const std::string& args, const std::string& name) {
+    const std::string out = dir_->File(name + ".json");
+    auto r = testing::Run(testing::SprigCli() + " bench " + args + " --json " + Quote(out));
+    EXPECT_EQ(r.exit_code, 0) << r.output;
+    if (r.exit_code != 0) return nullptr;
+    return json::parse(testing::ReadFile(out), nullptr, /*allow_exceptions=*/false);
+  }
+
+  static inline testing::TempDir* dir_ = nullptr;
+  static inline std::string* stack_ = nullptr;
+  static inline std::string* transformer_ = nullptr;
+};
+
+// The key paths of the README's --json table: the backticked first column of each row between
+// the "bench-json-keys" markers. `<side>` stands for model, baseline and floor; `[]` for every
+// element of an array.
+std::vector<std::string> DocumentedKeys() {
+  const std::string readme = testing::ReadFile(std::string(SPRIG_SOURCE_DIR) + "/README.md");
+  const size_t begin = readme.find("<!-- bench-json-keys -->");
+  const size_t end = readme.find("<!-- /bench-json-keys -->");
+  std::vector<std::string> keys;
+  if (begin == std::string::npos || end == std::string::npos) return keys;
+  std::istringstream lines(readme.substr(begin, end - begin));
+  const std::regex row(R"(^\| `([^`]+)` \|)");
+  std::string line;
+  for (std::smatch m; std::getline(lines, line);) {
+    if (std::regex_search(line, m, row)) keys.push_back(m[1]);
+  }
+  return keys;
+}
+
+// Checks that `path` (dots, `[]`, `<side>`) exists in `j`, adding a failure naming what is missing.
+void ExpectPath(const json& j, const std::string& path, const std::string& where) {
+  if (path.empty()) return;
+  const size_t dot = path.find('.');
+  std::string head = path.substr(0, dot);
+  const std::string rest = dot == std::string::npos ? "" : path.substr(dot + 1);
+  if (head == "<side>") {
+    for (const char* side : kSides) ExpectPath(j, side + (rest.empty() ? "" : "." + rest), where);
+    return;
+  }
+  const bool each = head.size() > 2 && head.substr(head.size() - 2) == "[]";
+  if (each) head.resize(head.size() - 2);
+  ASSERT_TRUE(j.is_object() && j.contains(head)) << "missing " << where << "." << head;
+  const json& v = j[head];
+  if (!each) {
+    ExpectPath(v, rest, where + "." + head);
+    return;
+  }
+  ASSERT_TRUE(v.is_array()) << where << "." << head << " is not an array";
+  ASSERT_FALSE(v.empty()) << where << "." << head << " is empty";
+  for (const json& e : v) ExpectPath(e, rest, where + "." + head + "[]");
+}
+
+// A summary (README): count, then min <= median <= p95 <= p99 <= max, all positive.
+void ExpectSummary(const json& s, const std::string& what) {
+  ASSERT_TRUE(s.is_object()) << what;
+  EXPECT_GT(s["count"].get<double>(), 0) << what;
+  EXPECT_GT(s["min"].get<double>(), 0) << what;
+  EXPECT_LE(s["min"].get<double>(), s["median"].get<double>()) << what;
+  EXPECT_LE(s["median"].get<double>(), s["p95"].get<double>()) << what;
+  EXPECT_LE(s["p95"].get<double>(), s["p99"].get<double>()) << what;
+  EXPECT_LE(s["p99"].get<double>(), s["max"].get<double>()) << what;
+}
+
+void ExpectSaneResults(const json& r, size_t repeat) {
+  for (const json& p : r["results"]) {
+    const std::string at = p["phase"].get<std::string>() + "/" + p["batch"].dump();
+    for (const char* side : kSides) {
+      ExpectSummary(p[side]["per_second"], at + " " + side + " per_second");
+      ExpectSummary(p[side]["cpu_per_second"], at + " " + side + " cpu_per_second");
+      ExpectSummary(p[side]["latency_ms"], at + " " + side + " latency_ms");
+      EXPECT_EQ(p[side]["per_second"]["count"], repeat) << at;
+    }
+    ExpectSummary(p["speedup"], at + " speedup");
+    ExpectSummary(p["cpu_speedup"], at + " cpu_speedup");
+    ExpectSummary(p["bound"], at + " bound");
+    // null only for models of nothing but routed layers, which these are not.
+    ASSERT_TRUE(p["flops_bound"].is_number()) << at;
+    EXPECT_GT(p["flops_bound"].get<double>(), 0) << at;
+  }
+}
+
+void ExpectSaneMemory(const json& r) {
+  for (const char* side : kSides) {
+    const json& m = r["sides"][side]["memory"];
+    EXPECT_GT(m["mapped_resident_bytes"].get<uint64_t>(), 0u) << side;
+    EXPECT_GE(m["mapped_resident_peak_bytes"], m["mapped_resident_bytes"]) << side;
+    EXPECT_LE(m["mapped_resident_peak_bytes"], r["sides"][side]["file_bytes"]) << side;
+    EXPECT_LE(m["hot_resident_bytes"], m["hot_bytes"]) << side;
+    EXPECT_LE(m["records_resident_bytes"], m["records_bytes"]) << side;
+    EXPECT_GT(m["first_call_ms"].get<double>(), 0) << side;
+    uint64_t last = 0;
+    for (const json& c : m["curve"]) {
+      EXPECT_GE(c["tokens"].get<uint64_t>(), last) << side;
+      last = c["tokens"];
+    }
+    for (const json& t : m["touched"]) {
+      EXPECT_GE(t["touched"].get<uint64_t>(), 1u) << side;
+      EXPECT_LE(t["touched"], t["records"]) << side;
+    }
+  }
+  const json& end = r["process_memory"]["end"];
+  EXPECT_GT(end["rss_bytes"].get<uint64_t>(), 0u);
+  EXPECT_GE(end["peak_rss_bytes"], end["rss_bytes"]);
+}
+
+TEST_F(BenchCli, StackJsonHasEveryDocumentedKey) {
+  const std::vector<std::string> keys = DocumentedKeys();
+  ASSERT_GT(keys.size(), 40u) << "the README's bench-json-keys table is missing or short";
+  const json r = Bench(Quote(*stack_) + " --repeat 2 --rows 64 --batch 1,8 --threads 1,2", "s");
+  ASSERT_TRUE(r.is_object());
+  for (const std::string& key : keys) ExpectPath(r, key, "report");
+  EXPECT_EQ(r["schema"], "sprig-bench/1");
+  EXPECT_EQ(r["family"], "stack");
+  EXPECT_EQ(r["settings"]["baseline"], "dense_twin");
+  ASSERT_EQ(r["results"].size(), 4u);  // 2 thread counts x 2 batch sizes
+  ExpectSaneResults(r, 2);
+  // 64 rows in calls of 8: 8 calls per repetition, each timed.
+  for (const json& p : r["results"]) {
+    EXPECT_EQ(p["units"], 64) << p["batch"];
+    EXPECT_EQ(p["model"]["latency_ms"]["count"], 2 * 64 / p["batch"].get<size_t>());
+  }
+  ExpectSaneMemory(r);
+  // The three routed layers' records; the dense twin and the floor have none.
+  EXPECT_EQ(r["sides"]["model"]["memory"]["touched"].size(), 3u);
+  EXPECT_TRUE(r["sides"]["baseline"]["memory"]["touched"].empty());
+  EXPECT_EQ(r["sides"]["baseline"]["memory"]["records_bytes"], 0);
+  // Usage: each tree layer routes every one of the 64 rows once; experts choose top_k = 2.
+  ASSERT_EQ(r["usage"].size(), 3u);
+  const uint64_t want[] = {64, 128, 64};
+  const uint64_t units[] = {16, 4, 32};  // leaves; a path tree of depth 5 ends in 32
+  for (size_t i = 0; i < 3; ++i) {
+    uint64_t sum = 0;
+    for (uint64_t c : r["usage"][i]["counts"]) sum += c;
+    EXPECT_EQ(sum, want[i]) << "layer " << r["usage"][i]["layer"];
+    EXPECT_EQ(r["usage"][i]["units"], units[i]);
+  }
+}
+
+// FLOPs per token against the README's performance model (multiply-add = 2): a dense layer of
+// width W costs 2·W·(in + out), twice the input product when gated; a leaf tree d·2·in plus one
+// leaf; a path tree (d + 1)·2·(in + out); experts 2·E·in for the router plus k experts. The
+// dense twin has W = all units: 16·8 leaf units, 4·16 expert units, 63 path neurons.
+TEST_F(BenchCli, FlopsFollowTheCostFormulas) {
+  const json r = Bench(Quote(*stack_) + " --repeat 1 --rows 8 --batch 8", "flops");
+  ASSERT_TRUE(r.is_object());
+  const uint64_t dense0 = 2 * 32 * (64 + 64);
+  const uint64_t model = dense0 + (4 * 2 * 64 + 2 * 8 * (64 + 64)) +
+                         (2 * 4 * 64 + 2 * (2 * 16 * 64 * 2 + 2 * 16 * 64)) + 6 * 2 * (64 + 10);
+  const uint64_t twin =
+      dense0 + 2 * 128 * (64 + 64) + (2 * 64 * 64 * 2 + 2 * 64 * 64) + 2 * 63 * (64 + 10);
+  EXPECT_EQ(r["sides"]["model"]["flops"][0]["total"], model);
+  EXPECT_EQ(r["sides"]["model"]["flops"][0]["routed"], model - dense0);
+  EXPECT_EQ(r["sides"]["baseline"]["flops"][0]["total"], twin);
+  EXPECT_EQ(r["sides"]["model"]["flops"][0]["ffn_if_dense"], twin);
+  // The floor keeps layer 0 and makes each routed layer one unit wide.
+  const uint64_t floor = dense0 + 2 * 1 * (64 + 64) + 2 * 1 * (64 + 64) + 2 * 1 * (64 + 10);
+  EXPECT_EQ(r["sides"]["floor"]["flops"][0]["total"], floor);
+  EXPECT_DOUBLE_EQ(r["results"][0]["flops_bound"].get<double>(),
+                   static_cast<double>(twin) / static_cast<double>(dense0));
+}
+
+TEST_F(BenchCli, TransformerReportsPrefillAndDecode) {
+  const json r =
+      Bench(Quote(*transformer_) + " --repeat 2 --prompt-tokens 12 --decode-tokens 10 --cold", "t");
+  ASSERT_TRUE(r.is_object());
+  EXPECT_EQ(r["settings"]["cold"], true);
+  for (const std::string& key : DocumentedKeys()) ExpectPath(r, key, "report");
+  ASSERT_EQ(r["results"].size(), 2u);
+  EXPECT_EQ(r["results"][0]["phase"], "prefill");
+  EXPECT_EQ(r["results"][0]["batch"], 12);
+  EXPECT_EQ(r["results"][1]["phase"], "decode");
+  // Every decoded token of every repetition is a latency sample.
+  EXPECT_EQ(r["results"][1]["model"]["latency_ms"]["count"], 20);
+  ExpectSaneResults(r, 2);
+  ExpectSaneMemory(r);
+  // Attention's context: the prompt's tokens average P / 2, the decoded ones P + G / 2.
+  EXPECT_EQ(r["sides"]["model"]["flops"][0]["context"], 6);
+  EXPECT_EQ(r["sides"]["model"]["flops"][1]["context"], 17);
+  // Routing of the 22 tokens of one sequence through both routed blocks.
+  ASSERT_EQ(r["usage"].size(), 2u);
+  for (const json& u : r["usage"]) {
+    uint64_t sum = 0;
+    for (uint64_t c : u["counts"]) sum += c;
+    EXPECT_EQ(sum, 22u);
+  }
+}
+
+// The same file on both sides: the same inputs give the same FLOPs, the same records touched
+// and the same page-cache sections (one file, one page cache).
+TEST_F(BenchCli, ModelAgainstItselfReportsEqualSides) {
+  for (const std::string* model : {stack_, transformer_}) {
+    const std::string extra =
+        model == stack_ ? " --rows 32 --batch 4" : " --prompt-tokens 8 --decode-tokens 8";
+    const json r =
+        Bench(Quote(*model) + " --baseline " + Quote(*model) + " --repeat 2" + extra, "self");
+    ASSERT_TRUE(r.is_object());
+    EXPECT_EQ(r["settings"]["baseline"], "file");
+    const json& a = r["sides"]["model"];
+    const json& b = r["sides"]["baseline"];
+    EXPECT_EQ(a["flops"], b["flops"]) << *model;
+    EXPECT_EQ(a["params"], b["params"]);
+    EXPECT_EQ(a["file_bytes"], b["file_bytes"]);
+    EXPECT_EQ(a["memory"]["touched"], b["memory"]["touched"]) << *model;
+    EXPECT_FALSE(a["memory"]["touched"].empty());
+    EXPECT_EQ(a["memory"]["sections"], b["memory"]["sections"]) << *model;
+    // With itself as the baseline the FLOPs bound is total / (total - routed), per phase.
+    for (const json& p : r["results"]) {
+      for (const json& f : a["flops"]) {
+        if (f["phase"] != p["phase"]) continue;
+        const double total = f["total"].get<double>(), routed = f["routed"].get<double>();
+        EXPECT_DOUBLE_EQ(p["flops_bound"].get<double>(), total / (total - routed)) << p["phase"];
+      }
+    }
+  }
+}
+
+TEST_F(BenchCli, RefusesOptionsOfTheOtherFamilyAndMismatchedBaselines) {
+  const std::string cli = testing::SprigCli() + " bench ";
+  auto r = testing::Run(cli + Quote(*stack_) + " --prompt-tokens 4");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("stack model"), std::string::npos) << r.output;
+  r = testing::Run(cli + Quote(*transformer_) + " --batch 4");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  r = testing::Run(cli + Quote(*transformer_) + " --prompt-tokens 60 --decode-tokens 10");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("max_seq"), std::string::npos) << r.output;
+  r = testing::Run(cli + Quote(*stack_) + " --baseline " + Quote(*transformer_));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("one family"), std::string::npos) << r.output;
+  r = testing::Run(cli + Quote(*stack_) + " --baseline " + Quote(*stack_) + " --dense-twin");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  r = testing::Run(cli + "--help");
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  EXPECT_NE(r.output.find("--dense-twin"), std::string::npos);
+}
+
+// The report is one self-contained file: inline SVG charts (speedup, latency, memory and one
+// usage chart per routed layer), nothing loaded from elsewhere, no scripts. Then Chromium
+// loads it and takes a screenshot, which must show a substantial amount of non-white content.
+TEST_F(BenchCli, ReportIsSelfContainedAndRendersInChromium) {
+  const std::string html = dir_->File("report.html");
+  const json r = Bench(
+      Quote(*stack_) + " --repeat 2 --rows 32 --batch 1,4,16 --report " + Quote(html), "report");
+  ASSERT_TRUE(r.is_object());
+  const std::string text = testing::ReadFile(html);
+  size_t charts = 0;
+  for (size_t at = text.find("<svg"); at != std::string::npos; at = text.find("<svg", at + 1)) {
+    ++charts;
+  }
+  EXPECT_EQ(charts, 3u + 3u);  // three charts and one per routed layer
+  EXPECT_EQ(text.find("<script"), std::string::npos);
+  EXPECT_EQ(text.find("src="), std::string::npos);
+  EXPECT_EQ(text.find("href="), std::string::npos);
+  EXPECT_EQ(text.find("url("), std::string::npos);
+
+  if (testing::Run("command -v chromium").exit_code != 0) {
+    GTEST_SKIP() << "chromium is not installed (scripts/install-deps.sh installs Debian's "
+                    "chromium); the report was not rendered";
+  }
+  const std::string png = dir_->File("report.png");
+  const std::string command =
+      "timeout 180 chromium --headless --no-sandbox --disable-gpu --disable-quic --no-first-run "
+      "--disable-background-networking --disable-component-update --disable-sync "
+      "--user-data-dir=" +
+      Quote(dir_->File("chromium-profile")) + " --screenshot=" + Quote(png) +
+      " --window-size=1280,1600 " + Quote("file://" + html);
+  auto shot = testing::Run(command);
+  ASSERT_EQ(shot.exit_code, 0) << shot.output;
+  auto ink = testing::Run(testing::Python() + " " +
+                          Quote(std::string(SPRIG_SOURCE_DIR) + "/tests/python/png_ink.py") + " " +
+                          Quote(png));
+  ASSERT_EQ(ink.exit_code, 0) << ink.output;
+  const json m = json::parse(ink.output, nullptr, false);
+  ASSERT_TRUE(m.is_object()) << ink.output;
+  EXPECT_EQ(m["width"], 1280);
+  EXPECT_EQ(m["height"], 1600);
+  // Tables, text and charts cover well over 3% of a 1280 x 1600 page; a blank or error page
+  // does not. Many colours: antialiased text and the charts' series.
+  EXPECT_GT(m["non_white_fraction"].get<double>(), 0.03) << ink.output;
+  EXPECT_GT(m["colours"].get<int>(), 50) << ink.output;
+}
+
+// bench/compare_torch.py runs the PyTorch reference (converter/python/sprig_torch) and sprig's
+// C API on the same weights and prints each ratio with the largest output difference, which
+// must be float32 rounding (the reference tests use atol 1e-6, rtol 1e-5; here 1e-4 absolute on
+// unit-scale outputs, since the script's reference runs in float32, not float64).
+TEST_F(BenchCli, CompareTorchRunsBothSidesOnTheSameWeights) {
+  const std::string build =
+      std::filesystem::path(testing::SprigCli()).parent_path().parent_path().string();
+  if (!std::filesystem::exists(build + "/lib/libsprig.so")) {
+    GTEST_FAIL() << "libsprig.so, which compare_torch.py loads, is missing from " << build;
+  }
+  const std::string script = std::string(SPRIG_SOURCE_DIR) + "/bench/compare_torch.py";
+  for (auto [name, config, extra] : {std::tuple{"stack", kStackConfig, " --rows 16 --batch 1,8"},
+                                     std::tuple{"lm", kTransformerConfig, " --prompt-tokens 16"}}) {
+    const std::string json_path = dir_->File(std::string("compare-") + name + ".json");
+    testing::WriteFile(json_path, config);
+    auto r =
+        testing::Run("PYTHONPATH=" + Quote(std::string(SPRIG_SOURCE_DIR) + "/converter/python") +
+                     " " + testing::Python() + " " + Quote(script) + " " + Quote(json_path) +
+                     " --repeat 1 --build " + Quote(build) + extra);
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    // Each result line ends with the largest |difference|; one per batch size or sequence.
+    const std::regex line(R"(^\s*\d+\s.*\s(\d\.\d+e[-+]\d+)\s*$)");
+    size_t lines = 0;
+    std::istringstream out(r.output);
+    std::string text;
+    for (std::smatch m; std::getline(out, text);) {
+      if (!std::regex_match(text, m, line)) continue;
+      ++lines;
+      EXPECT_LT(std::stod(m[1]), 1e-4) << text;
+    }
+    EXPECT_EQ(lines, std::string(name) == "stack" ? 2u : 1u) << r.output;
+  }
+}
+
+}  // namespace
+}  // namespace sprig

@@ -1,0 +1,333 @@
+// sprig bench MODEL [--baseline OTHER.sprig | --dense-twin] [--rows N | --prompt-tokens P
+//                   --decode-tokens G] [--batch N,...] [--threads N,...] [--repeat R] [--cold]
+//                   [--json FILE] [--report FILE.html]
+//
+// Speed and memory of a model against a baseline, measured interleaved in one process (the code
+// is in bench/kit). The baseline is another .sprig file or the model's dense twin, built for
+// the run: its config with every routed layer made dense at the same total width, the
+// model's own weights for everything else, packed into an unlinked temporary file so it is
+// paged in from storage like any model.
+#include <unistd.h>
+
+#include <chrono>
+#include <cstdio>
+#include <memory>
+#include <string>
+
+#include "bench/kit/measure.h"
+#include "bench/kit/models.h"
+#include "bench/kit/report.h"
+#include "cli.h"
+#include "converter/io/atomic_file.h"
+#include "sprig/memory.h"
+#include "sprig/model.h"
+
+namespace sprig::cli {
+namespace {
+
+struct BenchArgs {
+  std::string model, baseline, json, report;
+  bool dense_twin = false, cold = false;
+  std::vector<size_t> batches, threads = {1};
+  size_t rows = 256, prompt_tokens = 128, decode_tokens = 128, repeat = 10;
+  uint64_t seed = 1;
+  // Which options were given, to refuse those that do not apply to the model's family.
+  bool rows_given = false, batch_given = false, tokens_given = false;
+};
+
+// A progress bar on a terminal: "[#######.......]  45%  step 12 of 27".
+class Bar {
+ public:
+  explicit Bar(bool on) : on_(on && isatty(STDERR_FILENO)) {}
+  void Update(size_t done, size_t total) {
+    if (!on_ || total == 0) return;
+    // Redraw at most ten times a second (and at the end): steps can take microseconds.
+    const auto now = std::chrono::steady_clock::now();
+    if (done < total && shown_ && now - last_ < std::chrono::milliseconds(100)) return;
+    last_ = now;
+    const size_t width = 30, filled = width * done / total;
+    std::fprintf(stderr, "\rbench [%s%s] %3zu%%  step %zu of %zu", std::string(filled, '#').c_str(),
+                 std::string(width - filled, '.').c_str(), 100 * done / total, done, total);
+    std::fflush(stderr);
+    shown_ = true;
+  }
+  ~Bar() {
+    if (shown_) std::fprintf(stderr, "\r%60s\r", "");
+  }
+
+ private:
+  bool on_, shown_ = false;
+  std::chrono::steady_clock::time_point last_;
+};
+
+Status CheckArgs(const BenchArgs& a, const ModelConfig& c) {
+  if (a.repeat == 0) return Status::InvalidArgument("--repeat must be at least 1");
+  for (size_t t : a.threads) {
+    if (t == 0) return Status::InvalidArgument("--threads takes counts of at least 1");
+  }
+  if (c.family == Family::kStack) {
+    if (a.tokens_given) {
+      return Status::InvalidArgument(a.model +
+                                     " is a stack model; --prompt-tokens and --decode-tokens "
+                                     "apply to transformers (use --rows and --batch)");
+    }
+    if (a.rows == 0) return Status::InvalidArgument("--rows must be at least 1");
+    for (size_t b : a.batches) {
+      if (b == 0) return Status::InvalidArgument("--batch takes sizes of at least 1");
+    }
+    return Status::Ok();
+  }
+  if (a.rows_given || a.batch_given) {
+    return Status::InvalidArgument(a.model +
+                                   " is a transformer; --rows and --batch apply to stack models "
+                                   "(use --prompt-tokens and --decode-tokens)");
+  }
+  if (!c.causal || c.head.kind != HeadKind::kLm) {
+    return Status::InvalidArgument(a.model +
+                                   ": sprig bench measures a transformer by prefill and decode, "
+                                   "which needs a causal model with an lm head");
+  }
+  if (a.prompt_tokens == 0) return Status::InvalidArgument("--prompt-tokens must be at least 1");
+  return Status::Ok();
+}
+
+// The baseline must take the same inputs as the model.
+Status CheckBaseline(const BenchArgs& a, const ModelConfig& m, const ModelConfig& b) {
+  if (m.family != b.family) {
+    return Status::InvalidArgument("the baseline " + a.baseline + " is a " + ToString(b.family) +
+                                   " model and " + a.model + " a " + ToString(m.family) +
+                                   " model; they must be of one family");
+  }
+  if (m.family == Family::kStack && m.input_dim != b.input_dim) {
+    return Status::InvalidArgument("the baseline " + a.baseline + " takes rows of " +
+                                   std::to_string(b.input_dim) + " values and " + a.model + " of " +
+                                   std::to_string(m.input_dim) + "; they must be equal");
+  }
+  if (m.family == Family::kTransformer && m.vocab_size != b.vocab_size) {
+    return Status::InvalidArgument("the baseline " + a.baseline + " has a vocabulary of " +
+                                   std::to_string(b.vocab_size) + " tokens and " + a.model +
+                                   " of " + std::to_string(m.vocab_size) + "; they must be equal");
+  }
+  if (m.family == Family::kTransformer && (!b.causal || b.head.kind != HeadKind::kLm)) {
+    return Status::InvalidArgument("the baseline " + a.baseline +
+                                   " must be a causal transformer with an lm head");
+  }
+  return Status::Ok();
+}
+
+Status CheckSequence(const BenchArgs& a, const std::string& name, const ModelConfig& c) {
+  if (c.family == Family::kTransformer && a.prompt_tokens + a.decode_tokens > c.max_seq) {
+    return Status::InvalidArgument(name + " holds at most " + std::to_string(c.max_seq) +
+                                   " tokens (max_seq); --prompt-tokens " +
+                                   std::to_string(a.prompt_tokens) + " and --decode-tokens " +
+                                   std::to_string(a.decode_tokens) + " need " +
+                                   std::to_string(a.prompt_tokens + a.decode_tokens));
+  }
+  return Status::Ok();
+}
+
+// The command line as run, for the report (from /proc/self/cmdline; empty elsewhere).
+std::string CommandLine() {
+  std::string line;
+  if (FILE* f = std::fopen("/proc/self/cmdline", "rb")) {
+    int c;
+    while ((c = std::fgetc(f)) != EOF) line += c == 0 ? ' ' : static_cast<char>(c);
+    std::fclose(f);
+  }
+  while (!line.empty() && line.back() == ' ') line.pop_back();
+  return line;
+}
+
+Status WriteText(const std::string& path, const std::string& text) {
+  SPRIG_ASSIGN_OR_RETURN(io::AtomicFile f, io::AtomicFile::Create(path, /*overwrite=*/true));
+  SPRIG_RETURN_IF_ERROR(f.Write(text.data(), text.size()));
+  return f.Commit();
+}
+
+// Builds the dense twin (when asked) and the floor, opens everything, then measures.
+Result<bench::Measurement> Run(const BenchArgs& a, bench::ReportContext* context) {
+  ModelConfig config;
+  DType dtype;
+  {
+    // Read the config, then close the model: a cold start needs every mapping gone.
+    SPRIG_ASSIGN_OR_RETURN(auto probe, Model::open(a.model));
+    config = probe->config();
+    dtype = bench::MainStorageType(*probe);
+  }
+  SPRIG_RETURN_IF_ERROR(CheckArgs(a, config));
+  SPRIG_RETURN_IF_ERROR(CheckSequence(a, a.model, config));
+  bench::BuildOptions build;
+  build.dtype = dtype;
+  build.donor_path = a.model;
+  build.evict = a.cold;
+  std::shared_ptr<const Model> models[bench::kSides];
+  std::string labels[bench::kSides] = {a.model, a.baseline, "floor of " + a.model};
+  if (a.baseline.empty()) {
+    SPRIG_ASSIGN_OR_RETURN(models[bench::kBaseline],
+                           bench::BuildUnlinkedModel(bench::DenseTwinConfig(config), build));
+    labels[bench::kBaseline] = "dense twin of " + a.model;
+  }
+  SPRIG_ASSIGN_OR_RETURN(models[bench::kFloor],
+                         bench::BuildUnlinkedModel(bench::FloorConfig(config), build));
+  if (a.cold) {
+    SPRIG_RETURN_IF_ERROR(EvictFromPageCache(a.model));
+    if (!a.baseline.empty()) SPRIG_RETURN_IF_ERROR(EvictFromPageCache(a.baseline));
+  }
+  SPRIG_ASSIGN_OR_RETURN(models[bench::kModel], Model::open(a.model));
+  if (!a.baseline.empty()) {
+    SPRIG_ASSIGN_OR_RETURN(models[bench::kBaseline], Model::open(a.baseline));
+    SPRIG_RETURN_IF_ERROR(CheckBaseline(a, config, models[bench::kBaseline]->config()));
+    SPRIG_RETURN_IF_ERROR(CheckSequence(a, a.baseline, models[bench::kBaseline]->config()));
+  }
+  bench::MeasureOptions& o = context->options;
+  o.threads = a.threads;
+  o.batches = a.batches.empty() ? std::vector<size_t>{1, 16, 128} : a.batches;
+  if (config.family == Family::kTransformer) o.batches = {1};
+  o.rows = a.rows;
+  o.prompt_tokens = a.prompt_tokens;
+  o.decode_tokens = a.decode_tokens;
+  o.repeat = a.repeat;
+  o.seed = a.seed;
+  context->paths[bench::kModel] = a.model;
+  context->paths[bench::kBaseline] = a.baseline;
+  context->baseline_kind = a.baseline.empty() ? "dense_twin" : "file";
+  context->cold = a.cold;
+  context->command = CommandLine();
+  context->load_start = bench::LoadAverages();
+  Bar bar(a.json.empty());
+  o.progress = [&bar](size_t done, size_t total) { bar.Update(done, total); };
+  auto m = bench::Measure(models, labels, o);
+  o.progress = nullptr;
+  context->load_end = bench::LoadAverages();
+  return m;
+}
+
+std::string Spread(const nlohmann::json& s, const char* fmt) {
+  char b[96];
+  const std::string f = std::string(fmt) + " [" + fmt + "-" + fmt + "]";
+  std::snprintf(b, sizeof b, f.c_str(), s["median"].get<double>(), s["min"].get<double>(),
+                s["max"].get<double>());
+  return b;
+}
+
+void PrintText(const nlohmann::json& r) {
+  const bool stack = r["family"] == "stack";
+  std::printf("%s against %s\n", r["sides"]["model"]["label"].get<std::string>().c_str(),
+              r["sides"]["baseline"]["label"].get<std::string>().c_str());
+  std::printf("kernels %s, %zu repetitions interleaved; median [min-max] over repetitions\n\n",
+              r["kernels"].get<std::string>().c_str(), r["settings"]["repeat"].get<size_t>());
+  std::printf("%-7s %-14s %24s %24s %20s %20s %20s %7s %s\n", "threads", "point",
+              stack ? "model rows/s" : "model tokens/s",
+              stack ? "baseline rows/s" : "baseline tokens/s", "speedup", "in CPU time",
+              "bound (measured)", "(FLOPs)", "model latency ms p50/p95/p99");
+  for (const auto& p : r["results"]) {
+    const std::string point = p["phase"] == "rows"
+                                  ? "batch " + std::to_string(p["batch"].get<size_t>())
+                                  : p["phase"].get<std::string>();
+    const auto& l = p["model"]["latency_ms"];
+    char flops_bound[32] = "none";
+    if (!p["flops_bound"].is_null()) {
+      std::snprintf(flops_bound, sizeof flops_bound, "%.2f", p["flops_bound"].get<double>());
+    }
+    std::printf(
+        "%-7zu %-14s %24s %24s %20s %20s %20s %7s %.3f/%.3f/%.3f\n", p["threads"].get<size_t>(),
+        point.c_str(), Spread(p["model"]["per_second"], "%.1f").c_str(),
+        Spread(p["baseline"]["per_second"], "%.1f").c_str(), Spread(p["speedup"], "%.2f").c_str(),
+        Spread(p["cpu_speedup"], "%.2f").c_str(), Spread(p["bound"], "%.2f").c_str(), flops_bound,
+        l["median"].get<double>(), l["p95"].get<double>(), l["p99"].get<double>());
+  }
+  std::printf("\n%-9s %12s %12s %14s %14s %12s %s\n", "side", "file", "params", "FLOPs/token",
+              "resident", "first call", "records touched");
+  for (const char* side : {"model", "baseline", "floor"}) {
+    const auto& s = r["sides"][side];
+    const auto& m = s["memory"];
+    std::string touched;
+    for (const auto& t : m["touched"]) {
+      touched += (touched.empty() ? "" : ", ") + std::to_string(t["touched"].get<uint64_t>()) +
+                 "/" + std::to_string(t["records"].get<uint64_t>());
+    }
+    std::string flops;
+    for (const auto& f : s["flops"]) {
+      flops += (flops.empty() ? "" : " / ") + HumanCount(f["total"].get<uint64_t>());
+    }
+    std::printf("%-9s %12s %12s %14s %14s %9.3f ms %s\n", side,
+                HumanBytes(s["file_bytes"].get<uint64_t>()).c_str(),
+                HumanCount(s["params"].get<uint64_t>()).c_str(), flops.c_str(),
+                HumanBytes(m["mapped_resident_bytes"].get<uint64_t>()).c_str(),
+                m["first_call_ms"].get<double>(), touched.empty() ? "-" : touched.c_str());
+  }
+  const auto& end = r["process_memory"]["end"];
+  const auto& load = r["machine"]["load_average_start"];
+  std::printf("\nprocess: resident %s, peak %s (all three models); load average %.2f at start\n",
+              HumanBytes(end["rss_bytes"].get<uint64_t>()).c_str(),
+              HumanBytes(end["peak_rss_bytes"].get<uint64_t>()).c_str(),
+              load.empty() ? 0.0 : load[0].get<double>());
+}
+
+int RunBench(const BenchArgs& a) {
+  bench::ReportContext context;
+  auto m = Run(a, &context);
+  if (!m.ok()) return Fail("bench", m.status());
+  const nlohmann::json report = bench::ToJson(*m, context);
+  if (!a.report.empty()) {
+    Status s = WriteText(a.report, bench::ToHtml(report));
+    if (!s.ok()) return Fail("bench", s);
+  }
+  if (a.json == "-") {
+    std::printf("%s\n", report.dump(2).c_str());
+  } else if (!a.json.empty()) {
+    Status s = WriteText(a.json, report.dump(2) + "\n");
+    if (!s.ok()) return Fail("bench", s);
+  } else {
+    PrintText(report);
+    if (!a.report.empty()) std::printf("report: %s\n", a.report.c_str());
+  }
+  return kExitOk;
+}
+
+}  // namespace
+
+Verb AddBench(CLI::App& app) {
+  auto a = std::make_shared<BenchArgs>();
+  CLI::App* c = app.add_subcommand(
+      "bench",
+      "Measure a model's speed and memory against a dense baseline, interleaved in one run.");
+  c->add_option("MODEL", a->model, "the .sprig file")->required();
+  auto* baseline = c->add_option("--baseline", a->baseline, "another .sprig file to compare with");
+  auto* twin =
+      c->add_flag("--dense-twin", a->dense_twin,
+                  "compare with the model's dense twin, built from its config for this run (the "
+                  "default)");
+  baseline->excludes(twin);
+  c->add_option("--rows", a->rows, "stack: rows per repetition at each batch size")
+      ->capture_default_str()
+      ->each([a](const std::string&) { a->rows_given = true; });
+  c->add_option("--batch", a->batches, "stack: rows per call, a list (default 1,16,128)")
+      ->delimiter(',')
+      ->each([a](const std::string&) { a->batch_given = true; });
+  c->add_option("--prompt-tokens", a->prompt_tokens, "transformer: prompt tokens (prefill)")
+      ->capture_default_str()
+      ->each([a](const std::string&) { a->tokens_given = true; });
+  c->add_option("--decode-tokens", a->decode_tokens,
+                "transformer: tokens decoded one at a time after the prompt")
+      ->capture_default_str()
+      ->each([a](const std::string&) { a->tokens_given = true; });
+  c->add_option("--threads", a->threads, "threads per session, a list such as 1,2")
+      ->delimiter(',')
+      ->capture_default_str();
+  c->add_option("--repeat", a->repeat, "measured repetitions (after one warm-up)")
+      ->capture_default_str();
+  c->add_flag("--cold", a->cold,
+              "drop the files from the page cache first, so the first call reads from storage");
+  c->add_option("--seed", a->seed, "seed of the random inputs")->capture_default_str();
+  c->add_option("--json", a->json,
+                "write the results as JSON to this file ('-': stdout) instead of the table; "
+                "no progress bar");
+  c->add_option("--report", a->report, "also write a self-contained HTML report to this file");
+  c->footer(
+      "Figures depend on the machine and on what else runs on it; the interleaving spreads "
+      "drift over both sides, and the load average is recorded.");
+  return {c, [a] { return RunBench(*a); }};
+}
+
+}  // namespace sprig::cli
