@@ -11,10 +11,19 @@
 // kernel in between. After the Google Benchmark table, a summary prints microseconds per row
 // and the speedups measured in this run.
 //
+// Then storage types: the path tree and the leaf tree packed as f32, f16, bf16 and i8, run one
+// row per call, interleaved round by round (so that load from other processes hits every type
+// alike), reported as the median time per row and the median of the per-round speedups over
+// f32. `--storage_only` runs just that comparison.
+//
 //   OPENBLAS_NUM_THREADS=1 build/bin/sprig_bench_layers [--benchmark_min_time=0.5]
+//   build/bin/sprig_bench_layers --storage_only
 #include <benchmark/benchmark.h>
 
+#include <algorithm>
 #include <cstdio>
+#include <cstring>
+#include <ctime>
 #include <map>
 #include <memory>
 #include <string>
@@ -67,19 +76,23 @@ const std::vector<float>& Pool() {
   return pool;
 }
 
-// A synthesized single-layer model, packed into an unlinked temporary file once per case.
-std::shared_ptr<const Model> ModelFor(const Case& c) {
+// A synthesized single-layer model, packed into an unlinked temporary file once per case and
+// storage type.
+std::shared_ptr<const Model> ModelFor(const Case& c, DType dtype = DType::kF32) {
   static std::map<std::string, std::shared_ptr<const Model>> cache;
-  auto it = cache.find(c.name);
+  const std::string key = c.name + "." + ToString(dtype);
+  auto it = cache.find(key);
   if (it != cache.end()) return it->second;
   const std::string text = R"({"family":"stack","input_dim":768,"layers":[)" + c.layer + "]}";
   auto config = convert::ParseConfig(text, c.name);
-  auto model = config.ok() ? BuildUnlinkedModel(*config, {}) : config.status();
+  BuildOptions options;
+  options.dtype = dtype;
+  auto model = config.ok() ? BuildUnlinkedModel(*config, options) : config.status();
   if (!model.ok()) {
     std::fprintf(stderr, "%s\n", model.status().message().c_str());
     std::abort();
   }
-  cache[c.name] = *model;
+  cache[key] = *model;
   return *model;
 }
 
@@ -190,11 +203,83 @@ void PrintSummary(const std::map<std::string, double>& us) {
   }
 }
 
+double Median(std::vector<double> v) {
+  std::sort(v.begin(), v.end());
+  return v.empty() ? 0.0 : v[v.size() / 2];
+}
+
+// This thread's CPU time in microseconds: unlike wall time it leaves out the time other
+// processes hold the core, which on a shared machine is most of the noise.
+double ThreadMicros() {
+  timespec t;
+  clock_gettime(CLOCK_THREAD_CPUTIME_ID, &t);
+  return double(t.tv_sec) * 1e6 + double(t.tv_nsec) / 1e3;
+}
+
+// CPU microseconds per row of `rows` single-row calls starting at pool row `first`.
+double TimeRows(Session& session, size_t first, size_t rows) {
+  const std::vector<float>& pool = Pool();
+  std::vector<float> y(kDim);
+  const double start = ThreadMicros();
+  for (size_t i = 0; i < rows; ++i) {
+    (void)session.forward(pool.data() + (first + i) % kPoolRows * kDim, 1, y.data());
+    benchmark::DoNotOptimize(y.data());
+  }
+  return (ThreadMicros() - start) / double(rows);
+}
+
+// Each storage type against f32 at batch 1, interleaved: in every round each type runs the same
+// rows; the per-round ratios cancel most of the noise of a shared machine.
+void CompareStorageTypes() {
+  constexpr DType kTypes[] = {DType::kF32, DType::kF16, DType::kBF16, DType::kI8};
+  constexpr size_t kRounds = 15, kRowsPerRound = 1500;
+  std::printf(
+      "\nstorage types at batch 1 (1 thread, in = out = %zu, kernels %s; %zu rounds of %zu "
+      "rows, interleaved)\n",
+      kDim, kernels::ToString(kernels::ActiveKernels().path), kRounds, kRowsPerRound);
+  std::printf("%-14s %-5s %12s %12s %10s\n", "layer", "type", "cpu_us/row", "x_f32", "bytes/row");
+  for (const Case& c : Cases()) {
+    if (c.name != "path_d11" && c.name != "leaf_d8_w16") continue;
+    std::vector<std::unique_ptr<Session>> sessions;
+    for (DType t : kTypes) {
+      auto created = Session::create(ModelFor(c, t));
+      sessions.push_back(std::move(*created));
+    }
+    std::vector<std::vector<double>> us(std::size(kTypes)), ratio(std::size(kTypes));
+    for (size_t round = 0; round < kRounds + 1; ++round) {
+      double times[std::size(kTypes)];
+      for (size_t i = 0; i < std::size(kTypes); ++i) {
+        times[i] = TimeRows(*sessions[i], round * kRowsPerRound, kRowsPerRound);
+      }
+      if (round == 0) continue;  // warm-up: page faults of the first touches
+      for (size_t i = 0; i < std::size(kTypes); ++i) {
+        us[i].push_back(times[i]);
+        ratio[i].push_back(times[0] / times[i]);
+      }
+    }
+    for (size_t i = 0; i < std::size(kTypes); ++i) {
+      // Weight bytes one row reads: per neuron (path) a node row and an output row; per level
+      // (leaf) a node row, then one leaf of 16 hidden units; i8 adds a 4-byte scale per row.
+      const double value_bytes = kTypes[i] == DType::kI8 ? 1.0 : double(DTypeSize(kTypes[i]));
+      const double row = kDim * value_bytes + (kTypes[i] == DType::kI8 ? 4.0 : 0.0);
+      const double bytes = c.name == "path_d11" ? 12 * 2 * row : 8 * row + 16 * 2 * row;
+      std::printf("%-14s %-5s %12.3f %11.2fx %10.0f\n", c.name.c_str(), ToString(kTypes[i]),
+                  Median(us[i]), Median(ratio[i]), bytes);
+    }
+  }
+}
+
 }  // namespace
 }  // namespace sprig::bench
 
 int main(int argc, char** argv) {
   using namespace sprig::bench;
+  for (int i = 1; i < argc; ++i) {
+    if (std::strcmp(argv[i], "--storage_only") == 0) {
+      CompareStorageTypes();
+      return 0;
+    }
+  }
   for (const Case& c : Cases()) {
     benchmark::RegisterBenchmark(("layer/" + c.name).c_str(), BM_Layer, c)
         ->Arg(1)
@@ -215,6 +300,7 @@ int main(int argc, char** argv) {
   SummaryReporter reporter;
   benchmark::RunSpecifiedBenchmarks(&reporter);
   PrintSummary(reporter.us_per_row);
+  CompareStorageTypes();
   benchmark::Shutdown();
   return 0;
 }

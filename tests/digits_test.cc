@@ -3,8 +3,9 @@
 // tests/python/digits_train.py trains a fast feedforward leaf tree and a dense model of the same
 // hidden width with PyTorch (Debian python3-torch) and exports them with the held-out split as
 // reference inputs. sprig's predictions must equal PyTorch's hard-mode predictions row for row
-// with float32 storage; with float16 storage at least 99.5% of routing decisions must agree.
-// The accuracies are printed.
+// with float32 storage; with float16 storage at least 99.5% of routing decisions must agree and
+// accuracy stay within 0.5 points, with int8 storage (also int8 records under float32 routing
+// nodes) at least 98% and within 1 point. The accuracies are printed.
 #include <gtest/gtest.h>
 
 #include <nlohmann/json.hpp>
@@ -48,13 +49,15 @@ class Digits : public ::testing::Test {
   }
 
   // Packs `model` (tree or dense) as `dtype`, runs the held-out rows, compares.
-  static nlohmann::json RunModel(const std::string& model, const std::string& dtype) {
+  static nlohmann::json RunModel(const std::string& model, const std::string& dtype,
+                                 const std::string& options = "") {
     const std::string ref = dir_->File(model);
-    const std::string packed = dir_->File(model + "-" + dtype + ".sprig");
+    const std::string packed =
+        dir_->File(model + "-" + dtype + (options.empty() ? "" : "-parts") + ".sprig");
     const std::string cli = testing::SprigCli();
     auto r = testing::Run(cli + " pack " + Quote(ref + "/config.json") + " " +
                           Quote(ref + "/weights.npz") + " -o " + Quote(packed) +
-                          " --force --dtype " + dtype);
+                          " --force --dtype " + dtype + " " + options);
     EXPECT_EQ(r.exit_code, 0) << r.output;
     r = testing::RunPython(
         "import sys, numpy as np; np.save(sys.argv[2], np.load(sys.argv[1])['inputs'])",
@@ -106,10 +109,20 @@ TEST_F(Digits, Float32PredictionsEqualPyTorchRowForRow) {
   }
 }
 
-TEST_F(Digits, Float16KeepsRoutingDecisions) {
-  const nlohmann::json r = RunModel("tree", "f16");
-  EXPECT_GE(r["route_agreement"].get<double>(), 0.995);
-  EXPECT_NEAR(r["accuracy"].get<double>(), (*accuracy_)["tree_hard"].get<double>(), 0.005);
+// One test for every narrower storage type: under ctest each test is its own process and
+// trains the models again, so they share this one.
+TEST_F(Digits, NarrowStorageKeepsRoutingDecisions) {
+  const nlohmann::json f16 = RunModel("tree", "f16");
+  EXPECT_GE(f16["route_agreement"].get<double>(), 0.995);
+  EXPECT_NEAR(f16["accuracy"].get<double>(), (*accuracy_)["tree_hard"].get<double>(), 0.005);
+  // int8 everywhere, then int8 records under float32 routing nodes.
+  for (const char* options : {"", "--dtype-nodes f32"}) {
+    const nlohmann::json i8 = RunModel("tree", "i8", options);
+    EXPECT_GE(i8["route_agreement"].get<double>(), 0.98) << options;
+    EXPECT_NEAR(i8["accuracy"].get<double>(), (*accuracy_)["tree_hard"].get<double>(), 0.01)
+        << options;
+    EXPECT_EQ(i8["verify_exit"], 0) << options;
+  }
 }
 
 }  // namespace

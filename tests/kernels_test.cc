@@ -32,7 +32,7 @@ namespace {
 constexpr double kSumTolerance = 1e-5;
 constexpr size_t kLengths[] = {1, 2, 3, 7, 8, 9, 15, 16, 17, 31, 33, 63, 64, 65, 127, 1000, 4099};
 constexpr size_t kRowCounts[] = {1, 2, 3, 4, 5, 6, 7, 8, 9, 16, 33};
-constexpr DType kWeightTypes[] = {DType::kF32, DType::kF16, DType::kBF16};
+constexpr DType kWeightTypes[] = {DType::kF32, DType::kF16, DType::kBF16, DType::kI8};
 constexpr Activation kActivations[] = {Activation::kRelu, Activation::kGelu, Activation::kGeluTanh,
                                        Activation::kSilu};
 
@@ -44,12 +44,18 @@ std::vector<float> RandomVector(size_t n, uint32_t seed, float scale = 1.0f, flo
   return v;
 }
 
-// Weights in one storage type, with the float values that storage decodes to.
+// Weights in one storage type, with the float values that storage decodes to. i8 weights are
+// quantised in rows of `cols` values by the rule of schema/README.md (scale = max|w| / 127,
+// q = round half to even of w / scale); they decode to scale·q.
 struct StoredWeights {
-  StoredWeights(DType storage, const std::vector<float>& values) : type(storage) {
+  StoredWeights(DType storage, const std::vector<float>& values, size_t cols = 0) : type(storage) {
     if (type == DType::kF32) {
       f32 = values;
       decoded = values;
+      return;
+    }
+    if (type == DType::kI8) {
+      Quantize(values, cols == 0 ? values.size() : cols);
       return;
     }
     bits.resize(values.size());
@@ -62,12 +68,33 @@ struct StoredWeights {
     }
   }
   const void* data() const {
+    if (type == DType::kI8) return q.data();
     return type == DType::kF32 ? static_cast<const void*>(f32.data()) : bits.data();
+  }
+  // The i8 row scales (null for the floating types, which ignore them).
+  const float* scales() const { return type == DType::kI8 ? row_scales.data() : nullptr; }
+
+  void Quantize(const std::vector<float>& values, size_t cols) {
+    q.resize(values.size());
+    decoded.resize(values.size());
+    for (size_t r = 0; r * cols < values.size(); ++r) {
+      float max_abs = 0.0f;
+      for (size_t i = 0; i < cols; ++i)
+        max_abs = std::max(max_abs, std::fabs(values[r * cols + i]));
+      const float scale = max_abs / 127.0f;
+      row_scales.push_back(scale);
+      for (size_t i = r * cols; i < (r + 1) * cols; ++i) {
+        q[i] = static_cast<int8_t>(scale > 0 ? std::nearbyint(values[i] / scale) : 0.0f);
+        decoded[i] = scale * static_cast<float>(q[i]);
+      }
+    }
   }
 
   DType type;
   std::vector<float> f32;
   std::vector<uint16_t> bits;
+  std::vector<int8_t> q;
+  std::vector<float> row_scales;
   std::vector<float> decoded;
 };
 
@@ -228,11 +255,12 @@ TEST(KernelDot, EveryPathEveryTypeMatchesReference) {
       const std::vector<float> x = RandomVector(n, uint32_t(1000 + n));
       const StoredWeights w(type, RandomVector(n, uint32_t(2000 + n)));
       const ReferenceSum exact = DotReference(x.data(), w.decoded.data(), n, nullptr);
-      const float scalar = Dot(Kernels(KernelPath::kScalar), type, x.data(), w.data(), n);
+      const float scalar =
+          Dot(Kernels(KernelPath::kScalar), type, x.data(), w.data(), n, w.scales());
       for (KernelPath path : AvailablePaths()) {
         Checker check(Describe(path, type, "dot n=" + std::to_string(n)));
-        check.Check(Dot(Kernels(path), type, x.data(), w.data(), n), scalar, exact.value,
-                    exact.magnitude, kSumTolerance, 0);
+        check.Check(Dot(Kernels(path), type, x.data(), w.data(), n, w.scales()), scalar,
+                    exact.value, exact.magnitude, kSumTolerance, 0);
       }
     }
   }
@@ -259,12 +287,12 @@ TEST(KernelAxpy, EveryPathEveryTypeMatchesReference) {
       const std::vector<float> y0 = RandomVector(n, uint32_t(3000 + n));
       const StoredWeights w(type, RandomVector(n, uint32_t(4000 + n)));
       std::vector<float> scalar = y0;
-      Axpy(Kernels(KernelPath::kScalar), type, a, w.data(), scalar.data(), n);
+      Axpy(Kernels(KernelPath::kScalar), type, a, w.data(), scalar.data(), n, w.scales());
       for (KernelPath path : AvailablePaths()) {
         // y + a·w is one or two roundings (fused or not): within 2 ulps of the exact value.
         std::vector<float> y = y0;
         y.push_back(12345.0f);  // a guard element that must stay untouched
-        Axpy(Kernels(path), type, a, w.data(), y.data(), n);
+        Axpy(Kernels(path), type, a, w.data(), y.data(), n, w.scales());
         Checker check(Describe(path, type, "axpy n=" + std::to_string(n)));
         for (size_t i = 0; i < n; ++i) {
           const double product = double(a) * w.decoded[i];
@@ -301,15 +329,16 @@ TEST(KernelGemv, EveryPathEveryTypeMatchesReference) {
       for (size_t in : kLengths) {
         const uint32_t seed = uint32_t(out * 10007 + in);
         const std::vector<float> x = RandomVector(in, seed);
-        const StoredWeights w(type, RandomVector(out * in, seed + 1));
+        const StoredWeights w(type, RandomVector(out * in, seed + 1), in);
         const std::vector<float> bias = RandomVector(out, seed + 2);
         for (bool with_bias : {false, true}) {
           const float* b = with_bias ? bias.data() : nullptr;
           std::vector<float> scalar(out);
-          Gemv(Kernels(KernelPath::kScalar), type, w.data(), x.data(), b, scalar.data(), out, in);
+          Gemv(Kernels(KernelPath::kScalar), type, w.data(), x.data(), b, scalar.data(), out, in,
+               w.scales());
           for (KernelPath path : AvailablePaths()) {
             std::vector<float> y(out + 1, 12345.0f);
-            Gemv(Kernels(path), type, w.data(), x.data(), b, y.data(), out, in);
+            Gemv(Kernels(path), type, w.data(), x.data(), b, y.data(), out, in, w.scales());
             CheckProducts(Describe(path, type,
                                    "gemv out=" + std::to_string(out) + " in=" + std::to_string(in) +
                                        (with_bias ? " bias" : "")),
@@ -329,16 +358,17 @@ TEST(KernelGemmRows, EveryPathEveryTypeMatchesReference) {
         for (size_t in : {1, 2, 3, 7, 8, 9, 16, 17, 33, 64, 65, 127, 1000}) {
           const uint32_t seed = uint32_t(rows * 1000003 + out * 1009 + in);
           const std::vector<float> x = RandomVector(rows * in, seed);
-          const StoredWeights w(type, RandomVector(out * in, seed + 1));
+          const StoredWeights w(type, RandomVector(out * in, seed + 1), in);
           const std::vector<float> bias = RandomVector(out, seed + 2);
           const bool with_bias = (rows + out) % 2 == 0;
           const float* b = with_bias ? bias.data() : nullptr;
           std::vector<float> scalar(rows * out);
           GemmRows(Kernels(KernelPath::kScalar), type, w.data(), x.data(), b, scalar.data(), rows,
-                   out, in);
+                   out, in, w.scales());
           for (KernelPath path : AvailablePaths()) {
             std::vector<float> y(rows * out + 1, 12345.0f);
-            GemmRows(Kernels(path), type, w.data(), x.data(), b, y.data(), rows, out, in);
+            GemmRows(Kernels(path), type, w.data(), x.data(), b, y.data(), rows, out, in,
+                     w.scales());
             CheckProducts(Describe(path, type,
                                    "gemm_rows rows=" + std::to_string(rows) +
                                        " out=" + std::to_string(out) + " in=" + std::to_string(in)),
@@ -357,13 +387,14 @@ TEST(KernelGemmRows, LargeShapesSpanSeveralRowTiles) {
   const std::vector<float> x = RandomVector(kRows * kIn, 5);
   const std::vector<float> bias = RandomVector(kOut, 6);
   for (DType type : kWeightTypes) {
-    const StoredWeights w(type, RandomVector(kOut * kIn, 7));
+    const StoredWeights w(type, RandomVector(kOut * kIn, 7), kIn);
     std::vector<float> scalar(kRows * kOut);
     GemmRows(Kernels(KernelPath::kScalar), type, w.data(), x.data(), bias.data(), scalar.data(),
-             kRows, kOut, kIn);
+             kRows, kOut, kIn, w.scales());
     for (KernelPath path : AvailablePaths()) {
       std::vector<float> y(kRows * kOut);
-      GemmRows(Kernels(path), type, w.data(), x.data(), bias.data(), y.data(), kRows, kOut, kIn);
+      GemmRows(Kernels(path), type, w.data(), x.data(), bias.data(), y.data(), kRows, kOut, kIn,
+               w.scales());
       CheckProducts(Describe(path, type, "gemm_rows 150x7x4099"), y, scalar, x, w, &bias, kRows,
                     kOut, kIn);
     }

@@ -78,7 +78,7 @@ TEST_F(PackCli, AFailedWriteLeavesNoFile) {
 TEST_F(PackCli, BadDtypeAndMissingInputs) {
   auto r = Pack(dir_.File("m.sprig"), "--dtype f8");
   EXPECT_EQ(r.exit_code, 2);
-  EXPECT_NE(r.output.find("--dtype must be f32, f16 or bf16"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("--dtype must be f32, f16, bf16 or i8"), std::string::npos) << r.output;
   r = testing::Run(testing::SprigCli() + " pack " + Quote(dir_.File("nope.json")) + " " +
                    Quote(weights_) + " -o " + Quote(dir_.File("m.sprig")));
   EXPECT_EQ(r.exit_code, 2);

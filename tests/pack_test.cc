@@ -223,13 +223,13 @@ TEST(PackLayout, RecordsArePageAwareForBenchmarkShapes) {
       R"({"kind":"experts","experts":8,"top_k":2,"width":512,"activation":"silu","out":768})",
   };
   for (const char* layer : layers) {
-    for (DType dtype : {DType::kF32, DType::kF16}) {
+    for (DType dtype : {DType::kF32, DType::kF16, DType::kI8}) {
       const std::string text =
           std::string(R"({"family":"stack","input_dim":768,"layers":[)") + layer + "]}";
       auto config = convert::ParseConfig(text, "bench.json");
       ASSERT_TRUE(config.ok()) << config.status().message();
       const convert::LayoutPlan plan =
-          convert::PlanLayout(*config, ExpectedTensors(*config), dtype, 4096);
+          convert::PlanLayout(*config, ExpectedTensors(*config), {dtype, dtype, dtype}, 4096);
       ASSERT_EQ(plan.record_sets.size(), 1u) << layer;
       const auto& rs = plan.record_sets[0];
       const uint64_t pages = (rs.record_size + 4095) / 4096;

@@ -125,7 +125,7 @@ Result<std::shared_ptr<const Model>> BuildUnlinkedModel(const ModelConfig& confi
                          convert::MatchTensors(config, weights, "synthesized weights", {}));
   const std::string path = TemporaryPath(options.folder);
   convert::PackOptions pack;
-  pack.dtype = options.dtype;
+  pack.storage = {options.dtype, options.dtype, options.dtype};
   SPRIG_RETURN_IF_ERROR(convert::PackTensors(config, matched, path, pack).status());
   if (options.evict) {
     // Writing left every page in the cache; a cold start needs them gone. Failure only means

@@ -1,6 +1,7 @@
 #include "converter/pack/convert.h"
 
 #include <algorithm>
+#include <cmath>
 #include <cstring>
 #include <vector>
 
@@ -57,7 +58,92 @@ void ConvertChunk(io::ElementType st, const void* s, DType dt, void* d, size_t n
   }
 }
 
+// One row as float32 (the first rounding of a float64 source).
+void RowToFloat(io::ElementType st, const uint8_t* src, uint64_t cols, std::vector<float>& row) {
+  row.resize(cols);
+  ConvertElements(st, src, DType::kF32, reinterpret_cast<uint8_t*>(row.data()), cols);
+}
+
+// One row as float64, exactly.
+void RowToDouble(io::ElementType st, const uint8_t* src, uint64_t cols, std::vector<double>& row,
+                 std::vector<float>& scratch) {
+  row.resize(cols);
+  if (st == io::ElementType::kF64) {
+    std::memcpy(row.data(), src, cols * sizeof(double));
+    return;
+  }
+  RowToFloat(st, src, cols, scratch);  // exact: f32, f16 and bf16 widen without rounding
+  std::copy(scratch.begin(), scratch.end(), row.begin());
+}
+
+// The stored values of one row decoded back to float32 (int8: q times the row's scale).
+void StoredRow(io::ElementType st, const uint8_t* src, DType dt, uint64_t cols,
+               std::vector<float>& out) {
+  out.resize(cols);
+  if (dt == DType::kI8) {
+    std::vector<int8_t> q(cols);
+    float scale = 0;
+    QuantizeRows(st, src, 1, cols, reinterpret_cast<uint8_t*>(q.data()),
+                 reinterpret_cast<uint8_t*>(&scale));
+    for (uint64_t i = 0; i < cols; ++i) out[i] = scale * static_cast<float>(q[i]);
+    return;
+  }
+  std::vector<uint8_t> stored(cols * DTypeSize(dt));
+  ConvertElements(st, src, dt, stored.data(), cols);
+  if (dt == DType::kF32) {
+    std::memcpy(out.data(), stored.data(), cols * sizeof(float));
+    return;
+  }
+  std::vector<uint16_t> bits(cols);
+  std::memcpy(bits.data(), stored.data(), cols * 2);
+  for (uint64_t i = 0; i < cols; ++i) {
+    out[i] = dt == DType::kF16 ? numeric::HalfToFloat(bits[i]) : numeric::BFloat16ToFloat(bits[i]);
+  }
+}
+
 }  // namespace
+
+void QuantizeRows(io::ElementType st, const uint8_t* src, uint64_t rows, uint64_t cols, uint8_t* q,
+                  uint8_t* scales) {
+  const size_t src_row = cols * io::ElementSize(st);
+  std::vector<float> row;
+  for (uint64_t r = 0; r < rows; ++r) {
+    RowToFloat(st, src + r * src_row, cols, row);
+    float max_abs = 0.0f;
+    for (float v : row) max_abs = std::max(max_abs, std::fabs(v));
+    const float scale = max_abs / 127.0f;
+    for (uint64_t i = 0; i < cols; ++i) {
+      // nearbyint rounds half to even in the default rounding mode, as NumPy's rint does.
+      const float v = scale > 0.0f ? std::nearbyint(row[i] / scale) : 0.0f;
+      q[r * cols + i] = static_cast<uint8_t>(static_cast<int8_t>(std::clamp(v, -127.0f, 127.0f)));
+    }
+    std::memcpy(scales + r * sizeof(float), &scale, sizeof(float));
+  }
+}
+
+StorageError MeasureStorageError(const io::NdArray& src, DType dt) {
+  const uint64_t elements = src.elements();
+  const uint64_t cols = src.shape.empty() || src.shape.back() == 0 ? 1 : src.shape.back();
+  const uint64_t rows = elements / cols;
+  const size_t src_row = cols * io::ElementSize(src.type);
+  std::vector<double> exact;
+  std::vector<float> stored, scratch;
+  double max_abs = 0, diff_squares = 0, squares = 0;
+  for (uint64_t r = 0; r < rows; ++r) {
+    RowToDouble(src.type, src.data + r * src_row, cols, exact, scratch);
+    StoredRow(src.type, src.data + r * src_row, dt, cols, stored);
+    for (uint64_t i = 0; i < cols; ++i) {
+      const double d = static_cast<double>(stored[i]) - exact[i];
+      max_abs = std::max(max_abs, std::fabs(d));
+      diff_squares += d * d;
+      squares += exact[i] * exact[i];
+    }
+  }
+  StorageError e;
+  e.max_abs = max_abs;
+  e.rel_rms = squares > 0 ? std::sqrt(diff_squares / squares) : 0.0;
+  return e;
+}
 
 void ConvertElements(io::ElementType st, const uint8_t* src, DType dt, uint8_t* dst, uint64_t n) {
   const size_t in_size = io::ElementSize(st);

@@ -39,12 +39,29 @@ bool EndsWith(const std::string& s, const std::string& suffix) {
 
 }  // namespace
 
-DType StoredType(const TensorSpec& spec, DType requested) {
+StoragePart PartOf(const TensorSpec& spec) {
+  const std::string& n = spec.name;
+  if (spec.layer >= 0 && (EndsWith(n, "nodes.weight") || EndsWith(n, "router.weight"))) {
+    return StoragePart::kNodes;
+  }
+  if (spec.routed) return StoragePart::kRecords;
+  return StoragePart::kDense;
+}
+
+DType StoredType(const TensorSpec& spec, const StoragePlan& plan) {
   const std::string& n = spec.name;
   const bool norm =
       EndsWith(n, "norm.weight") || EndsWith(n, "norm1.weight") || EndsWith(n, "norm2.weight");
-  if (EndsWith(n, "bias") || norm) return DType::kF32;
-  return requested;
+  if (EndsWith(n, "bias") || norm || spec.shape.size() < 2) return DType::kF32;
+  switch (PartOf(spec)) {
+    case StoragePart::kNodes:
+      return plan.nodes;
+    case StoragePart::kRecords:
+      return plan.records;
+    case StoragePart::kDense:
+      break;
+  }
+  return plan.dense;
 }
 
 uint64_t PlaceRecords(uint64_t start, uint64_t b, uint64_t count, std::vector<uint64_t>* out) {
@@ -59,8 +76,8 @@ uint64_t PlaceRecords(uint64_t start, uint64_t b, uint64_t count, std::vector<ui
   return pos;
 }
 
-LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& specs, DType dtype,
-                      uint64_t data_start) {
+LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& specs,
+                      const StoragePlan& storage, uint64_t data_start) {
   LayoutPlan plan;
   plan.data_start = data_start;
   // Record sets first (they decide which rows stay hot), one per routed layer.
@@ -68,11 +85,12 @@ LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& 
   for (const TensorSpec& s : specs) {
     PlannedTensor t;
     t.spec = s;
-    t.dtype = StoredType(s, dtype);
+    t.dtype = StoredType(s, storage);
     t.rows = s.shape.empty() ? 1 : s.shape[0];
     uint64_t per_row = 1;
     for (size_t d = 1; d < s.shape.size(); ++d) per_row *= s.shape[d];
     t.row_bytes = per_row * DTypeSize(t.dtype);
+    if (t.dtype == DType::kI8) t.scale_row_bytes = per_row / s.shape.back() * sizeof(float);
     t.hot_rows = t.rows;
     if (s.routed) {
       int& set = set_of_layer[s.layer];
@@ -90,6 +108,10 @@ LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& 
         t.part_size = rs.map.rows_per_record * t.row_bytes;
         t.part_offset = AlignUp(rs.record_size, kPartAlignment);
         rs.record_size = t.part_offset + t.part_size;
+        if (t.scale_row_bytes > 0) {
+          t.scales_part_offset = AlignUp(rs.record_size, kPartAlignment);
+          rs.record_size = t.scales_part_offset + rs.map.rows_per_record * t.scale_row_bytes;
+        }
         rs.tensors.push_back(plan.tensors.size());
       }
     }
@@ -107,6 +129,12 @@ LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& 
     t.hot_offset = pos;
     pos += bytes;
     hot_data += bytes;
+    if (t.scale_row_bytes > 0) {
+      pos = AlignUp(pos, kPartAlignment);
+      t.scales_hot_offset = pos;
+      pos += t.hot_rows * t.scale_row_bytes;
+      hot_data += t.hot_rows * t.scale_row_bytes;
+    }
   }
   hot.size = AlignUp(pos, kPageSize) - hot.offset;
   hot.padding = hot.size - hot_data;
@@ -123,7 +151,10 @@ LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& 
         "records.layer" + std::to_string(rs.layer), true, pos, 0, 0, static_cast<int>(rs.layer)};
     const uint64_t end = PlaceRecords(pos, rs.record_size, count, &rs.offsets);
     uint64_t used = 0;
-    for (size_t ti : rs.tensors) used += plan.tensors[ti].part_size * count;
+    for (size_t ti : rs.tensors) {
+      const PlannedTensor& t = plan.tensors[ti];
+      used += (t.part_size + rs.map.rows_per_record * t.scale_row_bytes) * count;
+    }
     sec.size = AlignUp(end, kPageSize) - sec.offset;
     sec.padding = sec.size - used;
     rs.section = static_cast<uint32_t>(plan.sections.size());

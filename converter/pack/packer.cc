@@ -27,11 +27,12 @@ constexpr const char* kProducer = "sprig " SPRIG_VERSION;
 
 struct Checksums {
   std::vector<uint32_t> hot;                   // per planned tensor
+  std::vector<uint32_t> hot_scales;            // per planned tensor (i8 only)
   std::vector<std::vector<uint32_t>> records;  // per record set, per record
 };
 
 std::vector<uint8_t> BuildHeader(const ModelConfig& config, const LayoutPlan& plan,
-                                 const Checksums& crc) {
+                                 const Checksums& crc, const std::vector<TensorError>& errors) {
   flatbuffers::FlatBufferBuilder b(1 << 16);
   // Every field is written even at its default, so the header's size depends only on the
   // model's structure, not on offsets or checksums: the packer reserves that space up front.
@@ -54,10 +55,11 @@ std::vector<uint8_t> BuildHeader(const ModelConfig& config, const LayoutPlan& pl
     // valid) header there. This order keeps the bytes x86-64 builds always wrote.
     auto shape = b.CreateVector(t.spec.shape);
     auto name = b.CreateString(t.spec.name);
-    tensors.push_back(fb::CreateTensor(b, name, static_cast<fb::DType>(t.dtype), shape,
-                                       t.hot_offset, t.hot_rows, t.hot_rows * t.row_bytes,
-                                       crc.hot[i], t.record_set, t.part_offset, t.part_size,
-                                       t.spec.layer));
+    tensors.push_back(fb::CreateTensor(
+        b, name, static_cast<fb::DType>(t.dtype), shape, t.hot_offset, t.hot_rows,
+        t.hot_rows * t.row_bytes, crc.hot[i], t.record_set, t.part_offset, t.part_size,
+        t.spec.layer, t.scales_hot_offset, crc.hot_scales[i], t.scales_part_offset,
+        static_cast<float>(errors[i].error.max_abs), static_cast<float>(errors[i].error.rel_rms)));
   }
   auto tensors_vec = b.CreateVector(tensors);
   std::vector<flatbuffers::Offset<fb::RecordSet>> sets;
@@ -201,6 +203,19 @@ Status WriteHot(const LayoutPlan& plan, const std::vector<const io::NdArray*>& s
     const io::NdArray& src = *sources[i];
     const uint64_t elements = bytes / DTypeSize(t.dtype);
     buffer.resize(bytes);
+    if (t.dtype == DType::kI8) {
+      const uint64_t scale_rows = t.hot_rows * t.scale_row_bytes / sizeof(float);
+      std::vector<uint8_t> scales(scale_rows * sizeof(float));
+      QuantizeRows(src.type, src.data, scale_rows, elements / scale_rows, buffer.data(),
+                   scales.data());
+      crc.hot[i] = format::Crc32(buffer.data(), bytes);
+      crc.hot_scales[i] = format::Crc32(scales.data(), scales.size());
+      SPRIG_RETURN_IF_ERROR(out.PadTo(t.hot_offset));
+      SPRIG_RETURN_IF_ERROR(out.Put(buffer.data(), bytes));
+      SPRIG_RETURN_IF_ERROR(out.PadTo(t.scales_hot_offset));
+      SPRIG_RETURN_IF_ERROR(out.Put(scales.data(), scales.size()));
+      continue;
+    }
     ConvertElements(src.type, src.data, t.dtype, buffer.data(), elements);
     crc.hot[i] = format::Crc32(buffer.data(), bytes);
     SPRIG_RETURN_IF_ERROR(out.PadTo(t.hot_offset));
@@ -225,8 +240,14 @@ Status WriteRecords(const LayoutPlan& plan, const std::vector<const io::NdArray*
         for (uint64_t local = 0; local < rs.map.rows_per_record; ++local) {
           const uint64_t row = format::RowOf(rs.map, r, local);
           if (row >= t.rows) continue;  // a final partial record keeps zeros
-          ConvertElements(src.type, src.data + row * src_row, t.dtype,
-                          record.data() + t.part_offset + local * t.row_bytes, elements);
+          uint8_t* values = record.data() + t.part_offset + local * t.row_bytes;
+          if (t.dtype == DType::kI8) {
+            const uint64_t scale_rows = t.scale_row_bytes / sizeof(float);
+            QuantizeRows(src.type, src.data + row * src_row, scale_rows, elements / scale_rows,
+                         values, record.data() + t.scales_part_offset + local * t.scale_row_bytes);
+            continue;
+          }
+          ConvertElements(src.type, src.data + row * src_row, t.dtype, values, elements);
         }
       }
       crc.records[si][r] = format::Crc32(record.data(), record.size());
@@ -246,14 +267,12 @@ bool SameFile(const std::string& a, const std::string& b) {
 
 }  // namespace
 
-Result<DType> ParseStorageType(const std::string& text) {
+Result<DType> ParseStorageType(const std::string& text, const std::string& option) {
   if (text == "f32") return DType::kF32;
   if (text == "f16") return DType::kF16;
   if (text == "bf16") return DType::kBF16;
-  if (text == "i8") {
-    return Status::NotSupported("--dtype i8 is not available yet; use f32, f16 or bf16");
-  }
-  return Status::InvalidArgument("--dtype must be f32, f16 or bf16, got \"" + text + "\"");
+  if (text == "i8") return DType::kI8;
+  return Status::InvalidArgument(option + " must be f32, f16, bf16 or i8, got \"" + text + "\"");
 }
 
 Result<PackSummary> PackTensors(const ModelConfig& config,
@@ -269,14 +288,19 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
     summary.input_bytes += m.source->nbytes();
   }
   // Reserve header space from a draft whose size equals the final one (see BuildHeader).
-  LayoutPlan plan = PlanLayout(config, specs, options.dtype, kPageSize);
-  Checksums crc{std::vector<uint32_t>(plan.tensors.size()), {}};
+  LayoutPlan plan = PlanLayout(config, specs, options.storage, kPageSize);
+  for (size_t i = 0; i < plan.tensors.size(); ++i) {
+    const PlannedTensor& t = plan.tensors[i];
+    summary.errors.push_back({t.spec.name, t.dtype, MeasureStorageError(*sources[i], t.dtype)});
+  }
+  Checksums crc{
+      std::vector<uint32_t>(plan.tensors.size()), std::vector<uint32_t>(plan.tensors.size()), {}};
   for (const PlannedRecordSet& rs : plan.record_sets) {
     crc.records.emplace_back(rs.offsets.size());
   }
-  const size_t header_size = BuildHeader(config, plan, crc).size();
+  const size_t header_size = BuildHeader(config, plan, crc, summary.errors).size();
   const uint64_t data_start = format::AlignUp(format::kPreambleSize + header_size, kPageSize);
-  plan = PlanLayout(config, specs, options.dtype, data_start);
+  plan = PlanLayout(config, specs, options.storage, data_start);
   spdlog::debug("pack {}: header {} bytes, data from offset {}, file {} bytes", out_path,
                 header_size, data_start, plan.file_size);
   for (const PlannedSection& sec : plan.sections) {
@@ -288,7 +312,9 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
                   rs.record_size, rs.map.subtree ? "subtree" : "contiguous");
   }
 
-  for (const PlannedTensor& t : plan.tensors) summary.tensor_bytes += t.rows * t.row_bytes;
+  for (const PlannedTensor& t : plan.tensors) {
+    summary.tensor_bytes += t.rows * (t.row_bytes + t.scale_row_bytes);
+  }
   SPRIG_ASSIGN_OR_RETURN(io::AtomicFile file, io::AtomicFile::Create(out_path, options.overwrite));
   {
     DataWriter writer(file, options, summary.tensor_bytes);
@@ -301,7 +327,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
     SPRIG_RETURN_IF_ERROR(writer.Finish());
   }
 
-  const std::vector<uint8_t> header = BuildHeader(config, plan, crc);
+  const std::vector<uint8_t> header = BuildHeader(config, plan, crc, summary.errors);
   if (format::kPreambleSize + header.size() > data_start) {
     return Status::InvalidArgument("internal: the header grew after layout planning");
   }

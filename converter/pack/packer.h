@@ -8,20 +8,30 @@
 
 #include "converter/config/config_json.h"
 #include "converter/config/tensor_match.h"
+#include "converter/pack/convert.h"
+#include "converter/pack/layout.h"
 #include "sprig/config.h"
 #include "sprig/status.h"
 
 namespace sprig::convert {
 
 struct PackOptions {
-  DType dtype = DType::kF32;  // storage type of every tensor
-  bool overwrite = false;     // replace an existing output
-  RenameMap rename;           // their tensor name → ours
+  StoragePlan storage;     // storage type of each part (all f32 by default)
+  bool overwrite = false;  // replace an existing output
+  RenameMap rename;        // their tensor name → ours
   // Called now and then with bytes of tensor data written so far and the total.
   std::function<void(uint64_t done, uint64_t total)> progress;
 };
 
+// A tensor's storage type and how far its stored values are from the source.
+struct TensorError {
+  std::string name;
+  DType dtype = DType::kF32;
+  StorageError error;
+};
+
 struct PackSummary {
+  std::vector<TensorError> errors;  // one per tensor, in file order
   uint64_t file_size = 0;
   uint64_t input_bytes = 0;   // bytes of source tensor data read
   uint64_t tensor_bytes = 0;  // bytes of stored tensor data written
@@ -38,7 +48,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
                                 const std::vector<MatchedTensor>& tensors,
                                 const std::string& out_path, const PackOptions& options);
 
-// Parses "f32" | "f16" | "bf16" (and "i8", refused for now with a clear message).
-Result<DType> ParseStorageType(const std::string& text);
+// Parses "f32" | "f16" | "bf16" | "i8". `option` names the option in the error message.
+Result<DType> ParseStorageType(const std::string& text, const std::string& option = "--dtype");
 
 }  // namespace sprig::convert

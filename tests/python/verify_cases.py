@@ -10,6 +10,10 @@
         precision moves that logit (numpy.float16 rounds to nearest even, as IEEE 754 says).
         With weights stored as float16 the logit is then +d/2: the row goes right instead of
         left, a flip that rounding explains.
+    verify_cases.py i8-flip DIR LAYER
+        the same with the root's weights rounded as int8 storage does (schema/README.md: scale
+        s = max|w| / 127 in float32, q = numpy.rint(w / s)); also prints the proven bound on
+        that logit's change, (s / 2) * ||x||_1.
 
 NumPy and PyTorch from Debian (python3-numpy, python3-torch).
 """
@@ -41,7 +45,17 @@ def perturb(d, tensor, index, delta):
     np.savez(path, **weights)
 
 
-def f16_flip(d, layer):
+def to_f16(w):
+    return w.astype(np.float16).astype(np.float64)
+
+
+def to_i8(w):
+    w32 = w.astype(np.float32)
+    s = np.abs(w32).max() / np.float32(127)
+    return (np.rint(w32 / s).astype(np.float32) * s).astype(np.float64), float(s)
+
+
+def f16_flip(d, layer, rounding="f16"):
     model = load_model(d)
     ref_path = os.path.join(d, "reference.npz")
     inputs = np.load(ref_path)["inputs"].astype(np.float64)
@@ -49,19 +63,20 @@ def f16_flip(d, layer):
     weights = np.load(os.path.join(d, "weights.npz"))
     w = weights[prefix + "weight"][0].astype(np.float64)
     b = float(weights[prefix + "bias"][0])
-    w16 = w.astype(np.float16).astype(np.float64)
+    w16, s = to_i8(w) if rounding == "i8" else (to_f16(w), 0.0)
     if layer != 0:
         raise ValueError("f16-flip moves the model's input, so LAYER must be 0")
     x = inputs[0]
     # The root logit is linear in x: move x along w so that the exact logit is -d/2.
     drift = float((w16 - w) @ x)
     if abs(drift) < 1e-7:
-        raise ValueError("float16 rounding does not move this row's logit; pick another seed")
+        raise ValueError("storage rounding does not move this row's logit; pick another seed")
     target = -drift / 2
     x = x + (target - (w @ x + b)) / (w @ w) * w
     inputs[0] = x
     np.savez(ref_path, **reference_arrays(model, inputs.astype(np.float32)))
-    print(json.dumps({"exact_logit": float(w @ x + b), "f16_logit": float(w16 @ x + b)}))
+    print(json.dumps({"exact_logit": float(w @ x + b), "stored_logit": float(w16 @ x + b),
+                      "int8_bound": s / 2 * float(np.abs(x.astype(np.float32)).sum())}))
 
 
 def main():
@@ -70,6 +85,8 @@ def main():
         perturb(d, sys.argv[3], sys.argv[4], float(sys.argv[5]))
     elif command == "f16-flip":
         f16_flip(d, int(sys.argv[3]))
+    elif command == "i8-flip":
+        f16_flip(d, int(sys.argv[3]), "i8")
     else:
         raise SystemExit(f"unknown command {command!r}")
 

@@ -1,7 +1,9 @@
 // sprig inspect MODEL [--check] [--json] [--tensors]
 #include <cstdio>
+#include <map>
 #include <memory>
 #include <nlohmann/json.hpp>
+#include <string>
 
 #include "cli.h"
 #include "format/model_file.h"
@@ -95,9 +97,30 @@ nlohmann::json ToJson(const format::ModelFile& f) {
                             {"dtype", ToString(t.dtype)},
                             {"shape", t.shape},
                             {"hot_rows", t.hot_rows},
-                            {"record_set", t.record_set}});
+                            {"record_set", t.record_set},
+                            {"error_max_abs", t.error_max_abs},
+                            {"error_rel_rms", t.error_rel_rms}});
   }
   return j;
+}
+
+// One line on the storage types in use and the largest storage error the packer measured.
+void PrintStorage(const format::ModelFile& f) {
+  std::map<std::string, uint64_t> bytes_by_type;
+  const format::TensorInfo* worst = nullptr;
+  for (const auto& t : f.tensors()) {
+    bytes_by_type[ToString(t.dtype)] += ElementCount(t.shape) * DTypeSize(t.dtype);
+    if (worst == nullptr || t.error_rel_rms > worst->error_rel_rms) worst = &t;
+  }
+  std::printf("  storage     ");
+  for (const auto& [type, bytes] : bytes_by_type) {
+    std::printf(" %s %s;", type.c_str(), HumanBytes(bytes).c_str());
+  }
+  if (worst != nullptr && worst->error_rel_rms > 0) {
+    std::printf(" largest error %s (relative RMS %.3g, max abs %.3g)", worst->name.c_str(),
+                worst->error_rel_rms, worst->error_max_abs);
+  }
+  std::printf("\n");
 }
 
 void PrintHuman(const format::ModelFile& f, bool list_tensors) {
@@ -116,8 +139,10 @@ void PrintHuman(const format::ModelFile& f, bool list_tensors) {
         c.layers.size(), c.d_model, c.n_heads, c.n_kv_heads, c.vocab_size, c.max_seq,
         ToString(c.norm), ToString(c.positions), ToString(c.head.kind));
   }
-  std::printf("  file         %s (header %s)\n\n", HumanBytes(f.file_size()).c_str(),
+  std::printf("  file         %s (header %s)\n", HumanBytes(f.file_size()).c_str(),
               HumanBytes(f.header_size()).c_str());
+  PrintStorage(f);
+  std::printf("\n");
 
   std::printf("sections\n  %-18s %12s %12s %10s\n", "name", "offset", "size", "padding");
   for (const auto& s : f.sections()) {
@@ -153,11 +178,11 @@ void PrintHuman(const format::ModelFile& f, bool list_tensors) {
   }
   std::printf("\n");
   if (list_tensors) {
-    std::printf("\ntensors\n");
+    std::printf("\ntensors (storage error against the packed source: max abs, relative RMS)\n");
     for (const auto& t : f.tensors()) {
       const char* where = t.record_set < 0 ? "hot" : (t.hot_rows ? "hot+records" : "records");
-      std::printf("  %-40s %-5s %-20s %s\n", t.name.c_str(), ToString(t.dtype),
-                  ShapeToString(t.shape).c_str(), where);
+      std::printf("  %-40s %-5s %-20s %-12s %10.3g %10.3g\n", t.name.c_str(), ToString(t.dtype),
+                  ShapeToString(t.shape).c_str(), where, t.error_max_abs, t.error_rel_rms);
     }
   }
 }

@@ -4,6 +4,7 @@
 // every routing decision with the reference (as sprig_torch.export writes it). Each routing
 // disagreement is judged against how far rounding could have moved its margin; see
 // verify_check.h for the rules.
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <cstring>
@@ -208,6 +209,47 @@ DType DecidingType(const Model& model, size_t layer) {
   return t ? t->dtype : DType::kF32;
 }
 
+// For int8 deciding weights, an absolute bound per row on how far storage rounding moved the
+// margin. Every stored weight is within s / 2 of the source, s its row's scale (schema/README.md,
+// "int8 storage"), so a logit w·x moves by at most (s / 2)·||x||_1. A tree's deciding node is one
+// of the d ancestors of the reference's leaf (leaf and path mode number them alike), so the
+// largest scale among them bounds its s. A router's margin p_a - p_b moves by at most
+// (p_a + p_b + |p_a - p_b|)·max_j |Δlogit_j| <= 2·max_j |Δlogit_j| (first order, as in
+// sprig_torch's margin_bounds), with max_j over every expert. `x` is the reference's layer input.
+std::vector<double> Int8MarginBounds(const Model& model, const RoutedLayer& r,
+                                     const std::vector<double>& x, uint64_t rows) {
+  const ModelConfig& c = model.config();
+  const LayerConfig& layer = c.layers[r.layer];
+  const bool experts = layer.kind == LayerKind::kExperts;
+  const format::TensorInfo* t =
+      model.file().Find(TensorPrefix(c, r.layer) + (experts ? "router.weight" : "nodes.weight"));
+  std::vector<double> bounds(rows, 0.0);
+  if (t == nullptr || t->dtype != DType::kI8) return {};
+  auto scale = [&](uint64_t n) { return static_cast<double>(*model.file().RowScales(*t, n)); };
+  double router_max = 0;
+  if (experts) {
+    for (uint64_t j = 0; j < t->shape[0]; ++j) router_max = std::max(router_max, scale(j));
+  }
+  const uint64_t first_leaf = (uint64_t{1} << layer.depth) - 1;
+  for (uint64_t row = 0; row < rows; ++row) {
+    double l1 = 0;
+    for (uint64_t j = 0; j < r.in; ++j) l1 += std::fabs(x[row * r.in + j]);
+    if (experts) {
+      bounds[row] = 2.0 * (router_max / 2.0) * l1;
+      continue;
+    }
+    const int64_t leaf = r.want[row * r.width];
+    if (leaf < 0 || static_cast<uint64_t>(leaf) > first_leaf) continue;  // not a leaf: no bound
+    double s = 0;
+    for (uint64_t n = static_cast<uint64_t>(leaf) + first_leaf; n > 0;) {
+      n = (n - 1) / 2;  // the parent, down to the root
+      s = std::max(s, scale(n));
+    }
+    bounds[row] = (s / 2.0) * l1;
+  }
+  return bounds;
+}
+
 // Builds the check's inputs: reference arrays next to what sprig computed.
 Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& got) {
   const ModelConfig& c = model.config();
@@ -269,6 +311,7 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
         }
         r.input_error[row] = std::sqrt(sum);
       }
+      if (r.storage == DType::kI8) r.int8_bounds = Int8MarginBounds(model, r, want_in, got.rows);
     }
     v.routed.push_back(std::move(r));
   }

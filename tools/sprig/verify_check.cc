@@ -85,7 +85,8 @@ Flip JudgeFlip(const RoutedLayer& l, uint64_t row, bool follows_earlier) {
   if (l.scales.empty()) return f;  // no sensitivities in the reference: cannot explain
   // float32 accumulation over the n products and the bias (Higham eq. 3.5).
   const double gamma = static_cast<double>(l.in + 1) * std::ldexp(1.0, -24);
-  f.bound_rounding = (StorageRoundoff(l.storage) + gamma) * l.scales[row];
+  f.bound_rounding = l.int8_bounds.empty() ? (StorageRoundoff(l.storage) + gamma) * l.scales[row]
+                                           : l.int8_bounds[row] + gamma * l.scales[row];
   f.bound_input = l.norms[row] * l.input_error[row];
   // The bounds are first order; 1% slack covers the second-order terms.
   if (std::fabs(f.margin) <= 1.01 * (f.bound_rounding + f.bound_input)) {

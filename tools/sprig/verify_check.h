@@ -12,8 +12,12 @@
 //   float32 dot-product error bound (Higham, Accuracy and Stability of Numerical Algorithms,
 //   2nd ed., eq. 3.5: |fl(x.y) - x.y| <= gamma_n |x|.|y|), `scale` and `norm` the reference's
 //   sensitivities of that margin (sprig_torch.layers margin_bounds) and dx the measured
-//   difference between sprig's and the reference's input to the layer. A disagreement in a row
-//   that already flipped at an earlier layer *follows an earlier flip*. Anything else is
+//   difference between sprig's and the reference's input to the layer. int8 weights have no
+//   relative error bound: each stored weight is within half its row's scale s of the source
+//   (schema/README.md), so for them u * scale is replaced by an absolute bound on the margin,
+//   (s / 2) * ||x||_1 for a tree node and 2 * (s / 2) * ||x||_1 for a router's p_a - p_b, with s
+//   the largest scale among the rows that can decide (RoutedLayer::int8_bounds). A disagreement in
+//   a row that already flipped at an earlier layer *follows an earlier flip*. Anything else is
 //   unexplained and fails the check.
 // - Rows that follow a flip are not compared at the flipped layer or after it: for a causal
 //   transformer, a flip at token t also affects the later tokens of its sequence; for a
@@ -63,6 +67,9 @@ struct RoutedLayer {
   std::vector<double> margins;     // [rows]
   // Optional (empty when the reference lacks them): [rows] each.
   std::vector<double> scales, norms, input_error;
+  // int8 deciding weights only (empty otherwise): [rows] absolute bounds on how far storage
+  // rounding moved each row's margin, used in place of StorageRoundoff(storage) * scales.
+  std::vector<double> int8_bounds;
 };
 
 struct VerifyInputs {

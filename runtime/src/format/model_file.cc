@@ -43,6 +43,23 @@ void WillNeed(uint8_t* p, uint64_t size) {
   }
 }
 
+// The scales of an i8 tensor's rows in each record: inside the record and 4-byte aligned in
+// the file (records start where the header says, so every record's offset is checked).
+Status CheckRecordScales(const TensorInfo& t, const RecordSetInfo& rs, const std::string& which) {
+  uint64_t bytes = 0;
+  if (!MulOk(rs.map.rows_per_record, t.scale_row_bytes, &bytes) ||
+      !Inside(t.scales_part_offset, bytes, 0, rs.record_size) ||
+      t.scales_part_offset % sizeof(float) != 0) {
+    return Status::Corruption(which + " has i8 scales outside its record");
+  }
+  for (uint64_t offset : rs.offsets) {
+    if (offset % sizeof(float) != 0) {
+      return Status::Corruption(which + " has i8 scales in a record that is not 4-byte aligned");
+    }
+  }
+  return Status::Ok();
+}
+
 }  // namespace
 
 uint64_t ResidentBytes(const uint8_t* data, uint64_t size) {
@@ -255,15 +272,23 @@ Status ModelFile::Index(const std::string& src) {
                                   " but the config needs " + ShapeToString(it->second.shape));
       }
       const auto raw_dtype = static_cast<uint8_t>(ft->dtype());
-      if (raw_dtype > static_cast<uint8_t>(DType::kBF16)) {
+      if (raw_dtype > static_cast<uint8_t>(DType::kI8)) {
         return Status::NotSupported(which + " uses a storage type this build does not read");
       }
       t.dtype = static_cast<DType>(raw_dtype);
+      if (t.dtype == DType::kI8 && t.shape.size() < 2) {
+        return Status::Corruption(which + " is stored as i8 but has fewer than 2 dimensions");
+      }
+      t.error_max_abs = ft->error_max_abs();
+      t.error_rel_rms = ft->error_rel_rms();
       t.layer = it->second.layer;
       const uint64_t rows = t.shape.empty() ? 1 : t.shape[0];
       uint64_t elements_per_row = 1;
       for (size_t d = 1; d < t.shape.size(); ++d) elements_per_row *= t.shape[d];
       t.row_bytes = elements_per_row * DTypeSize(t.dtype);  // bounded by the config limits
+      if (t.dtype == DType::kI8 && t.shape.back() > 0) {
+        t.scale_row_bytes = elements_per_row / t.shape.back() * sizeof(float);
+      }
       t.hot_rows = ft->hot_rows();
       t.hot_size = ft->hot_size();
       t.hot_crc32 = ft->hot_crc32();
@@ -278,6 +303,17 @@ Status ModelFile::Index(const std::string& src) {
           return Status::Corruption(which + " lies outside the hot section");
         }
         t.hot = base_ + ft->hot_offset();
+      }
+      if (t.scale_row_bytes > 0 && t.hot_rows > 0) {
+        // Bounded by the config limits: hot_rows · scale_row_bytes <= 4 · elements.
+        const uint64_t bytes = t.hot_rows * t.scale_row_bytes;
+        const uint64_t off = ft->scales_hot_offset();
+        if (hot == nullptr || off % sizeof(float) != 0 ||
+            !Inside(off, bytes, hot->offset, hot->offset + hot->size)) {
+          return Status::Corruption(which + " has i8 scales outside the hot section");
+        }
+        t.scales_hot = base_ + off;
+        t.scales_hot_crc32 = ft->scales_hot_crc32();
       }
       t.record_set = ft->record_set();
       if (t.hot_rows < rows) {
@@ -300,6 +336,10 @@ Status ModelFile::Index(const std::string& src) {
         if (!MulOk(rs.map.rows_per_record, t.row_bytes, &part_bytes) || part_bytes != t.part_size ||
             !Inside(t.part_offset, t.part_size, 0, rs.record_size)) {
           return Status::Corruption(which + " has a record part outside its record");
+        }
+        if (t.scale_row_bytes > 0) {
+          t.scales_part_offset = ft->scales_record_part_offset();
+          SPRIG_RETURN_IF_ERROR(CheckRecordScales(t, rs, which));
         }
         if (RecordCount(rs.map, rows) != rs.offsets.size()) {
           return Status::Corruption(which + " needs " + Num(RecordCount(rs.map, rows)) +
@@ -336,6 +376,17 @@ const uint8_t* ModelFile::Row(const TensorInfo& t, uint64_t row) const {
   return base_ + rs.offsets[loc.record] + t.part_offset + loc.local_row * t.row_bytes;
 }
 
+const float* ModelFile::RowScales(const TensorInfo& t, uint64_t row) const {
+  if (t.scale_row_bytes == 0) return nullptr;
+  if (row < t.hot_rows) {
+    return reinterpret_cast<const float*>(t.scales_hot + row * t.scale_row_bytes);
+  }
+  const RecordSetInfo& rs = record_sets_[t.record_set];
+  const RowLocation loc = LocateRow(rs.map, row);
+  return reinterpret_cast<const float*>(base_ + rs.offsets[loc.record] + t.scales_part_offset +
+                                        loc.local_row * t.scale_row_bytes);
+}
+
 std::vector<uint8_t> ModelFile::Gather(const TensorInfo& t) const {
   const uint64_t rows = t.shape.empty() ? 1 : t.shape[0];
   std::vector<uint8_t> out(rows * t.row_bytes);
@@ -354,6 +405,10 @@ Status ModelFile::VerifyChecksums() const {
   for (const TensorInfo& t : tensors_) {
     if (t.hot_size > 0 && Crc32(t.hot, t.hot_size) != t.hot_crc32) {
       note("tensor " + t.name + " (hot section)");
+    }
+    if (t.scales_hot != nullptr &&
+        Crc32(t.scales_hot, t.hot_rows * t.scale_row_bytes) != t.scales_hot_crc32) {
+      note("tensor " + t.name + " (i8 scales in the hot section)");
     }
   }
   for (const RecordSetInfo& rs : record_sets_) {

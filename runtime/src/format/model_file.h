@@ -48,6 +48,15 @@ struct TensorInfo {
   int record_set = -1;
   uint64_t part_offset = 0;  // inside each record
   uint64_t part_size = 0;
+  // i8 only: float32 scales, one per row of the last dimension; scale_row_bytes of them per row
+  // along axis 0. The hot rows' scales start at scales_hot; each record's at scales_part_offset.
+  uint64_t scale_row_bytes = 0;
+  const uint8_t* scales_hot = nullptr;
+  uint32_t scales_hot_crc32 = 0;
+  uint64_t scales_part_offset = 0;
+  // The packer's measure of the stored values against the source (0 for files that predate it).
+  float error_max_abs = 0;
+  float error_rel_rms = 0;
 };
 
 struct OpenFileOptions {
@@ -89,6 +98,9 @@ class ModelFile {
 
   // Pointer to row `row` of a tensor, wherever it is stored.
   const uint8_t* Row(const TensorInfo& t, uint64_t row) const;
+  // The float32 scales of row `row` of an i8 tensor (t.scale_row_bytes / 4 of them, 4-byte
+  // aligned); null for other types.
+  const float* RowScales(const TensorInfo& t, uint64_t row) const;
 
   // A tensor's stored bytes in logical (C) order, gathered from the hot section and records.
   std::vector<uint8_t> Gather(const TensorInfo& t) const;

@@ -9,8 +9,10 @@
 // baseline code.
 //
 // Conventions for every kernel: activations and results are float32, accumulation is float32,
-// weights are stored as float32, f16 or bf16 (raw uint16_t bits, see numeric/half.h) in the
-// PyTorch nn.Linear layout W[out, in] (row-major, one output per row). Pointers need no
+// weights are stored as float32, f16 or bf16 (raw uint16_t bits, see numeric/half.h), or int8
+// with one float32 scale per row, in the PyTorch nn.Linear layout W[out, in] (row-major, one
+// output per row). Weights are converted to float32 a vector at a time, in registers, as they are
+// used; no kernel expands a whole matrix or record first. Pointers need no
 // alignment. n, rows, out or in may be 0 (nothing is read; outputs of a 0-length reduction are
 // the bias or 0). Outputs must not overlap inputs unless a kernel says so.
 //
@@ -48,11 +50,28 @@ struct WeightKernels {
   void (*axpy)(float a, const W* w, float* y, size_t n);
 };
 
+// Kernels for int8 weights with one float32 scale per row: W[o, i] = scales[o]·q[o, i]
+// (schema/README.md, "int8 storage"). dot and axpy see one row and leave the scale to the
+// caller; gemv and gemm_rows apply scales[o] to each output before adding its bias.
+struct Int8Kernels {
+  // Returns Σ_i x[i]·q[i], i < n (unscaled).
+  float (*dot)(const float* x, const int8_t* q, size_t n);
+  // y[o] = scales[o]·Σ_i q[o·in + i]·x[i] + bias[o]. `bias` may be null.
+  void (*gemv)(const int8_t* q, const float* scales, const float* x, const float* bias, float* y,
+               size_t out, size_t in);
+  // Y[r, o] = scales[o]·Σ_i X[r, i]·q[o, i] + bias[o], as WeightKernels::gemm_rows.
+  void (*gemm_rows)(const int8_t* q, const float* scales, const float* x, const float* bias,
+                    float* y, size_t rows, size_t out, size_t in);
+  // y[i] += a·q[i], i < n (unscaled: pass a·scale).
+  void (*axpy)(float a, const int8_t* q, float* y, size_t n);
+};
+
 struct KernelTable {
   KernelPath path;
   WeightKernels<float> f32;
   WeightKernels<uint16_t> f16;
   WeightKernels<uint16_t> bf16;
+  Int8Kernels i8;
 
   // x[i] = act(x[i]), in place. relu(x) = max(x, 0) (NaN stays NaN); gelu is the exact form
   // 0.5·x·(1 + erf(x/√2)); gelu_tanh is 0.5·x·(1 + tanh(√(2/π)·(x + 0.044715·x³))); silu is
@@ -104,53 +123,65 @@ const KernelTable& Kernels(KernelPath path);
 // The table of BestAvailablePath(), chosen once on first use.
 const KernelTable& ActiveKernels();
 
-// Type-erased access for layers that hold a storage type and a raw weight pointer. `type` must
-// be kF32, kF16 or kBF16 (i8 rows are dequantised by the caller).
-inline float Dot(const KernelTable& k, DType type, const float* x, const void* w, size_t n) {
-  assert(type != DType::kI8);
+// Type-erased access for layers that hold a storage type and a raw weight pointer. For kI8,
+// `scales` points at the float32 scale of the first row passed (row o's scale is scales[o]);
+// it is ignored for the floating types and may be null there.
+inline float Dot(const KernelTable& k, DType type, const float* x, const void* w, size_t n,
+                 const float* scales = nullptr) {
   switch (type) {
     case DType::kF16:
       return k.f16.dot(x, static_cast<const uint16_t*>(w), n);
     case DType::kBF16:
       return k.bf16.dot(x, static_cast<const uint16_t*>(w), n);
+    case DType::kI8:
+      assert(scales != nullptr);
+      return scales[0] * k.i8.dot(x, static_cast<const int8_t*>(w), n);
     default:
       return k.f32.dot(x, static_cast<const float*>(w), n);
   }
 }
 
 inline void Gemv(const KernelTable& k, DType type, const void* w, const float* x, const float* bias,
-                 float* y, size_t out, size_t in) {
-  assert(type != DType::kI8);
+                 float* y, size_t out, size_t in, const float* scales = nullptr) {
   switch (type) {
     case DType::kF16:
       return k.f16.gemv(static_cast<const uint16_t*>(w), x, bias, y, out, in);
     case DType::kBF16:
       return k.bf16.gemv(static_cast<const uint16_t*>(w), x, bias, y, out, in);
+    case DType::kI8:
+      assert(scales != nullptr);
+      return k.i8.gemv(static_cast<const int8_t*>(w), scales, x, bias, y, out, in);
     default:
       return k.f32.gemv(static_cast<const float*>(w), x, bias, y, out, in);
   }
 }
 
 inline void GemmRows(const KernelTable& k, DType type, const void* w, const float* x,
-                     const float* bias, float* y, size_t rows, size_t out, size_t in) {
-  assert(type != DType::kI8);
+                     const float* bias, float* y, size_t rows, size_t out, size_t in,
+                     const float* scales = nullptr) {
   switch (type) {
     case DType::kF16:
       return k.f16.gemm_rows(static_cast<const uint16_t*>(w), x, bias, y, rows, out, in);
     case DType::kBF16:
       return k.bf16.gemm_rows(static_cast<const uint16_t*>(w), x, bias, y, rows, out, in);
+    case DType::kI8:
+      assert(scales != nullptr);
+      return k.i8.gemm_rows(static_cast<const int8_t*>(w), scales, x, bias, y, rows, out, in);
     default:
       return k.f32.gemm_rows(static_cast<const float*>(w), x, bias, y, rows, out, in);
   }
 }
 
-inline void Axpy(const KernelTable& k, DType type, float a, const void* w, float* y, size_t n) {
-  assert(type != DType::kI8);
+inline void Axpy(const KernelTable& k, DType type, float a, const void* w, float* y, size_t n,
+                 const float* scales = nullptr) {
   switch (type) {
     case DType::kF16:
       return k.f16.axpy(a, static_cast<const uint16_t*>(w), y, n);
     case DType::kBF16:
       return k.bf16.axpy(a, static_cast<const uint16_t*>(w), y, n);
+    case DType::kI8:
+      assert(scales != nullptr);
+      return k.i8.axpy(a * scales[0], static_cast<const int8_t*>(w), y, n);
     default:
       return k.f32.axpy(a, static_cast<const float*>(w), y, n);
   }

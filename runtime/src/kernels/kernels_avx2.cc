@@ -22,6 +22,9 @@ struct Avx2Traits {
   static I Widen(const uint16_t* p) {
     return _mm256_cvtepu16_epi32(_mm_loadu_si128(reinterpret_cast<const __m128i*>(p)));
   }
+  static I WidenBytes(const int8_t* p) {
+    return _mm256_cvtepi8_epi32(_mm_loadl_epi64(reinterpret_cast<const __m128i*>(p)));
+  }
   static void Narrow(I v, uint16_t* p) {
     const __m256i bits = v;
     const __m128i packed =

@@ -32,6 +32,9 @@ struct Avx512Traits {
   static I Widen(const uint16_t* p) {
     return _mm512_cvtepu16_epi32(_mm256_loadu_si256(reinterpret_cast<const __m256i*>(p)));
   }
+  static I WidenBytes(const int8_t* p) {
+    return _mm512_cvtepi8_epi32(_mm_loadu_si128(reinterpret_cast<const __m128i*>(p)));
+  }
   static void Narrow(I v, uint16_t* p) {
     _mm256_storeu_si256(reinterpret_cast<__m256i*>(p), _mm512_cvtepi32_epi16(v));
   }

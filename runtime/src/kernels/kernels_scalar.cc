@@ -18,6 +18,9 @@ struct BFloat16Weights {
 struct FloatWeights {
   static float Decode(float w) { return w; }
 };
+struct Int8Weights {
+  static float Decode(int8_t q) { return static_cast<float>(q); }
+};
 
 template <typename Tag, typename W>
 float Dot(const float* x, const W* w, size_t n) {
@@ -42,6 +45,19 @@ void GemmRows(const W* w, const float* x, const float* bias, float* y, size_t ro
 template <typename Tag, typename W>
 void Axpy(float a, const W* w, float* y, size_t n) {
   for (size_t i = 0; i < n; ++i) y[i] += a * Tag::Decode(w[i]);
+}
+
+// int8 rows: the unscaled sum of the row, times its scale, plus the bias.
+void GemvInt8(const int8_t* q, const float* scales, const float* x, const float* bias, float* y,
+              size_t out, size_t in) {
+  for (size_t o = 0; o < out; ++o) {
+    y[o] = scales[o] * Dot<Int8Weights>(x, q + o * in, in) + (bias != nullptr ? bias[o] : 0.0f);
+  }
+}
+
+void GemmRowsInt8(const int8_t* q, const float* scales, const float* x, const float* bias, float* y,
+                  size_t rows, size_t out, size_t in) {
+  for (size_t r = 0; r < rows; ++r) GemvInt8(q, scales, x + r * in, bias, y + r * out, out, in);
 }
 
 // The activations below use forms that equal the textbook ones but avoid cancellation where
@@ -146,6 +162,7 @@ constexpr KernelTable kScalarTable = {
     MakeWeightKernels<FloatWeights, float>(),
     MakeWeightKernels<HalfWeights, uint16_t>(),
     MakeWeightKernels<BFloat16Weights, uint16_t>(),
+    {&Dot<Int8Weights, int8_t>, &GemvInt8, &GemmRowsInt8, &Axpy<Int8Weights, int8_t>},
     &Activate,
     &GatedActivate,
     &Softmax,

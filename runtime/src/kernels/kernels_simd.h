@@ -18,7 +18,10 @@
 //   static F LoadHalf(const uint16_t* p);       // L f16 -> L float (hardware or HalfEmulation)
 //   static void StoreHalf(F v, uint16_t* p);    // L float -> L f16, round to nearest even
 //   static void Reduce(const F* acc, size_t count, float* sums);  // sums[i] = Σ lanes of acc[i]
-// where F, I are xsimd::batch<float|int32_t, Arch> and L = F::size.
+// and optionally
+//   static I WidenBytes(const int8_t* p);       // L int8 -> L int32 lanes (sign-extended)
+// (without it, int8 weights are widened through a small buffer, which is correct but slower).
+// F, I are xsimd::batch<float|int32_t, Arch> and L = F::size.
 #pragma once
 
 #include <cstddef>
@@ -128,6 +131,9 @@ struct HalfTag {
 struct BFloat16Tag {
   using Storage = uint16_t;
 };
+struct Int8Tag {
+  using Storage = int8_t;
+};
 
 constexpr float kSqrtHalf = 0.70710678118654752440f;       // 1/√2
 constexpr float kSqrtTwoOverPi = 0.79788456080286535588f;  // √(2/π)
@@ -145,6 +151,18 @@ struct SimdKernels {
   static F Load(const uint16_t* p, HalfTag) { return Traits::LoadHalf(p); }
   static F Load(const uint16_t* p, BFloat16Tag) {
     return xsimd::bitwise_cast<F>(Traits::Widen(p) << 16);
+  }
+  // int8 weights become exact float integers in [-128, 127]; the row's scale is applied to the
+  // finished sum, so the inner loop is the float loop with a different load.
+  static F Load(const int8_t* p, Int8Tag) { return xsimd::to_float(WidenBytes(p)); }
+  static I WidenBytes(const int8_t* p) {
+    if constexpr (requires(const int8_t* q) { Traits::WidenBytes(q); }) {
+      return Traits::WidenBytes(p);
+    } else {
+      alignas(64) int32_t lanes[L];
+      for (size_t i = 0; i < L; ++i) lanes[i] = p[i];
+      return I::load_aligned(lanes);
+    }
   }
 
   // Loads count < L values, the rest of the lanes zero.
@@ -241,9 +259,16 @@ struct SimdKernels {
   // L2, so that W's blocks and Y fit beside it.
   static constexpr size_t kRowTileBytes = 512 * 1024;
 
+  // One output: the block's sum, scaled for int8 rows (`scales` null for the float types, whose
+  // results then stay exactly sum + bias), plus the bias.
+  static float Finish(float sum, const float* scales, const float* bias, size_t o) {
+    if (scales != nullptr) sum *= scales[o];
+    return sum + (bias != nullptr ? bias[o] : 0.0f);
+  }
+
   template <class Tag>
-  static void GemmRows(const typename Tag::Storage* w, const float* x, const float* bias, float* y,
-                       size_t rows, size_t out, size_t in) {
+  static void GemmRowsScaled(const typename Tag::Storage* w, const float* scales, const float* x,
+                             const float* bias, float* y, size_t rows, size_t out, size_t in) {
     constexpr size_t R = Traits::kGemmRows;
     constexpr size_t C = Traits::kGemmCols;
     const size_t row_bytes = Max<size_t>(in, 1) * sizeof(float);
@@ -258,8 +283,7 @@ struct SimdKernels {
           EdgeBlock<Tag, int(R), int(C)>(block_rows, cols, w + o * in, x + r * in, in, sums);
           for (size_t i = 0; i < block_rows; ++i) {
             for (size_t c = 0; c < cols; ++c) {
-              y[(r + i) * out + o + c] =
-                  sums[i * cols + c] + (bias != nullptr ? bias[o + c] : 0.0f);
+              y[(r + i) * out + o + c] = Finish(sums[i * cols + c], scales, bias, o + c);
             }
           }
         }
@@ -268,15 +292,27 @@ struct SimdKernels {
   }
 
   template <class Tag>
-  static void Gemv(const typename Tag::Storage* w, const float* x, const float* bias, float* y,
-                   size_t out, size_t in) {
+  static void GemvScaled(const typename Tag::Storage* w, const float* scales, const float* x,
+                         const float* bias, float* y, size_t out, size_t in) {
     constexpr size_t C = Traits::kGemvCols;
     float sums[C];
     for (size_t o = 0; o < out; o += C) {
       const size_t cols = Min(C, out - o);
       EdgeBlock<Tag, 1, int(C)>(1, cols, w + o * in, x, in, sums);
-      for (size_t c = 0; c < cols; ++c) y[o + c] = sums[c] + (bias != nullptr ? bias[o + c] : 0.0f);
+      for (size_t c = 0; c < cols; ++c) y[o + c] = Finish(sums[c], scales, bias, o + c);
     }
+  }
+
+  template <class Tag>
+  static void GemmRows(const typename Tag::Storage* w, const float* x, const float* bias, float* y,
+                       size_t rows, size_t out, size_t in) {
+    GemmRowsScaled<Tag>(w, nullptr, x, bias, y, rows, out, in);
+  }
+
+  template <class Tag>
+  static void Gemv(const typename Tag::Storage* w, const float* x, const float* bias, float* y,
+                   size_t out, size_t in) {
+    GemvScaled<Tag>(w, nullptr, x, bias, y, out, in);
   }
 
   // ---- activations ----
@@ -505,6 +541,7 @@ struct SimdKernels {
         MakeWeightKernels<FloatTag>(),
         MakeWeightKernels<HalfTag>(),
         MakeWeightKernels<BFloat16Tag>(),
+        Int8Kernels{&Dot<Int8Tag>, &GemvScaled<Int8Tag>, &GemmRowsScaled<Int8Tag>, &Axpy<Int8Tag>},
         &Activate,
         &GatedActivate,
         &Softmax,

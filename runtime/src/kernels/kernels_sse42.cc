@@ -2,6 +2,8 @@
 // so f16 is converted in integer arithmetic (HalfEmulation) and multiply-adds are not fused.
 #include <immintrin.h>
 
+#include <cstring>
+
 #include "kernels/kernels_internal.h"
 #include "kernels/kernels_simd.h"
 
@@ -19,6 +21,11 @@ struct Sse42Traits {
 
   static I Widen(const uint16_t* p) {
     return _mm_cvtepu16_epi32(_mm_loadl_epi64(reinterpret_cast<const __m128i*>(p)));
+  }
+  static I WidenBytes(const int8_t* p) {
+    int32_t four;
+    std::memcpy(&four, p, sizeof(four));  // exactly L = 4 bytes, no over-read
+    return _mm_cvtepi8_epi32(_mm_cvtsi32_si128(four));
   }
   static void Narrow(I v, uint16_t* p) {
     _mm_storel_epi64(reinterpret_cast<__m128i*>(p), _mm_packus_epi32(v, v));

@@ -47,10 +47,11 @@ void ExpertsLayer::Forward(const Exec& e, const float* x, size_t rows, float* y,
   std::vector<int32_t> chosen(rows * top);
   std::vector<float> weights(rows * top);
   if (e.single_row) {
-    kernels::Gemv(k, router_.type, router_.data, x, router_bias_, logits.data(), experts, in_);
+    kernels::Gemv(k, router_.type, router_.data, x, router_bias_, logits.data(), experts, in_,
+                  router_.scales);
   } else {
     kernels::GemmRows(k, router_.type, router_.data, x, router_bias_, logits.data(), rows, experts,
-                      in_);
+                      in_, router_.scales);
   }
   for (size_t r = 0; r < rows; ++r) {
     Choose(k, logits.data() + r * experts, chosen.data() + r * top, weights.data() + r * top);

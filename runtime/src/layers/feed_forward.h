@@ -18,12 +18,15 @@
 
 namespace sprig::layers {
 
-// A weight matrix (or a stack of rows) in the file: row i starts at row(i).
+// A weight matrix (or a stack of rows) in the file: row i starts at row(i). An i8 matrix has
+// one float32 scale per row, row i's at scales[i] (null for the other types).
 struct MatrixView {
   DType type = DType::kF32;
   const uint8_t* data = nullptr;
+  const float* scales = nullptr;
   uint64_t rows = 0, cols = 0, row_bytes = 0;
   const void* row(uint64_t i) const { return data + i * row_bytes; }
+  const float* row_scales(uint64_t i) const { return scales ? scales + i : nullptr; }
 };
 
 // Growable per-thread buffers. Each layer uses the slots it needs; nothing is shared.

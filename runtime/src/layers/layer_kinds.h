@@ -49,11 +49,26 @@ class PathTreeLayer final : public FeedForward {
   uint64_t unit_count() const override { return uint64_t{1} << config_.depth; }
 
  private:
-  // One neuron for one row: y += act(w·x + b)·out; returns the pre-activation. With
-  // `prefetch_child`, the chosen child's rows are prefetched before the output row is added.
-  float Step(const kernels::KernelTable& k, uint64_t node, const float* x, float* y,
-             bool prefetch_child) const;
-  void Prefetch(uint64_t node) const;
+  // Where one neuron's data lies: its weight row, bias, output row and (i8) their scales.
+  // Located once per neuron, as all of them share one record.
+  struct Neuron {
+    const uint8_t* weight = nullptr;
+    const float* weight_scale = nullptr;
+    float bias = 0.0f;
+    const uint8_t* out = nullptr;
+    const float* out_scale = nullptr;
+  };
+  Neuron Locate(uint64_t node) const;
+  Neuron LocateEach(uint64_t node) const;
+  // The pre-activation w·x + b of a neuron.
+  float Logit(const kernels::KernelTable& k, const Neuron& n, const float* x) const;
+  // y += act(a)·out.
+  void AddOutput(const kernels::KernelTable& k, const Neuron& n, float a, float* y) const;
+  // Starts loading a neuron's weight row, or its output row (both with their scales).
+  void PrefetchWeight(const Neuron& n) const;
+  void PrefetchOut(const Neuron& n) const;
+  void ForwardOne(const kernels::KernelTable& k, const Exec& e, const float* x, float* y,
+                  int32_t* routes) const;
 
   Binder binder_;
   LayerConfig config_;
@@ -61,6 +76,9 @@ class PathTreeLayer final : public FeedForward {
   const format::TensorInfo* bias_ = nullptr;
   const format::TensorInfo* out_rows_ = nullptr;
   const float* out_bias_ = nullptr;
+  // nodes.weight, nodes.bias and nodes.out share hot rows and records (as the packer writes
+  // them), so Locate finds a neuron's record once for all three.
+  bool shared_location_ = false;
 };
 
 // Top-k mixture of experts with a softmax router.

@@ -32,8 +32,8 @@ uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
         __builtin_prefetch(nodes_.row(2 * n + 2), 0, 1);
       }
     }
-    const float logit =
-        kernels::Dot(k, nodes_.type, x, nodes_.row(n), in_) + (node_bias_ ? node_bias_[n] : 0.0f);
+    const float logit = kernels::Dot(k, nodes_.type, x, nodes_.row(n), in_, nodes_.row_scales(n)) +
+                        (node_bias_ ? node_bias_[n] : 0.0f);
     // A logit of exactly 0 (or NaN) goes left.
     n = 2 * n + 1 + (logit > 0.0f ? 1 : 0);
   }

@@ -6,9 +6,9 @@ namespace {
 void Project(const kernels::KernelTable& k, const MatrixView& w, const float* x, const float* bias,
              float* y, size_t rows, bool vector_kernels) {
   if (vector_kernels && rows == 1) {
-    kernels::Gemv(k, w.type, w.data, x, bias, y, w.rows, w.cols);
+    kernels::Gemv(k, w.type, w.data, x, bias, y, w.rows, w.cols, w.scales);
   } else {
-    kernels::GemmRows(k, w.type, w.data, x, bias, y, rows, w.rows, w.cols);
+    kernels::GemmRows(k, w.type, w.data, x, bias, y, rows, w.rows, w.cols, w.scales);
   }
 }
 

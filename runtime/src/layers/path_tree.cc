@@ -38,27 +38,116 @@ PathTreeLayer::PathTreeLayer(const Binder& b, const LayerConfig& c) : binder_(b)
   bias_ = b.Find("nodes.bias");
   out_rows_ = b.Find("nodes.out");
   out_bias_ = b.FloatRow(b.Find("out_bias"), 0);
+  auto same_place = [&](const format::TensorInfo* t) {
+    return t == nullptr ||
+           (t->record_set == weight_->record_set && t->hot_rows == weight_->hot_rows);
+  };
+  shared_location_ = same_place(bias_) && same_place(out_rows_);
 }
 
-float PathTreeLayer::Step(const kernels::KernelTable& k, uint64_t node, const float* x, float* y,
-                          bool prefetch_child) const {
+PathTreeLayer::Neuron PathTreeLayer::Locate(uint64_t node) const {
   const format::ModelFile& f = binder_.file();
-  const float bias = bias_ ? *reinterpret_cast<const float*>(f.Row(*bias_, node)) : 0.0f;
-  const float a = kernels::Dot(k, weight_->dtype, x, f.Row(*weight_, node), in_) + bias;
-  // The child is known before this neuron's output row is added: start loading the child's
-  // rows now, so they arrive while the axpy below streams the current output row.
-  if (prefetch_child) Prefetch(2 * node + 1 + (a > 0.0f ? 1 : 0));
-  kernels::Axpy(k, out_rows_->dtype, ActivateScalar(config_.activation, a), f.Row(*out_rows_, node),
-                y, out_);
-  return a;
+  // The routed tensors (nodes.weight, nodes.bias, nodes.out) have the same rows, hot rows and
+  // record set (checked at open), so one location serves all of them: the ModelFile::Row
+  // arithmetic, done once per neuron instead of once per tensor.
+  if (!shared_location_) return LocateEach(node);
+  const uint8_t* record = nullptr;
+  uint64_t local = node;
+  if (node >= weight_->hot_rows) {
+    const format::RecordSetInfo& rs = f.record_sets()[weight_->record_set];
+    const format::RowLocation loc = format::LocateRow(rs.map, node);
+    record = f.base() + rs.offsets[loc.record];
+    local = loc.local_row;
+  }
+  auto at = [&](const uint8_t* hot, uint64_t part_offset, uint64_t row_bytes) {
+    return record == nullptr ? hot + local * row_bytes : record + part_offset + local * row_bytes;
+  };
+  Neuron n;
+  n.weight = at(weight_->hot, weight_->part_offset, weight_->row_bytes);
+  n.out = at(out_rows_->hot, out_rows_->part_offset, out_rows_->row_bytes);
+  if (bias_ != nullptr) {
+    n.bias = *reinterpret_cast<const float*>(at(bias_->hot, bias_->part_offset, bias_->row_bytes));
+  }
+  if (weight_->scale_row_bytes > 0) {
+    n.weight_scale = reinterpret_cast<const float*>(
+        at(weight_->scales_hot, weight_->scales_part_offset, weight_->scale_row_bytes));
+  }
+  if (out_rows_->scale_row_bytes > 0) {
+    n.out_scale = reinterpret_cast<const float*>(
+        at(out_rows_->scales_hot, out_rows_->scales_part_offset, out_rows_->scale_row_bytes));
+  }
+  return n;
 }
 
-void PathTreeLayer::Prefetch(uint64_t node) const {
+// The general form, for a file whose routed tensors are stored apart (no packer writes one,
+// but a file is untrusted): each pointer from its own tensor's layout.
+PathTreeLayer::Neuron PathTreeLayer::LocateEach(uint64_t node) const {
   const format::ModelFile& f = binder_.file();
-  const auto* w = f.Row(*weight_, node);
-  const auto* o = f.Row(*out_rows_, node);
-  for (uint64_t off = 0; off < weight_->row_bytes; off += 64) __builtin_prefetch(w + off, 0, 3);
-  for (uint64_t off = 0; off < out_rows_->row_bytes; off += 64) __builtin_prefetch(o + off, 0, 3);
+  Neuron n;
+  n.weight = f.Row(*weight_, node);
+  n.weight_scale = f.RowScales(*weight_, node);
+  n.out = f.Row(*out_rows_, node);
+  n.out_scale = f.RowScales(*out_rows_, node);
+  if (bias_ != nullptr) n.bias = *reinterpret_cast<const float*>(f.Row(*bias_, node));
+  return n;
+}
+
+float PathTreeLayer::Logit(const kernels::KernelTable& k, const Neuron& n, const float* x) const {
+  return kernels::Dot(k, weight_->dtype, x, n.weight, in_, n.weight_scale) + n.bias;
+}
+
+void PathTreeLayer::AddOutput(const kernels::KernelTable& k, const Neuron& n, float a,
+                              float* y) const {
+  kernels::Axpy(k, out_rows_->dtype, ActivateScalar(config_.activation, a), n.out, y, out_,
+                n.out_scale);
+}
+
+void PathTreeLayer::PrefetchWeight(const Neuron& n) const {
+  for (uint64_t off = 0; off < weight_->row_bytes; off += 64) {
+    __builtin_prefetch(n.weight + off, 0, 3);
+  }
+  if (n.weight_scale != nullptr) __builtin_prefetch(n.weight_scale, 0, 3);
+}
+
+void PathTreeLayer::PrefetchOut(const Neuron& n) const {
+  for (uint64_t off = 0; off < out_rows_->row_bytes; off += 64) {
+    __builtin_prefetch(n.out + off, 0, 3);
+  }
+  if (n.out_scale != nullptr) __builtin_prefetch(n.out_scale, 0, 3);
+}
+
+// One row: each level's latency is a load of the neuron's weight row followed by its dot
+// product, and the next neuron is known only after that dot product. So both children's weight
+// rows are requested before the current dot product starts (one of them is wasted, but the
+// chosen one is then on its way a whole dot product earlier), and the chosen child's output row
+// as soon as the choice is made, so it arrives while the current output row is added. (Asking
+// for all four grandchildren as well measured slower at in = out = 768: the extra misses cost
+// more than the latency they hide.)
+void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& e, const float* x,
+                               float* y, int32_t* routes) const {
+  const uint32_t depth = config_.depth;
+  uint64_t n = 0;
+  Neuron current = Locate(0);
+  PrefetchWeight(current);
+  PrefetchOut(current);
+  for (uint32_t level = 0; level <= depth; ++level) {
+    Touch(e, n);
+    if (level == depth) {
+      AddOutput(k, current, Logit(k, current, x), y);
+      break;
+    }
+    const Neuron left = Locate(2 * n + 1), right = Locate(2 * n + 2);
+    PrefetchWeight(left);
+    PrefetchWeight(right);
+    const float a = Logit(k, current, x);
+    const bool go_right = a > 0.0f;
+    const Neuron& child = go_right ? right : left;
+    PrefetchOut(child);
+    AddOutput(k, current, a, y);
+    n = 2 * n + 1 + (go_right ? 1 : 0);
+    current = child;
+  }
+  if (routes) routes[0] = static_cast<int32_t>(n - ((uint64_t{1} << depth) - 1));
 }
 
 void PathTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y,
@@ -75,13 +164,7 @@ void PathTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y
   };
   if (e.single_row) {
     init(y);
-    uint64_t n = 0;
-    for (uint32_t level = 0; level <= depth; ++level) {
-      Touch(e, n);
-      const float a = Step(k, n, x, y, level < depth);
-      if (level < depth) n = 2 * n + 1 + (a > 0.0f ? 1 : 0);
-    }
-    if (routes) routes[0] = static_cast<int32_t>(n - first_leaf);
+    ForwardOne(k, e, x, y, routes);
     return;
   }
   // Level by level for all rows; within a level rows are visited grouped by node, so each
@@ -107,9 +190,13 @@ void PathTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y
         // enough that they arrive before they are needed.
         const size_t ahead = i + kPrefetchRowsAhead;
         if (ahead < rows && order[ahead].first != order[ahead - 1].first) {
-          Prefetch(order[ahead].first);
+          const Neuron next = Locate(order[ahead].first);
+          PrefetchWeight(next);
+          PrefetchOut(next);
         }
-        const float a = Step(k, node[r], x + r * in_, y + r * out_, false);
+        const Neuron neuron = Locate(node[r]);
+        const float a = Logit(k, neuron, x + r * in_);
+        AddOutput(k, neuron, a, y + r * out_);
         if (level < depth) node[r] = 2 * node[r] + 1 + (a > 0.0f ? 1 : 0);
       }
     });

@@ -22,6 +22,12 @@ void RowToFloat(const kernels::KernelTable& k, const MatrixView& m, uint64_t row
     case DType::kBF16:
       k.bf16_to_f32(static_cast<const uint16_t*>(src), out, m.cols);
       break;
+    case DType::kI8: {
+      const auto* q = static_cast<const int8_t*>(src);
+      const float scale = m.scales[row];
+      for (uint64_t i = 0; i < m.cols; ++i) out[i] = scale * static_cast<float>(q[i]);
+      break;
+    }
     default:
       std::memcpy(out, src, m.cols * sizeof(float));
       break;
@@ -50,7 +56,7 @@ void Project(const Exec& e, const MatrixView& w, const float* bias, const float*
         if (o0 >= out) return;
         const size_t n = std::min(per_part, out - o0);
         kernels::Gemv(*e.k, w.type, w.row(o0), x + r * in, bias ? bias + o0 : nullptr,
-                      y + r * out + o0, n, in);
+                      y + r * out + o0, n, in, w.row_scales(o0));
       });
     }
     return;
@@ -60,7 +66,7 @@ void Project(const Exec& e, const MatrixView& w, const float* bias, const float*
   const size_t tasks = (rows + chunk - 1) / chunk;
   e.ParallelFor(tasks, [&](size_t t, layers::Scratch&) {
     const size_t r0 = t * chunk, n = std::min(chunk, rows - r0);
-    kernels::GemmRows(*e.k, w.type, w.data, x + r0 * in, bias, y + r0 * out, n, out, in);
+    kernels::GemmRows(*e.k, w.type, w.data, x + r0 * in, bias, y + r0 * out, n, out, in, w.scales);
   });
 }
 
@@ -84,10 +90,6 @@ class Tensors {
   Status Matrix(const std::string& name, MatrixView* out) {
     const format::TensorInfo* t = file_.Find(name);
     if (t == nullptr) return Status::NotFound(file_.path() + " has no tensor " + name);
-    if (t->dtype == DType::kI8) {
-      return Status::NotSupported(file_.path() + ": tensor " + name +
-                                  " is stored as i8, which transformer layers cannot run yet");
-    }
     if (t->hot_rows != t->shape[0]) {
       return Status::Corruption(file_.path() + ": tensor " + name +
                                 " must be stored whole in the hot section");
