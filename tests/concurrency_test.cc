@@ -196,6 +196,9 @@ TEST(Endurance, DecodingWithResetsKeepsMemoryFlat) {
     if (n + 1 > kWarmup) peak_after_warmup = std::max(peak_after_warmup, rss);
   }
   EXPECT_EQ(resets, kTokens / c.max_seq);
+  std::printf("resident memory after %llu tokens: %.2f MiB; highest after that: %.2f MiB\n",
+              static_cast<unsigned long long>(kWarmup), rss_after_warmup / 1048576.0,
+              peak_after_warmup / 1048576.0);
   ASSERT_GT(rss_after_warmup, 0u) << "no /proc/self/status here";
   // The cache and scratch of this model are a few KiB; 4 MiB of growth would mean a leak per
   // reset or per token (90,000 tokens, 1,875 resets since the warm-up).
