@@ -100,6 +100,32 @@ TEST_F(LoaderTest, HeaderOutsideTheFile) {
   EXPECT_NE(msg.find("outside the file"), std::string::npos) << msg;
 }
 
+TEST_F(LoaderTest, MisalignedHeaderIsRefused) {
+  // FlatBuffers reads 8-byte fields in place; a header 4 bytes off would make them misaligned.
+  const std::string msg =
+      OpenBytes(WithPreamble([](format::Preamble& p) { p.header_offset = 68; }));
+  EXPECT_NE(msg.find("header offset 68 is not a multiple of 8"), std::string::npos) << msg;
+}
+
+TEST_F(LoaderTest, DataLargerThanTheFileIsRefused) {
+  // A file cut short whose preamble is rewritten to match: the header is intact and claims
+  // sections and tensors beyond the end of the file. Open must refuse it before reading any.
+  for (uint64_t keep : {bytes_.size() - 4096, bytes_.size() / 2}) {
+    std::string cut = bytes_.substr(0, keep);
+    auto p = format::DecodePreamble(reinterpret_cast<const uint8_t*>(bytes_.data()), bytes_.size(),
+                                    bytes_.size(), "m");
+    ASSERT_TRUE(p.ok());
+    format::Preamble pre = *p;
+    pre.file_size = keep;
+    uint8_t raw[format::kPreambleSize];
+    format::EncodePreamble(pre, raw);
+    std::memcpy(cut.data(), raw, sizeof(raw));
+    const std::string msg = OpenBytes(cut);
+    EXPECT_NE(msg.find("is not page-aligned inside the file's data"), std::string::npos)
+        << keep << ": " << msg;
+  }
+}
+
 TEST_F(LoaderTest, EveryTruncationIsRefused) {
   // Cut at every length in the preamble and header and at a spread of lengths in the data.
   std::vector<size_t> cuts;

@@ -1,8 +1,14 @@
 // sprig pack from the command line: refusals that protect the user's files.
 #include <gtest/gtest.h>
+#include <signal.h>
+#include <sys/stat.h>
+#include <sys/wait.h>
+#include <unistd.h>
 
+#include <chrono>
 #include <filesystem>
 #include <nlohmann/json.hpp>
+#include <thread>
 
 #include "support/test_util.h"
 
@@ -144,6 +150,74 @@ TEST_F(PackCli, SynthIsDeterministicAndRoutesSpread) {
   const auto& layer = j["layers"][0];
   EXPECT_GT(layer["entropy_bits"].get<double>(), 0.85 * 5.0) << r.output;
   EXPECT_LE(layer["dead"].get<int>(), 1) << r.output;
+}
+
+// The file descriptor through which process `pid` writes a file in `folder`, or "" if none is
+// open yet: an O_TMPFILE file shows as "FOLDER/#INODE (deleted)", a named temporary by its name.
+std::string WritingFd(pid_t pid, const std::string& folder) {
+  const std::string fds = "/proc/" + std::to_string(pid) + "/fd";
+  std::error_code ec;
+  for (const auto& e : std::filesystem::directory_iterator(fds, ec)) {
+    char target[4096];
+    const ssize_t n = ::readlink(e.path().c_str(), target, sizeof(target) - 1);
+    if (n <= 0) continue;
+    const std::string t(target, static_cast<size_t>(n));
+    if (t.rfind(folder + "/", 0) == 0 && t.find(".sprig.tmp-") != std::string::npos) {
+      return e.path().string();
+    }
+    if (t.rfind(folder + "/#", 0) == 0) return e.path().string();
+  }
+  return "";
+}
+
+TEST_F(PackCli, KilledMidwayLeavesNoDestination) {
+  // 12.6 M float32 weights (50 MB): packing takes long enough to be caught while it writes.
+  testing::WriteFile(config_, R"({"family":"stack","input_dim":1024,"layers":[
+    {"kind":"dense","width":6144,"activation":"relu","out":1024}]})");
+  std::filesystem::remove(weights_);
+  auto r =
+      testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " + Quote(weights_));
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  const std::string out = dir_.File("m.sprig");
+  const std::string cli = testing::SprigCli();
+  const pid_t pid = ::fork();
+  ASSERT_GE(pid, 0);
+  if (pid == 0) {
+    ::execl(cli.c_str(), cli.c_str(), "pack", config_.c_str(), weights_.c_str(), "-o", out.c_str(),
+            static_cast<char*>(nullptr));
+    ::_exit(127);
+  }
+  // Kill it once its temporary holds at least 1 MiB: midway, before it can be published.
+  bool anonymous = false, killed = false;
+  const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(120);
+  while (!killed && std::chrono::steady_clock::now() < deadline) {
+    const std::string fd = WritingFd(pid, dir_.path());
+    struct stat st;
+    if (!fd.empty() && ::stat(fd.c_str(), &st) == 0 && st.st_size >= (1 << 20)) {
+      anonymous = std::filesystem::read_symlink(fd).string().find("(deleted)") != std::string::npos;
+      killed = ::kill(pid, SIGKILL) == 0;
+    }
+    int status = 0;
+    if (!killed && ::waitpid(pid, &status, WNOHANG) == pid) {
+      FAIL() << "pack finished before it could be interrupted";
+    }
+    std::this_thread::sleep_for(std::chrono::microseconds(200));
+  }
+  if (!killed) ::kill(pid, SIGKILL);
+  int status = 0;
+  ::waitpid(pid, &status, 0);
+  ASSERT_TRUE(killed) << "pack never started writing";
+  EXPECT_TRUE(WIFSIGNALED(status) && WTERMSIG(status) == SIGKILL);
+  EXPECT_FALSE(std::filesystem::exists(out));
+  if (anonymous) {
+    // An O_TMPFILE temporary dies with the process: only the inputs remain.
+    size_t files = 0;
+    for (const auto& e : std::filesystem::directory_iterator(dir_.path())) {
+      (void)e;
+      ++files;
+    }
+    EXPECT_EQ(files, 2u);
+  }
 }
 
 }  // namespace

@@ -64,11 +64,15 @@ Result<std::shared_ptr<const MappedFile>> MappedFile::Open(const std::string& pa
   }
   // The mapping stays valid after the descriptor is closed.
   ::close(fd);
-  return std::shared_ptr<const MappedFile>(new MappedFile(data, size));
+  return std::shared_ptr<const MappedFile>(new MappedFile(data, size, /*mapped=*/true));
+}
+
+std::shared_ptr<const MappedFile> MappedFile::FromMemory(const uint8_t* data, uint64_t size) {
+  return std::shared_ptr<const MappedFile>(new MappedFile(data, size, /*mapped=*/false));
 }
 
 MappedFile::~MappedFile() {
-  if (data_ != nullptr) ::munmap(const_cast<uint8_t*>(data_), size_);
+  if (mapped_ && data_ != nullptr) ::munmap(const_cast<uint8_t*>(data_), size_);
 }
 
 }  // namespace sprig::io

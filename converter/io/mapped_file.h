@@ -15,6 +15,10 @@ class MappedFile {
   // Maps `path` (a regular file). An empty file maps to data() == nullptr, size() == 0.
   // Errors: NotFound when the file does not exist, IOError when it cannot be opened or mapped.
   static Result<std::shared_ptr<const MappedFile>> Open(const std::string& path);
+  // A view of `size` bytes at `data` that the caller keeps alive and unchanged for as long as
+  // the MappedFile and every array read from it are used; nothing is mapped or unmapped. For
+  // images already in memory (the fuzz targets feed the readers this way).
+  static std::shared_ptr<const MappedFile> FromMemory(const uint8_t* data, uint64_t size);
 
   MappedFile(const MappedFile&) = delete;
   MappedFile& operator=(const MappedFile&) = delete;
@@ -24,9 +28,11 @@ class MappedFile {
   uint64_t size() const { return size_; }
 
  private:
-  MappedFile(const uint8_t* data, uint64_t size) : data_(data), size_(size) {}
+  MappedFile(const uint8_t* data, uint64_t size, bool mapped)
+      : data_(data), size_(size), mapped_(mapped) {}
   const uint8_t* data_;
   uint64_t size_;
+  bool mapped_;  // false: memory owned by the caller of FromMemory
 };
 
 }  // namespace sprig::io

@@ -24,8 +24,10 @@ struct PyValue {
   bool negative = false;
   uint64_t integer = 0;
   std::string text;
-  std::vector<PyValue> items;                            // tuple or list
-  std::vector<std::pair<std::string, PyValue>> entries;  // dict, string keys only
+  std::vector<PyValue> items;  // tuple or list elements, or dict values
+  // A dict's keys (string keys only), parallel to `items`. Not a vector of pairs: a pair of an
+  // incomplete type inside its own definition is refused by some standard libraries.
+  std::vector<std::string> keys;
 };
 
 class PyLiteralParser {
@@ -181,10 +183,11 @@ class PyLiteralParser {
       ++pos_;
       PyValue value;
       if (!ParseValue(&value, depth + 1)) return false;
-      for (const auto& entry : out->entries) {
-        if (entry.first == key) return Fail("duplicate key '" + key + "'");
+      for (const std::string& seen : out->keys) {
+        if (seen == key) return Fail("duplicate key '" + key + "'");
       }
-      out->entries.emplace_back(std::move(key), std::move(value));
+      out->keys.push_back(std::move(key));
+      out->items.push_back(std::move(value));
       if (Peek(',')) {
         ++pos_;
       } else if (!Peek('}')) {
@@ -302,7 +305,9 @@ Status InterpretHeaderDict(const PyValue& dict, const std::string& where, NpyHea
   const PyValue* descr = nullptr;
   const PyValue* fortran = nullptr;
   const PyValue* shape = nullptr;
-  for (const auto& [key, value] : dict.entries) {
+  for (size_t i = 0; i < dict.keys.size(); ++i) {
+    const std::string& key = dict.keys[i];
+    const PyValue& value = dict.items[i];
     if (key == "descr") {
       descr = &value;
     } else if (key == "fortran_order") {

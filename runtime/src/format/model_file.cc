@@ -30,6 +30,13 @@ bool MulOk(uint64_t a, uint64_t b, uint64_t* out) {
   return !__builtin_mul_overflow(a, b, out);
 }
 
+// FlatBuffers 2.0's verifier checks a vector's length field for 4-byte alignment but not its
+// elements: a hostile header can place a vector of 8-byte values 4 bytes off, and reading it
+// would be a misaligned access. So such vectors are checked here before they are read.
+bool Aligned8(const void* p) {
+  return reinterpret_cast<uintptr_t>(p) % 8 == 0;
+}
+
 std::string Num(uint64_t v) {
   return std::to_string(v);
 }
@@ -234,13 +241,20 @@ Status ModelFile::Index(const std::string& src) {
       }
       rs.record_size = r->record_size();
       const SectionInfo& sec = sections_[rs.section];
+      if (r->records() && !Aligned8(r->records()->Data())) {
+        return Status::Corruption(src + ": the records of " + which +
+                                  " are not 8-byte aligned in the header");
+      }
       if (r->records()) {
         rs.offsets.reserve(r->records()->size());
         rs.crc32.reserve(r->records()->size());
         for (const fb::RecordRef* ref : *r->records()) {
-          if (!Inside(ref->offset(), rs.record_size, sec.offset, sec.offset + sec.size)) {
+          // Records and tensor parts start 64-byte aligned (kPartAlignment) as the packer
+          // writes them; the kernels read their rows in place as floats and halves.
+          if (ref->offset() % kPartAlignment != 0 ||
+              !Inside(ref->offset(), rs.record_size, sec.offset, sec.offset + sec.size)) {
             return Status::Corruption(src + ": record " + Num(rs.offsets.size()) + " of " + which +
-                                      " lies outside its section");
+                                      " is not 64-byte aligned inside its section");
           }
           rs.offsets.push_back(ref->offset());
           rs.crc32.push_back(ref->crc32());
@@ -266,6 +280,9 @@ Status ModelFile::Index(const std::string& src) {
       auto it = expected.find(t.name);
       if (it == expected.end()) return Status::Corruption(which + " is not one the config needs");
       if (!seen.insert(t.name).second) return Status::Corruption(which + " is listed twice");
+      if (ft->shape() && !Aligned8(ft->shape()->Data())) {
+        return Status::Corruption(which + " has a shape that is not 8-byte aligned in the header");
+      }
       if (ft->shape()) t.shape.assign(ft->shape()->begin(), ft->shape()->end());
       if (t.shape != it->second.shape) {
         return Status::Corruption(which + " has shape " + ShapeToString(t.shape) +
@@ -298,9 +315,9 @@ Status ModelFile::Index(const std::string& src) {
         return Status::Corruption(which + " has a hot size that does not match its shape");
       }
       if (t.hot_size > 0) {
-        if (hot == nullptr ||
+        if (hot == nullptr || ft->hot_offset() % kPartAlignment != 0 ||
             !Inside(ft->hot_offset(), t.hot_size, hot->offset, hot->offset + hot->size)) {
-          return Status::Corruption(which + " lies outside the hot section");
+          return Status::Corruption(which + " is not 64-byte aligned inside the hot section");
         }
         t.hot = base_ + ft->hot_offset();
       }
@@ -334,8 +351,10 @@ Status ModelFile::Index(const std::string& src) {
         t.part_size = ft->record_part_size();
         uint64_t part_bytes = 0;
         if (!MulOk(rs.map.rows_per_record, t.row_bytes, &part_bytes) || part_bytes != t.part_size ||
+            t.part_offset % kPartAlignment != 0 ||
             !Inside(t.part_offset, t.part_size, 0, rs.record_size)) {
-          return Status::Corruption(which + " has a record part outside its record");
+          return Status::Corruption(which + " has a record part that is not 64-byte aligned " +
+                                    "inside its record");
         }
         if (t.scale_row_bytes > 0) {
           t.scales_part_offset = ft->scales_record_part_offset();

@@ -114,6 +114,12 @@ Result<Preamble> DecodePreamble(const uint8_t* b, uint64_t available, uint64_t a
                               std::to_string(p.header_offset) + ", size " +
                               std::to_string(p.header_size) + ") lies outside the file");
   }
+  // FlatBuffers aligns 8-byte fields relative to the buffer's start, so the buffer itself must
+  // start 8-byte aligned in the (page-aligned) mapping for those reads to be aligned.
+  if (p.header_offset % 8 != 0) {
+    return Status::Corruption(src + ": the header offset " + std::to_string(p.header_offset) +
+                              " is not a multiple of 8");
+  }
   return p;
 }
 

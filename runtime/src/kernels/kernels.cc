@@ -12,9 +12,20 @@
 #include <asm/hwcap.h>
 #include <sys/auxv.h>
 #endif
+#if (defined(__x86_64__) || defined(_M_X64)) && (defined(__GNUC__) || defined(__clang__))
+#include <cpuid.h>
+#endif
 
 namespace sprig::kernels {
 namespace {
+
+#if (defined(__x86_64__) || defined(_M_X64)) && (defined(__GNUC__) || defined(__clang__))
+// F16C from CPUID leaf 1 (ECX bit 29): clang's __builtin_cpu_supports does not know "f16c".
+bool HasF16c() {
+  unsigned eax = 0, ebx = 0, ecx = 0, edx = 0;
+  return __get_cpuid(1, &eax, &ebx, &ecx, &edx) != 0 && (ecx & bit_F16C) != 0;
+}
+#endif
 
 constexpr KernelPath kAllPaths[] = {KernelPath::kScalar, KernelPath::kSse42, KernelPath::kAvx2,
                                     KernelPath::kAvx512, KernelPath::kNeon};
@@ -30,13 +41,12 @@ bool CpuSupports(KernelPath path) {
       return __builtin_cpu_supports("sse4.2");
     case KernelPath::kAvx2:
       __builtin_cpu_init();
-      return __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma") &&
-             __builtin_cpu_supports("f16c");
+      return __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma") && HasF16c();
     case KernelPath::kAvx512:
       __builtin_cpu_init();
       return __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512bw") &&
              __builtin_cpu_supports("avx512dq") && __builtin_cpu_supports("avx512vl") &&
-             __builtin_cpu_supports("fma") && __builtin_cpu_supports("f16c");
+             __builtin_cpu_supports("fma") && HasF16c();
 #endif
 #if defined(__aarch64__)
     // Advanced SIMD (with the f16 <-> f32 conversions the path uses) is required of AArch64
