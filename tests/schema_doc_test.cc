@@ -2,7 +2,10 @@
 // with Python's struct and zlib, and the header with the code Debian's `flatc --python` generates
 // from schema/model.fbs (Debian python3-flatbuffers), checks every rule the document states, and
 // compares each tensor's stored bytes with the synthesized weights (NumPy's float16 rounding for
-// f16 storage). A negative control damages one record byte and expects the record crc rule.
+// f16 storage; for i8 storage the document's rule recomputed with NumPy float32 arithmetic and
+// np.rint, which rounds half to even, compared bit for bit for values and scales) and
+// recomputes every tensor's recorded storage error. Negative controls damage one record byte,
+// a reserved preamble byte and one byte of an i8 scale, and expect the rule each breaks.
 #include <gtest/gtest.h>
 
 #include <string>
@@ -49,9 +52,16 @@ struct Case {
   const char* name;
   const char* config;
   const char* dtype;
-  bool float64_source = false;   // weights rewritten as float64 before packing
-  bool both_placements = false;  // expect page-aware and back-to-back record sections
+  bool float64_source = false;    // weights rewritten as float64 before packing
+  bool both_placements = false;   // expect page-aware and back-to-back record sections
+  const char* options = "";       // more pack options (per-part storage types)
+  bool tie_rows = false;          // first row of every matrix rewritten to int8 rounding ties
+  const char* storage = nullptr;  // expected "storage" of the summary, when given
 };
+
+// The script's summary lists the storage types of the weight tensors (biases stay F32).
+constexpr const char* kI8Only = R"("storage": ["I8"])";
+constexpr const char* kF32AndI8 = R"("storage": ["F32", "I8"])";
 
 class SchemaDoc : public ::testing::TestWithParam<Case> {};
 
@@ -78,8 +88,26 @@ TEST_P(SchemaDoc, PackedFileAgreesWithTheDocument) {
         {npz});
     ASSERT_EQ(r.exit_code, 0) << r.output;
   }
+  if (c.tie_rows) {
+    // The document's I8 rule rounds w / s to nearest, ties to even. A row whose largest
+    // magnitude is 127 has s = 127 / 127 = 1 exactly, so 0.5, 1.5, 2.5, -2.5, 126.5 are exact
+    // ties: half to even gives 0, 2, 2, -2, 126 (NumPy's np.rint), half away from zero would
+    // give 1, 2, 3, -3, 127. The script compares the packer's bytes with np.rint's.
+    r = testing::RunPython(
+        "import sys, numpy as np; a = np.load(sys.argv[1]); out = {}\n"
+        "ties = np.array([127, 0.5, 1.5, 2.5, -2.5, -0.5, 126.5, -126.5, 3.5], np.float32)\n"
+        "for k in a.files:\n"
+        "    v = a[k].copy()\n"
+        "    if v.ndim >= 2:\n"
+        "        row = v.reshape(-1, v.shape[-1])[0]; n = min(len(row), len(ties))\n"
+        "        row[:n] = ties[:n]\n"
+        "    out[k] = v\n"
+        "np.savez(sys.argv[1], **out)",
+        {npz});
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+  }
   r = testing::Run(cli + " pack " + Quote(json) + " " + Quote(npz) + " -o " + Quote(model) +
-                   " --dtype " + c.dtype);
+                   " --dtype " + c.dtype + " " + c.options);
   ASSERT_EQ(r.exit_code, 0) << r.output;
   r = RunCheck(model, npz);
   EXPECT_EQ(r.exit_code, 0) << r.output;
@@ -88,6 +116,7 @@ TEST_P(SchemaDoc, PackedFileAgreesWithTheDocument) {
     EXPECT_EQ(r.output.find("\"back_to_back\": 0"), std::string::npos) << r.output;
     EXPECT_EQ(r.output.find("\"page_aware\": 0"), std::string::npos) << r.output;
   }
+  if (c.storage != nullptr) EXPECT_NE(r.output.find(c.storage), std::string::npos) << r.output;
   std::printf("[ %s %s ] %s", c.name, c.dtype, r.output.c_str());
 }
 
@@ -96,7 +125,16 @@ INSTANTIATE_TEST_SUITE_P(
     ::testing::Values(Case{"stack", kStack, "f32", false, true}, Case{"stack", kStack, "f16"},
                       Case{"stack", kStack, "bf16"}, Case{"transformer", kTransformer, "f32"},
                       Case{"transformer", kTransformer, "f16"},
-                      Case{"stack64", kStack, "f16", true}, Case{"stack64", kStack, "f32", true}),
+                      Case{"stack64", kStack, "f16", true}, Case{"stack64", kStack, "f32", true},
+                      // int8: every stack layer kind, a float64 source (rounded to float32
+                      // before the scale), rounding ties, the transformer, and i8 records
+                      // with f32 nodes and dense weights.
+                      Case{"stack", kStack, "i8", false, false, "", false, kI8Only},
+                      Case{"stack64", kStack, "i8", true, false, "", false, kI8Only},
+                      Case{"stackties", kStack, "i8", false, false, "", true, kI8Only},
+                      Case{"transformer", kTransformer, "i8", false, false, "", false, kI8Only},
+                      Case{"stack_records_i8", kStack, "f32", false, false, "--dtype-records i8",
+                           false, kF32AndI8}),
     [](const ::testing::TestParamInfo<Case>& info) {
       return std::string(info.param.name) + "_" + info.param.dtype;
     });
@@ -142,6 +180,41 @@ TEST_F(SchemaDocControl, ChangedReservedPreambleByteIsNamed) {
   const auto r = CheckDamaged(damaged);
   EXPECT_EQ(r.exit_code, 1) << r.output;
   EXPECT_NE(r.output.find("RULE preamble.reserved"), std::string::npos) << r.output;
+}
+
+// An i8 file: one changed byte of a hot scale must break that tensor's hot-scales checksum.
+TEST(SchemaDocI8Control, OneChangedHotScaleByteBreaksTheScalesCrc) {
+  testing::TempDir dir;
+  const std::string json = dir.File("m.json"), npz = dir.File("m.npz"), model = dir.File("m.sprig");
+  testing::WriteFile(json, kStack);
+  const std::string cli = testing::SprigCli();
+  auto r = testing::Run(cli + " synth " + Quote(json) + " -o " + Quote(npz) + " --seed 5");
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  r = testing::Run(cli + " pack " + Quote(json) + " " + Quote(npz) + " -o " + Quote(model) +
+                   " --dtype i8");
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  r = RunCheck(model, npz);
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  // sprig's reader only locates a scale to damage; the script reads the file on its own.
+  auto file = format::ModelFile::Open(model);
+  ASSERT_TRUE(file.ok()) << file.status().message();
+  const format::TensorInfo* target = nullptr;
+  for (const auto& t : (*file)->tensors()) {
+    if (t.dtype == DType::kI8 && t.hot_rows > 0 && t.scales_hot != nullptr) {
+      target = &t;
+      break;
+    }
+  }
+  ASSERT_NE(target, nullptr);
+  const size_t at = static_cast<size_t>(target->scales_hot - (*file)->base()) + 1;
+  std::string damaged = testing::ReadFile(model);
+  damaged[at] ^= 0x01;
+  const std::string path = dir.File("damaged.sprig");
+  testing::WriteFile(path, damaged);
+  r = RunCheck(path, npz);
+  EXPECT_EQ(r.exit_code, 1) << r.output;
+  EXPECT_NE(r.output.find("RULE tensor.scales_hot_crc32"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find(target->name), std::string::npos) << r.output;
 }
 
 }  // namespace

@@ -10,7 +10,15 @@ python3-flatbuffers runtime. Each tensor's stored bytes, gathered from its hot r
 records by the document's row maps, must equal the array in WEIGHTS.npz bit for bit: for F32
 storage the float32 array itself; for F16 NumPy's float16 conversion (round to nearest, ties to
 even: NumPy's `astype(numpy.float16)`, Debian python3-numpy); for BF16 the top 16 bits of the
-float32 bits after round to nearest, ties to even (the document's definition).
+float32 bits after round to nearest, ties to even (the document's definition); for I8 the
+document's rule recomputed row by row with NumPy float32 arithmetic: s = float32(max|w|) / 127
+as a float32 division, q = clamp(rint(float32(w / s)), -127, 127), where NumPy's `np.rint`
+rounds to the nearest integer, half to even (from memory of NumPy's documentation of
+numpy.around, "rounds to the nearest even value"; seen directly here: np.rint gives 0, 2, 2, -2
+for 0.5, 1.5, 2.5, -2.5, the tie rows of tests/schema_doc_test.cc). The int8 values and the float32 scales must both match bit for bit, wherever the
+document puts them (hot section and each record). Every tensor's recorded error_max_abs and
+error_rel_rms are recomputed in float64 against the source and must agree within a relative
+1e-5 (they are stored as float32 and summed in another order).
 
 Prints a one-line JSON summary of what was checked; on the first disagreement prints
 "RULE <name>: <what>" and exits 1. Exits 2 for unusable arguments.
@@ -110,8 +118,53 @@ def bf16_bits(a32):
     return rounded.astype(np.uint16)
 
 
+def i8_quantize(src):
+    """The document's I8 rule: per row of the last dimension, returns (q int8, s float32) with
+    q shaped like the source and s shaped [rows of the last dimension]."""
+    w = np.ascontiguousarray(src).astype(np.float32)  # float64 sources: rounded to float32 first
+    cols = w.shape[-1]
+    rows = w.reshape(-1, cols)
+    s = np.max(np.abs(rows), axis=1).astype(np.float32) / np.float32(127)  # float32 division
+    assert s.dtype == np.float32
+    safe = np.where(s > 0, s, np.float32(1))
+    ratio = rows / safe[:, None]  # float32 / float32: a float32 division
+    assert ratio.dtype == np.float32
+    # np.rint: round to nearest, ties to even (NumPy's documented rounding).
+    q = np.clip(np.rint(ratio), -127, 127)
+    q = np.where(s[:, None] > 0, q, 0).astype(np.int8)
+    return q.reshape(w.shape), s
+
+
+def stored_values(src, dtype_name):
+    """What the stored values stand for, as float64 (I8: s * q as a float32 product)."""
+    a = np.ascontiguousarray(src)
+    if dtype_name == "F32":
+        return a.astype(np.float32).astype(np.float64)
+    if dtype_name == "F16":
+        return a.astype(np.float16).astype(np.float64)
+    if dtype_name == "BF16":
+        bits = bf16_bits(a.astype(np.float32)).astype(np.uint32) << 16
+        return bits.view(np.float32).astype(np.float64)
+    q, s = i8_quantize(a)
+    cols = a.shape[-1]
+    v = (s[:, None] * q.reshape(-1, cols).astype(np.float32)).astype(np.float32)
+    return v.reshape(a.shape).astype(np.float64)
+
+
+def storage_error(src, dtype_name):
+    """The document's "Storage error", in double precision."""
+    exact = np.ascontiguousarray(src).astype(np.float64)
+    d = stored_values(src, dtype_name) - exact
+    max_abs = float(np.max(np.abs(d))) if d.size else 0.0
+    squares = float(np.sum(exact * exact))
+    rel_rms = float(np.sqrt(np.sum(d * d)) / np.sqrt(squares)) if squares > 0 else 0.0
+    return max_abs, rel_rms
+
+
 def expected_bytes(src, dtype_name):
     a = np.ascontiguousarray(src)
+    if dtype_name == "I8":
+        return i8_quantize(a)[0].tobytes()
     if dtype_name == "F32":
         return a.astype("<f4").tobytes()
     if dtype_name == "F16":
@@ -120,6 +173,15 @@ def expected_bytes(src, dtype_name):
     if dtype_name == "BF16":
         return bf16_bits(a.astype("<f4")).astype("<u2").tobytes()
     raise RuleError(f"RULE tensor.dtype: no source comparison for storage type {dtype_name}")
+
+
+def storage_part(name, layer):
+    """The document's storage parts: nodes, records or dense."""
+    if layer >= 0 and name.endswith(("nodes.weight", "router.weight")):
+        return "nodes"
+    if ".leaves." in name or ".experts." in name or name.endswith("nodes.out"):
+        return "records"
+    return "dense"
 
 
 def enum_names(cls):
@@ -251,6 +313,8 @@ def check(data, weights, folder):
     hot_spans = []
     stored = {}
     weight_types = set()
+    part_types = {}
+    n_i8 = 0
     for t, name in zip(tensors, names):
         check_scalars_written(t, slots["Tensor"], f"tensor {name}")
         src = weights[name]
@@ -258,18 +322,24 @@ def check(data, weights, folder):
         rule(shape == list(src.shape), "tensor.shape",
              f"{name}: shape {shape}, the weights have {list(src.shape)}")
         dname = dtypes.get(t.Dtype(), str(t.Dtype()))
-        rule(dname in ("F32", "F16", "BF16"), "tensor.dtype", f"{name}: storage type {dname}")
+        rule(dname in ("F32", "F16", "BF16", "I8"), "tensor.dtype",
+             f"{name}: storage type {dname}")
         # Biases and norm weights always stay F32; the rest share the requested type.
         last = name.split(".")[-2:]
         keeps_f32 = name.endswith("bias") or (last[-1] == "weight" and len(last) == 2 and
                                                 last[0].endswith(("norm", "norm1", "norm2")))
+        keeps_f32 = keeps_f32 or len(shape) < 2  # "any tensor of fewer than two dimensions"
         if keeps_f32:
             rule(dname == "F32", "tensor.dtype_biases_norms_f32", f"{name} is stored as {dname}")
         else:
             weight_types.add(dname)
-        size = {"F32": 4, "F16": 2, "BF16": 2}[dname]
+            part_types.setdefault(storage_part(name, t.Layer()), set()).add(dname)
+        size = {"F32": 4, "F16": 2, "BF16": 2, "I8": 1}[dname]
         rows = shape[0] if shape else 1
-        row_bytes = size * int(np.prod(shape[1:], dtype=np.int64)) if shape else size
+        per_row = int(np.prod(shape[1:], dtype=np.int64)) if shape else 1
+        row_bytes = size * per_row
+        # I8: S = per_row / last dimension float32 scales per axis-0 row; none for other types.
+        scale_row_bytes = 4 * (per_row // shape[-1]) if dname == "I8" else 0
         rule(t.HotRows() <= rows, "tensor.hot_rows", f"{name}: {t.HotRows()} hot rows of {rows}")
         rule(t.HotSize() == t.HotRows() * row_bytes, "tensor.hot_size",
              f"{name}: hot_size {t.HotSize()} for {t.HotRows()} rows of {row_bytes} bytes")
@@ -285,15 +355,49 @@ def check(data, weights, folder):
              f"{name}: stored {t.HotCrc32():#010x}, crc32 of its hot bytes is "
              f"{zlib.crc32(hot_bytes):#010x}")
         hot_data += t.HotSize()
+        hot_scales = b""
+        if dname == "I8":
+            n_i8 += 1
+            sz = t.HotRows() * scale_row_bytes
+            so = t.ScalesHotOffset()
+            if sz:
+                # At the first 64-byte aligned offset after the tensor's hot values.
+                want = align_up(t.HotOffset() + t.HotSize(), ALIGN)
+                rule(so == want, "tensor.scales_hot_offset",
+                     f"{name}: scales_hot_offset {so}, the first 64-byte aligned offset after "
+                     f"its hot values is {want}")
+                rule(hot.Offset() <= so and so + sz <= hot.Offset() + hot.Size(),
+                     "tensor.scales_hot_inside",
+                     f"{name}: hot scales [{so}, +{sz}) outside the hot section")
+                hot_spans.append((so, sz, name + " (scales)"))
+            else:
+                rule(so == 0, "tensor.scales_hot_offset",
+                     f"{name}: no hot rows but scales_hot_offset {so}, expected 0")
+            hot_scales = data[so:so + sz]
+            rule(zlib.crc32(hot_scales) == t.ScalesHotCrc32(), "tensor.scales_hot_crc32",
+                 f"{name}: stored {t.ScalesHotCrc32():#010x}, crc32 of its hot scales is "
+                 f"{zlib.crc32(hot_scales):#010x}")
+            hot_data += sz
+        else:
+            rule(t.ScalesHotOffset() == 0 and t.ScalesHotCrc32() == 0 and
+                 t.ScalesRecordPartOffset() == 0, "tensor.scales_unused",
+                 f"{name}: {dname} storage with scale fields set")
         routed = t.HotRows() < rows
         rule(routed == (t.RecordSet() >= 0), "tensor.record_set",
              f"{name}: {t.HotRows()} of {rows} rows hot but record_set {t.RecordSet()}")
         if routed:
             rule(t.RecordSet() < len(record_sets), "tensor.record_set",
                  f"{name}: record_set {t.RecordSet()} of {len(record_sets)}")
-        stored[name] = (t, dname, rows, row_bytes, bytearray(hot_bytes))
-    rule(len(weight_types) <= 1, "tensor.dtype_requested",
-         f"weight tensors are stored as several types {sorted(weight_types)}")
+        elif dname == "I8":
+            rule(t.ScalesRecordPartOffset() == 0, "tensor.scales_record_part_offset",
+                 f"{name}: no records but scales_record_part_offset "
+                 f"{t.ScalesRecordPartOffset()}, expected 0")
+        stored[name] = (t, dname, rows, row_bytes, bytearray(hot_bytes), scale_row_bytes,
+                        bytearray(hot_scales))
+    # --dtype and the per-part overrides: one storage type per part.
+    for part, types in part_types.items():
+        rule(len(types) == 1, "tensor.dtype_parts",
+             f"{part} weight tensors are stored as several types {sorted(types)}")
     hot_spans.sort()
     for (a, asz, an), (b, _, bn) in zip(hot_spans, hot_spans[1:]):
         rule(a + asz <= b, "tensor.hot_overlap", f"{an} and {bn} overlap in the hot section")
@@ -345,7 +449,7 @@ def check(data, weights, folder):
         # Parts: contract order (the header's tensor order), 64-byte aligned, inside the record.
         part_end = 0
         covered = np.zeros(B, dtype=bool)
-        for name, (t, _, trows, row_bytes, _) in members:
+        for name, (t, _, trows, row_bytes, _, scale_row_bytes, _) in members:
             rule(t.HotRows() == hot_rows and trows == rows, "row_map.hot_rows",
                  f"{name}: {t.HotRows()} hot rows of {trows}, the row map keeps {hot_rows} of "
                  f"{rows}")
@@ -359,6 +463,15 @@ def check(data, weights, folder):
                  f"{name}: part size {ps}, expected {rs.RowsPerRecord()} x {row_bytes}")
             covered[po:po + ps] = True
             part_end = po + ps
+            if scale_row_bytes:
+                # I8: the scales' part at the first 64-byte aligned offset after the values'.
+                so, ss = t.ScalesRecordPartOffset(), rs.RowsPerRecord() * scale_row_bytes
+                rule(so == align_up(part_end, ALIGN) and so + ss <= B,
+                     "record.scales_part_layout",
+                     f"{name}: scales part [{so}, +{ss}), expected right after the values' part "
+                     f"at {align_up(part_end, ALIGN)} inside the {B}-byte record")
+                covered[so:so + ss] = True
+                part_end = so + ss
         offsets = []
         for r in range(count):
             ref = rs.Records(r)
@@ -388,13 +501,14 @@ def check(data, weights, folder):
              f"{'page-aware' if tight else 'back-to-back'} placement (gaps {gaps} bytes of "
              f"{B * count})")
         placements["page_aware" if tight else "back_to_back"] += 1
-        used = sum(v[0].RecordPartSize() for _, v in members) * count
+        used = sum(v[0].RecordPartSize() + rs.RowsPerRecord() * v[5] for _, v in members) * count
         rule(sec.Padding() == sec.Size() - used, "sections.padding",
              f"section {(sec.Name() or b'').decode()}: padding {sec.Padding()}, size "
              f"{sec.Size()} minus tensor bytes {used} is {sec.Size() - used}")
         # Gather each routed tensor's remaining rows from the records by the row map.
-        for name, (t, _, trows, row_bytes, out) in members:
+        for name, (t, _, trows, row_bytes, out, srb, scales) in members:
             out.extend(bytes((trows - hot_rows) * row_bytes))
+            scales.extend(bytes((trows - hot_rows) * srb))
             for row in range(hot_rows, trows):
                 if path_tree:
                     rec, local = subtree_location(row, rs.HotLevels(), rs.ChunkLevels())
@@ -402,19 +516,39 @@ def check(data, weights, folder):
                     rec, local = row // rs.RowsPerRecord(), row % rs.RowsPerRecord()
                 src = offsets[rec] + t.RecordPartOffset() + local * row_bytes
                 out[row * row_bytes:(row + 1) * row_bytes] = data[src:src + row_bytes]
+                if srb:
+                    src = offsets[rec] + t.ScalesRecordPartOffset() + local * srb
+                    scales[row * srb:(row + 1) * srb] = data[src:src + srb]
         n_records += count
 
     n_bytes = 0
-    for name, (t, dname, rows, row_bytes, out) in stored.items():
+    n_errors = 0
+    for name, (t, dname, rows, row_bytes, out, _, scales) in stored.items():
+        if dname == "I8":
+            q, s = i8_quantize(weights[name])
+            got_s = np.frombuffer(bytes(scales), "<f4")
+            bad = np.flatnonzero(got_s.view(np.uint32) != s.view(np.uint32))
+            rule(len(got_s) == len(s) and not len(bad), "tensor.i8_scales",
+                 f"{name}: stored scale of row {bad[:1].tolist()} of the last dimension is "
+                 f"{got_s[bad[:1]].tolist()}, max|w|/127 in float32 is {s[bad[:1]].tolist()}")
+            rule(not (np.frombuffer(bytes(out), np.int8) == -128).any(), "tensor.i8_no_minus_128",
+                 f"{name}: -128 is written")
         want = expected_bytes(weights[name], dname)
         rule(bytes(out) == want, "tensor.values",
              f"{name}: stored {dname} bytes differ from the weights' {dname} conversion")
-        n_bytes += len(out)
+        n_bytes += len(out) + len(scales)
+        # "Storage error": recomputed in float64; the header holds float32.
+        max_abs, rel_rms = storage_error(weights[name], dname)
+        for field, got, exp in (("error_max_abs", t.ErrorMaxAbs(), max_abs),
+                                ("error_rel_rms", t.ErrorRelRms(), rel_rms)):
+            rule(abs(got - exp) <= 1e-5 * abs(exp) + 1e-30, "tensor.storage_error",
+                 f"{name}: {field} {got!r}, recomputed from the source {exp!r}")
+        n_errors += 1
     summary.update({
         "header_bytes": hdr_size, "sections": len(sections), "tensors": len(tensors),
         "record_sets": len(record_sets), "records": n_records, "tensor_bytes": n_bytes,
         "storage": sorted(weight_types), "file_bytes": len(data), "ok": True,
-        "placement": placements})
+        "placement": placements, "i8_tensors": n_i8, "errors_checked": n_errors})
     return summary
 
 
