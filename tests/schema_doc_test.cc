@@ -5,12 +5,16 @@
 // f16 storage; for i8 storage the document's rule recomputed with NumPy float32 arithmetic and
 // np.rint, which rounds half to even, compared bit for bit for values and scales) and
 // recomputes every tensor's recorded storage error. Negative controls damage one record byte,
-// a reserved preamble byte and one byte of an i8 scale, and expect the rule each breaks.
+// a reserved preamble byte and one byte of an i8 scale (with and without its checksums made
+// valid again), and expect the rule each breaks.
 #include <gtest/gtest.h>
 
+#include <cstdint>
+#include <cstring>
 #include <string>
 
 #include "format/model_file.h"
+#include "format/preamble.h"
 #include "support/test_util.h"
 
 namespace sprig {
@@ -182,39 +186,76 @@ TEST_F(SchemaDocControl, ChangedReservedPreambleByteIsNamed) {
   EXPECT_NE(r.output.find("RULE preamble.reserved"), std::string::npos) << r.output;
 }
 
-// An i8 file: one changed byte of a hot scale must break that tensor's hot-scales checksum.
-TEST(SchemaDocI8Control, OneChangedHotScaleByteBreaksTheScalesCrc) {
-  testing::TempDir dir;
-  const std::string json = dir.File("m.json"), npz = dir.File("m.npz"), model = dir.File("m.sprig");
-  testing::WriteFile(json, kStack);
-  const std::string cli = testing::SprigCli();
-  auto r = testing::Run(cli + " synth " + Quote(json) + " -o " + Quote(npz) + " --seed 5");
-  ASSERT_EQ(r.exit_code, 0) << r.output;
-  r = testing::Run(cli + " pack " + Quote(json) + " " + Quote(npz) + " -o " + Quote(model) +
-                   " --dtype i8");
-  ASSERT_EQ(r.exit_code, 0) << r.output;
-  r = RunCheck(model, npz);
-  ASSERT_EQ(r.exit_code, 0) << r.output;
-  // sprig's reader only locates a scale to damage; the script reads the file on its own.
-  auto file = format::ModelFile::Open(model);
-  ASSERT_TRUE(file.ok()) << file.status().message();
-  const format::TensorInfo* target = nullptr;
-  for (const auto& t : (*file)->tensors()) {
-    if (t.dtype == DType::kI8 && t.hot_rows > 0 && t.scales_hot != nullptr) {
-      target = &t;
-      break;
+// EditHeaderBytes for a 4-byte little-endian value.
+std::string EditHeaderU32(const std::string& bytes, uint32_t from, uint32_t to) {
+  char a[4], b[4];
+  std::memcpy(a, &from, 4);
+  std::memcpy(b, &to, 4);
+  return testing::EditHeaderBytes(bytes, std::string(a, 4), std::string(b, 4));
+}
+
+// Negative controls on an i8 file: one changed byte of a hot scale must break that tensor's
+// hot-scales checksum, and, with every checksum made valid again, the recomputed scale.
+class SchemaDocI8Control : public ::testing::Test {
+ protected:
+  void SetUp() override {
+    json_ = dir_.File("m.json");
+    npz_ = dir_.File("m.npz");
+    model_ = dir_.File("m.sprig");
+    testing::WriteFile(json_, kStack);
+    const std::string cli = testing::SprigCli();
+    auto r = testing::Run(cli + " synth " + Quote(json_) + " -o " + Quote(npz_) + " --seed 5");
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    r = testing::Run(cli + " pack " + Quote(json_) + " " + Quote(npz_) + " -o " + Quote(model_) +
+                     " --dtype i8");
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    r = RunCheck(model_, npz_);
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    bytes_ = testing::ReadFile(model_);
+    // sprig's reader only locates a scale to damage; the script reads the file on its own.
+    auto file = format::ModelFile::Open(model_);
+    ASSERT_TRUE(file.ok()) << file.status().message();
+    for (const auto& t : (*file)->tensors()) {
+      if (t.dtype == DType::kI8 && t.hot_rows > 0 && t.scales_hot != nullptr) {
+        name_ = t.name;
+        scales_at_ = static_cast<size_t>(t.scales_hot - (*file)->base());
+        scales_size_ = t.hot_rows * t.scale_row_bytes;
+        scales_crc_ = t.scales_hot_crc32;
+        break;
+      }
     }
+    ASSERT_FALSE(name_.empty()) << "no i8 tensor with hot rows";
   }
-  ASSERT_NE(target, nullptr);
-  const size_t at = static_cast<size_t>(target->scales_hot - (*file)->base()) + 1;
-  std::string damaged = testing::ReadFile(model);
-  damaged[at] ^= 0x01;
-  const std::string path = dir.File("damaged.sprig");
-  testing::WriteFile(path, damaged);
-  r = RunCheck(path, npz);
+  testing::CommandResult CheckDamaged(const std::string& damaged) {
+    const std::string path = dir_.File("damaged.sprig");
+    testing::WriteFile(path, damaged);
+    return RunCheck(path, npz_);
+  }
+  testing::TempDir dir_;
+  std::string json_, npz_, model_, bytes_, name_;
+  size_t scales_at_ = 0, scales_size_ = 0;
+  uint32_t scales_crc_ = 0;
+};
+
+TEST_F(SchemaDocI8Control, OneChangedHotScaleByteBreaksTheScalesCrc) {
+  std::string damaged = bytes_;
+  damaged[scales_at_ + 1] ^= 0x01;  // a low mantissa byte of the first scale
+  const auto r = CheckDamaged(damaged);
   EXPECT_EQ(r.exit_code, 1) << r.output;
   EXPECT_NE(r.output.find("RULE tensor.scales_hot_crc32"), std::string::npos) << r.output;
-  EXPECT_NE(r.output.find(target->name), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find(name_), std::string::npos) << r.output;
+}
+
+TEST_F(SchemaDocI8Control, ChangedHotScaleWithValidChecksumsBreaksTheScaleRule) {
+  std::string damaged = bytes_;
+  damaged[scales_at_ + 1] ^= 0x01;
+  const uint32_t crc = format::Crc32(damaged.data() + scales_at_, scales_size_);
+  damaged = EditHeaderU32(damaged, scales_crc_, crc);
+  ASSERT_FALSE(damaged.empty()) << "the hot scales' crc is not in the header exactly once";
+  const auto r = CheckDamaged(damaged);
+  EXPECT_EQ(r.exit_code, 1) << r.output;
+  EXPECT_NE(r.output.find("RULE tensor.i8_scales"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find(name_), std::string::npos) << r.output;
 }
 
 }  // namespace

@@ -228,23 +228,10 @@ TEST(StorageInt8, TransformerEqualsFloatModelOfDequantisedWeights) {
 // checks stand between the edited field and the reader. Returns "" when `from` is not there
 // exactly once.
 std::string EditHeaderU64(std::string bytes, uint64_t from, uint64_t to) {
-  auto pre = format::DecodePreamble(reinterpret_cast<const uint8_t*>(bytes.data()), bytes.size(),
-                                    bytes.size(), "m");
-  if (!pre.ok()) return "";
   char a[8], b[8];
   std::memcpy(a, &from, 8);
   std::memcpy(b, &to, 8);
-  const std::string needle(a, 8);
-  const size_t begin = pre->header_offset, end = begin + pre->header_size;
-  const size_t at = bytes.find(needle, begin);
-  if (at == std::string::npos || at + 8 > end || bytes.find(needle, at + 1) < end) return "";
-  std::memcpy(bytes.data() + at, b, 8);
-  format::Preamble p = *pre;
-  p.header_crc32 = format::Crc32(bytes.data() + begin, pre->header_size);
-  uint8_t raw[format::kPreambleSize];
-  format::EncodePreamble(p, raw);
-  std::memcpy(bytes.data(), raw, sizeof(raw));
-  return bytes;
+  return EditHeaderBytes(bytes, std::string(a, 8), std::string(b, 8));
 }
 
 // Hostile int8 scale locations are refused at open with the tensor's name.

@@ -6,10 +6,13 @@
 
 #include <gtest/gtest.h>
 
+#include <cstring>
 #include <filesystem>
 #include <fstream>
 #include <sstream>
 #include <stdexcept>
+
+#include "format/preamble.h"
 
 namespace sprig::testing {
 
@@ -107,6 +110,25 @@ std::string ReadFile(const std::string& path) {
 void WriteFile(const std::string& path, const std::string& contents) {
   std::ofstream out(path, std::ios::binary);
   out << contents;
+}
+
+std::string EditHeaderBytes(std::string bytes, const std::string& from, const std::string& to) {
+  if (from.empty() || from.size() != to.size()) return "";
+  auto pre = format::DecodePreamble(reinterpret_cast<const uint8_t*>(bytes.data()), bytes.size(),
+                                    bytes.size(), "m");
+  if (!pre.ok()) return "";
+  const size_t begin = pre->header_offset, end = begin + pre->header_size;
+  const size_t at = bytes.find(from, begin);
+  if (at == std::string::npos || at + from.size() > end || bytes.find(from, at + 1) < end) {
+    return "";
+  }
+  std::memcpy(bytes.data() + at, to.data(), to.size());
+  format::Preamble p = *pre;
+  p.header_crc32 = format::Crc32(bytes.data() + begin, pre->header_size);
+  uint8_t raw[format::kPreambleSize];
+  format::EncodePreamble(p, raw);
+  std::memcpy(bytes.data(), raw, sizeof(raw));
+  return bytes;
 }
 
 }  // namespace sprig::testing

@@ -56,4 +56,9 @@ std::string Quote(const std::string& s);
 std::string ReadFile(const std::string& path);
 void WriteFile(const std::string& path, const std::string& contents);
 
+// Replaces the one occurrence of `from` inside the header of the .sprig file image `bytes` with
+// `to` (as long as `from`) and makes the header and preamble checksums valid again, so that a
+// reader sees only the edited field. Returns "" when `from` is not there exactly once.
+std::string EditHeaderBytes(std::string bytes, const std::string& from, const std::string& to);
+
 }  // namespace sprig::testing
