@@ -126,7 +126,7 @@ class Corruption : public ::testing::Test {
     std::string names;
     for (const Damage& d : files) names += d.path + "\n";
     testing::WriteFile(list, names);
-    const std::string cli = Quote(testing::SprigCli());
+    const std::string cli = testing::SprigCli();  // already quoted (and emulated, if cross)
     const std::string script =
         "while IFS= read -r f; do "
         "timeout 60 " +

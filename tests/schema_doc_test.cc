@@ -120,7 +120,9 @@ TEST_P(SchemaDoc, PackedFileAgreesWithTheDocument) {
     EXPECT_EQ(r.output.find("\"back_to_back\": 0"), std::string::npos) << r.output;
     EXPECT_EQ(r.output.find("\"page_aware\": 0"), std::string::npos) << r.output;
   }
-  if (c.storage != nullptr) EXPECT_NE(r.output.find(c.storage), std::string::npos) << r.output;
+  if (c.storage != nullptr) {
+    EXPECT_NE(r.output.find(c.storage), std::string::npos) << r.output;
+  }
   std::printf("[ %s %s ] %s", c.name, c.dtype, r.output.c_str());
 }
 
