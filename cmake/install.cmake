@@ -24,5 +24,9 @@ write_basic_package_version_file(${PROJECT_BINARY_DIR}/sprigConfigVersion.cmake
 install(FILES ${PROJECT_BINARY_DIR}/sprigConfig.cmake ${PROJECT_BINARY_DIR}/sprigConfigVersion.cmake
   DESTINATION ${SPRIG_CMAKE_DIR})
 
+# sprig.pc finds its prefix from its own location, so the package works wherever
+# `cmake --install --prefix` puts it.
+file(RELATIVE_PATH SPRIG_PC_TO_PREFIX "/${CMAKE_INSTALL_LIBDIR}/pkgconfig" "/")
+string(REGEX REPLACE "/$" "" SPRIG_PC_TO_PREFIX "${SPRIG_PC_TO_PREFIX}")
 configure_file(${PROJECT_SOURCE_DIR}/cmake/sprig.pc.in ${PROJECT_BINARY_DIR}/sprig.pc @ONLY)
 install(FILES ${PROJECT_BINARY_DIR}/sprig.pc DESTINATION ${CMAKE_INSTALL_LIBDIR}/pkgconfig)

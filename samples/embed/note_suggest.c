@@ -5,6 +5,7 @@
  *   note_suggest_c MODEL.sprig [WORDS]
  *
  * Suggestions come from a small sample model: they are often wrong. */
+#define _POSIX_C_SOURCE 200809L /* clock_gettime in strict C11 */
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
