@@ -6,6 +6,12 @@
 
 namespace sprig::cli {
 
+std::string ShapeText(const std::vector<uint64_t>& shape) {
+  std::string s = "[";
+  for (size_t i = 0; i < shape.size(); ++i) s += (i ? ", " : "") + std::to_string(shape[i]);
+  return s + "]";
+}
+
 int Fail(const std::string& verb, const Status& status) {
   std::fprintf(stderr, "sprig %s: %s\n", verb.c_str(), status.message().c_str());
   return status.code() == Status::Code::kCheckFailed ? kExitCheckFailed : kExitBadInput;

@@ -6,6 +6,7 @@
 #include <chrono>
 #include <cstdint>
 #include <string>
+#include <vector>
 
 #include "sprig/status.h"
 
@@ -19,6 +20,8 @@ inline constexpr int kExitBadInput = 2;
 // Prints "sprig VERB: message" to stderr and returns the exit code for the status.
 int Fail(const std::string& verb, const Status& status);
 
+// "[2, 3]": an array shape as error messages print it
+std::string ShapeText(const std::vector<uint64_t>& shape);
 // "1.5 MiB", "312 B"
 std::string HumanBytes(uint64_t bytes);
 // "1.23 G", "456 k" (FLOPs, parameters)

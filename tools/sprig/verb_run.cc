@@ -44,12 +44,9 @@ Result<std::vector<float>> ReadRows(const std::string& path, size_t in, size_t* 
   }
   const bool one_row = a.shape.size() == 1;
   if ((a.shape.size() != 2 && !one_row) || a.shape.back() != in) {
-    std::string shape = "[";
-    for (size_t i = 0; i < a.shape.size(); ++i)
-      shape += (i ? ", " : "") + std::to_string(a.shape[i]);
-    return Status::InvalidArgument(path + " has shape " + shape + "]; the model takes rows of " +
-                                   std::to_string(in) + " values, shape [N, " + std::to_string(in) +
-                                   "]");
+    return Status::InvalidArgument(path + " has shape " + ShapeText(a.shape) +
+                                   "; the model takes rows of " + std::to_string(in) +
+                                   " values, shape [N, " + std::to_string(in) + "]");
   }
   *rows = one_row ? 1 : a.shape[0];
   std::vector<float> out(*rows * in);
@@ -67,12 +64,6 @@ Result<std::vector<float>> ReadRows(const std::string& path, size_t in, size_t* 
     }
   }
   return out;
-}
-
-std::string ShapeText(const std::vector<uint64_t>& shape) {
-  std::string s = "[";
-  for (size_t i = 0; i < shape.size(); ++i) s += (i ? ", " : "") + std::to_string(shape[i]);
-  return s + "]";
 }
 
 // Reads int32/int64 tokens [T] (one sequence) or [B, T] from a .npy file, each in [0, vocab).

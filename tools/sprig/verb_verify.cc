@@ -28,12 +28,6 @@ struct VerifyArgs {
   bool json = false;
 };
 
-std::string ShapeOf(const std::vector<uint64_t>& shape) {
-  std::string s = "[";
-  for (size_t i = 0; i < shape.size(); ++i) s += (i ? ", " : "") + std::to_string(shape[i]);
-  return s + "]";
-}
-
 double ElementAsDouble(const io::NdArray& a, uint64_t i) {
   const uint8_t* p = a.data + i * io::ElementSize(a.type);
   switch (a.type) {
@@ -91,8 +85,8 @@ class Reference {
     const uint64_t last = a->shape.empty() ? 1 : a->shape.back();
     if (a->elements() != elements || (width != 0 && last != width)) {
       return Status::InvalidArgument(path() + ": array '" + name + "' has shape " +
-                                     ShapeOf(a->shape) + ", expected " + std::to_string(elements) +
-                                     " values" +
+                                     ShapeText(a->shape) + ", expected " +
+                                     std::to_string(elements) + " values" +
                                      (width ? " in rows of " + std::to_string(width) : "") +
                                      " for this model and these inputs");
     }
@@ -115,7 +109,7 @@ class Reference {
     const bool matrix = a->shape.size() == 2 && a->shape[1] == width;
     if (a->elements() != rows * width || !(flat || matrix)) {
       return Status::InvalidArgument(path() + ": array '" + name + "' has shape " +
-                                     ShapeOf(a->shape) + ", expected [" + std::to_string(rows) +
+                                     ShapeText(a->shape) + ", expected [" + std::to_string(rows) +
                                      (width == 1 ? "" : ", " + std::to_string(width)) + "]");
     }
     std::vector<int64_t> v(rows * width);
@@ -148,9 +142,9 @@ Result<Computed> RunStack(Session& session, const Reference& ref, const ModelCon
   const io::NdArray* in = ref.Find("inputs");
   if (in == nullptr) return Status::InvalidArgument(ref.path() + " has no array 'inputs'");
   if (in->shape.empty() || in->shape.back() != c.input_dim || in->shape.size() > 2) {
-    return Status::InvalidArgument(ref.path() + ": array 'inputs' has shape " + ShapeOf(in->shape) +
-                                   "; this model takes rows [N, " + std::to_string(c.input_dim) +
-                                   "]");
+    return Status::InvalidArgument(ref.path() + ": array 'inputs' has shape " +
+                                   ShapeText(in->shape) + "; this model takes rows [N, " +
+                                   std::to_string(c.input_dim) + "]");
   }
   Computed r;
   r.rows = in->shape.size() == 1 ? 1 : in->shape[0];
@@ -168,7 +162,7 @@ Result<Computed> RunTokens(Session& session, const Reference& ref, const ModelCo
   if ((in->type != io::ElementType::kI32 && in->type != io::ElementType::kI64) ||
       in->shape.empty() || in->shape.size() > 2) {
     return Status::InvalidArgument(ref.path() + ": array 'inputs' is " +
-                                   io::ElementTypeName(in->type) + " " + ShapeOf(in->shape) +
+                                   io::ElementTypeName(in->type) + " " + ShapeText(in->shape) +
                                    "; this transformer takes int32/int64 tokens [T] or [B, T]");
   }
   Computed r;
