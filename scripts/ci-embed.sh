@@ -12,7 +12,7 @@ PREFIX="$WORK/prefix"
 
 echo "== install into a temporary prefix"
 cmake --install "$BUILD" --prefix "$PREFIX" > "$WORK/install.log"
-LIBDIR="$(dirname "$(find "$PREFIX" -name 'libsprig.so.0' | head -1)")"
+LIBDIR="$(dirname "$(find "$PREFIX" -name 'libsprig.so.0' -print -quit)")"
 test -f "$PREFIX/include/sprig/sprig.h"
 test -x "$PREFIX/bin/sprig"
 
@@ -34,10 +34,21 @@ export LD_LIBRARY_PATH="$LIBDIR"
 notes=$'Day 12 at Quill Hill: fog until noon. Marit\nWe picked 14 crates of\nSaw wasps in the'
 for program in "$WORK/embed/note_suggest" "$WORK/embed/note_suggest_c" "$WORK/note_suggest_pc"; do
   out="$(printf '%s\n' "$notes" | "$program" "$WORK/notes.sprig")"
-  echo "$out" | head -4
+  head -4 <<< "$out"
   # Every note gets a suggestion line and a latency/memory line.
-  test "$(echo "$out" | grep -c ' ms, resident ')" -eq 3
-  # The programs link the installed shared library, not a copy.
-  ldd "$program" | grep -q "$LIBDIR/libsprig.so.0"
+  lines="$(grep -c ' ms, resident ' <<< "$out" || true)"
+  if [ "$lines" -ne 3 ]; then
+    echo "error: $program printed $lines latency lines for 3 notes" >&2
+    exit 1
+  fi
+  # The programs link the installed shared library, not a copy. ldd's output goes to a file
+  # first: `ldd | grep -q` fails at random under pipefail, because grep exits at the first
+  # match and ldd reports the loader's SIGPIPE on the remaining lines as an error.
+  ldd "$program" > "$WORK/ldd.txt"
+  if ! grep -q "$LIBDIR/libsprig.so.0" "$WORK/ldd.txt"; then
+    echo "error: $program does not load $LIBDIR/libsprig.so.0:" >&2
+    cat "$WORK/ldd.txt" >&2
+    exit 1
+  fi
 done
 echo "embedding examples: 3 passed, 0 failed"

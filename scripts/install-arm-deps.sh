@@ -22,7 +22,7 @@ if [ "$(id -u)" -ne 0 ]; then
 fi
 
 installed() {
-  dpkg-query -W -f='${Status}' "$1" 2>/dev/null | grep -q "install ok installed"
+  [[ "$(dpkg-query -W -f='${Status}' "$1" 2>/dev/null)" == *"install ok installed"* ]]
 }
 
 missing=()
@@ -36,7 +36,7 @@ if [ ${#missing[@]} -eq 0 ]; then
   exit 0
 fi
 
-if ! dpkg --print-foreign-architectures | grep -qx arm64; then
+if ! grep -qx arm64 <<< "$(dpkg --print-foreign-architectures)"; then
   echo "sprig: enabling the arm64 architecture for Debian multiarch"
   $SUDO dpkg --add-architecture arm64
 fi
