@@ -14,7 +14,10 @@
 // Then storage types: the path tree and the leaf tree packed as f32, f16, bf16 and i8, run one
 // row per call, interleaved round by round (so that load from other processes hits every type
 // alike), reported as the median time per row and the median of the per-round speedups over
-// f32. `--storage_only` runs just that comparison.
+// f32. Twice: with each call's input row cold (read from the 12 MB pool by the call itself), and
+// warm (the next call's row is prefetched during the current call, as a preceding layer would
+// leave its output in cache; the prefetch instructions are inside the timed loop).
+// `--storage_only` runs just that comparison.
 //
 //   OPENBLAS_NUM_THREADS=1 build/bin/sprig_bench_layers [--benchmark_min_time=0.5]
 //   build/bin/sprig_bench_layers --storage_only
@@ -216,12 +219,18 @@ double ThreadMicros() {
   return double(t.tv_sec) * 1e6 + double(t.tv_nsec) / 1e3;
 }
 
+enum class Input { kCold, kWarm };
+
 // CPU microseconds per row of `rows` single-row calls starting at pool row `first`.
-double TimeRows(Session& session, size_t first, size_t rows) {
+double TimeRows(Session& session, size_t first, size_t rows, Input input) {
   const std::vector<float>& pool = Pool();
   std::vector<float> y(kDim);
   const double start = ThreadMicros();
   for (size_t i = 0; i < rows; ++i) {
+    if (input == Input::kWarm) {
+      const float* next = pool.data() + (first + i + 1) % kPoolRows * kDim;
+      for (size_t b = 0; b < kDim; b += 64 / sizeof(float)) __builtin_prefetch(next + b, 0, 3);
+    }
     (void)session.forward(pool.data() + (first + i) % kPoolRows * kDim, 1, y.data());
     benchmark::DoNotOptimize(y.data());
   }
@@ -237,7 +246,8 @@ void CompareStorageTypes() {
       "\nstorage types at batch 1 (1 thread, in = out = %zu, kernels %s; %zu rounds of %zu "
       "rows, interleaved)\n",
       kDim, kernels::ToString(kernels::ActiveKernels().path), kRounds, kRowsPerRound);
-  std::printf("%-14s %-5s %12s %12s %10s\n", "layer", "type", "cpu_us/row", "x_f32", "bytes/row");
+  std::printf("%-14s %-5s %-5s %12s %12s %10s\n", "layer", "input", "type", "cpu_us/row", "x_f32",
+              "bytes/row");
   for (const Case& c : Cases()) {
     if (c.name != "path_d11" && c.name != "leaf_d8_w16") continue;
     std::vector<std::unique_ptr<Session>> sessions;
@@ -245,26 +255,29 @@ void CompareStorageTypes() {
       auto created = Session::create(ModelFor(c, t));
       sessions.push_back(std::move(*created));
     }
-    std::vector<std::vector<double>> us(std::size(kTypes)), ratio(std::size(kTypes));
-    for (size_t round = 0; round < kRounds + 1; ++round) {
-      double times[std::size(kTypes)];
-      for (size_t i = 0; i < std::size(kTypes); ++i) {
-        times[i] = TimeRows(*sessions[i], round * kRowsPerRound, kRowsPerRound);
+    for (Input input : {Input::kCold, Input::kWarm}) {
+      std::vector<std::vector<double>> us(std::size(kTypes)), ratio(std::size(kTypes));
+      for (size_t round = 0; round < kRounds + 1; ++round) {
+        double times[std::size(kTypes)];
+        for (size_t i = 0; i < std::size(kTypes); ++i) {
+          times[i] = TimeRows(*sessions[i], round * kRowsPerRound, kRowsPerRound, input);
+        }
+        if (round == 0) continue;  // warm-up: page faults of the first touches
+        for (size_t i = 0; i < std::size(kTypes); ++i) {
+          us[i].push_back(times[i]);
+          ratio[i].push_back(times[0] / times[i]);
+        }
       }
-      if (round == 0) continue;  // warm-up: page faults of the first touches
       for (size_t i = 0; i < std::size(kTypes); ++i) {
-        us[i].push_back(times[i]);
-        ratio[i].push_back(times[0] / times[i]);
+        // Weight bytes one row reads: per neuron (path) a node row and an output row; per level
+        // (leaf) a node row, then one leaf of 16 hidden units; i8 adds a 4-byte scale per row.
+        const double value_bytes = kTypes[i] == DType::kI8 ? 1.0 : double(DTypeSize(kTypes[i]));
+        const double row = kDim * value_bytes + (kTypes[i] == DType::kI8 ? 4.0 : 0.0);
+        const double bytes = c.name == "path_d11" ? 12 * 2 * row : 8 * row + 16 * 2 * row;
+        std::printf("%-14s %-5s %-5s %12.3f %11.2fx %10.0f\n", c.name.c_str(),
+                    input == Input::kCold ? "cold" : "warm", ToString(kTypes[i]), Median(us[i]),
+                    Median(ratio[i]), bytes);
       }
-    }
-    for (size_t i = 0; i < std::size(kTypes); ++i) {
-      // Weight bytes one row reads: per neuron (path) a node row and an output row; per level
-      // (leaf) a node row, then one leaf of 16 hidden units; i8 adds a 4-byte scale per row.
-      const double value_bytes = kTypes[i] == DType::kI8 ? 1.0 : double(DTypeSize(kTypes[i]));
-      const double row = kDim * value_bytes + (kTypes[i] == DType::kI8 ? 4.0 : 0.0);
-      const double bytes = c.name == "path_d11" ? 12 * 2 * row : 8 * row + 16 * 2 * row;
-      std::printf("%-14s %-5s %12.3f %11.2fx %10.0f\n", c.name.c_str(), ToString(kTypes[i]),
-                  Median(us[i]), Median(ratio[i]), bytes);
     }
   }
 }

@@ -305,6 +305,92 @@ TEST(KernelAxpy, EveryPathEveryTypeMatchesReference) {
   }
 }
 
+TEST(KernelAxpyRows, EqualsAxpyInOrderOnEveryPath) {
+  // axpy_rows promises the result of `count` axpy calls in row order, bit for bit, on every
+  // path; and so within the axpy bounds of the double-precision sum.
+  for (DType type : kWeightTypes) {
+    for (size_t count : {0, 1, 2, 3, 12, 23}) {
+      for (size_t n : kLengths) {
+        const uint32_t seed = uint32_t(count * 10007 + n);
+        const std::vector<float> y0 = RandomVector(n, seed);
+        std::vector<StoredWeights> rows;
+        std::vector<const void*> pointers;
+        std::vector<float> a;
+        for (size_t r = 0; r < count; ++r) {
+          rows.emplace_back(type, RandomVector(n, uint32_t(seed + 1 + r)));
+          a.push_back(RandomVector(1, uint32_t(seed + 100 + r))[0]);
+        }
+        for (size_t r = 0; r < count; ++r) pointers.push_back(rows[r].data());
+        for (KernelPath path : AvailablePaths()) {
+          const KernelTable& k = Kernels(path);
+          std::vector<float> one_by_one = y0;
+          std::vector<float> scaled = a;  // i8: the caller folds each row's scale into a[r]
+          for (size_t r = 0; r < count; ++r) {
+            if (type == DType::kI8) scaled[r] *= rows[r].scales()[0];
+            Axpy(k, type, a[r], rows[r].data(), one_by_one.data(), n, rows[r].scales());
+          }
+          std::vector<float> y = y0;
+          y.push_back(12345.0f);  // a guard element that must stay untouched
+          AxpyRows(k, type, scaled.data(), pointers.data(), count, y.data(), n);
+          const std::string what = Describe(
+              path, type, "axpy_rows count=" + std::to_string(count) + " n=" + std::to_string(n));
+          for (size_t i = 0; i < n; ++i) {
+            ASSERT_EQ(y[i], one_by_one[i]) << what << " [" << i << "]";
+            double exact = y0[i], magnitude = std::fabs(y0[i]);
+            for (size_t r = 0; r < count; ++r) {
+              const double term = double(a[r]) * rows[r].decoded[i];
+              exact += term;
+              magnitude += std::fabs(term);
+            }
+            // One rounding of at most 2^-24 relative per addition, and for i8 two more per row
+            // (a·scale and the decoded scale·q): a common-practice bound, far below the size
+            // of any one term a dropped or repeated row would move y[i] by.
+            EXPECT_LE(std::fabs(y[i] - exact), (3 * count + 1) * 6.0e-8 * magnitude + 1e-30)
+                << what;
+          }
+          EXPECT_EQ(y[n], 12345.0f) << what;
+        }
+      }
+    }
+  }
+}
+
+// ---- checks ----
+
+TEST(KernelAllFinite, EveryPathFindsEveryInfinityAndNaN) {
+  // IEEE 754-2008 §3.4: a binary32 value is an infinity or a NaN exactly when its biased
+  // exponent field is all ones; everything else (zeros of both signs, subnormals, the largest
+  // finite value) is finite.
+  const float specials[] = {
+      std::numeric_limits<float>::infinity(), -std::numeric_limits<float>::infinity(),
+      std::numeric_limits<float>::quiet_NaN(), -std::numeric_limits<float>::quiet_NaN(),
+      std::numeric_limits<float>::signaling_NaN()};
+  const float finite[] = {0.0f,
+                          -0.0f,
+                          std::numeric_limits<float>::denorm_min(),
+                          std::numeric_limits<float>::max(),
+                          -std::numeric_limits<float>::max(),
+                          std::numeric_limits<float>::min()};
+  for (KernelPath path : AvailablePaths()) {
+    const KernelTable& k = Kernels(path);
+    EXPECT_TRUE(k.all_finite(nullptr, 0)) << ToString(path);
+    for (size_t n : kLengths) {
+      std::vector<float> x = RandomVector(n, uint32_t(5000 + n), 1e30f);
+      for (size_t i = 0; i < n; ++i) x[i] = i % 7 == 0 ? finite[i % std::size(finite)] : x[i];
+      EXPECT_TRUE(k.all_finite(x.data(), n)) << ToString(path) << " n=" << n;
+      // One special at the first, a middle and the last position, the rest finite.
+      for (size_t at : {size_t{0}, n / 2, n - 1}) {
+        for (float special : specials) {
+          std::vector<float> bad = x;
+          bad[at] = special;
+          EXPECT_FALSE(k.all_finite(bad.data(), n))
+              << ToString(path) << " n=" << n << " at " << at << " value " << special;
+        }
+      }
+    }
+  }
+}
+
 // ---- gemv, gemm_rows ----
 
 // Checks Y[rows, out] = X·Wᵀ + bias for one path against the double reference and `scalar`.

@@ -196,6 +196,20 @@ TEST(PackLayout, RowMapsAreBijections) {
     }
     for (uint8_t s : seen) EXPECT_EQ(s, 1) << "levels " << levels;
   }
+  // Deeper trees, up to the deepest path tree a file may hold: the first, a middle and the last
+  // row of every level go to a record and back (LocateRow's closed form against RowOf's loop).
+  for (uint32_t levels = 15; levels <= 23; ++levels) {
+    const format::RowMapInfo m = format::SubtreeMapFor(levels);
+    const uint64_t records = format::RecordCount(m, (uint64_t{1} << levels) - 1);
+    for (uint32_t level = m.hot_levels; level < levels; ++level) {
+      const uint64_t first = (uint64_t{1} << level) - 1, last = 2 * first;
+      for (uint64_t row : {first, (first + last) / 2, last}) {
+        const format::RowLocation loc = format::LocateRow(m, row);
+        ASSERT_LT(loc.record, records) << "levels " << levels << " row " << row;
+        EXPECT_EQ(format::RowOf(m, loc.record, loc.local_row), row) << "levels " << levels;
+      }
+    }
+  }
 }
 
 TEST(PackLayout, PathStepsStayInsideOneChunkPerGroup) {

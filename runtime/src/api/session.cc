@@ -19,17 +19,6 @@
 namespace sprig {
 namespace {
 
-// True when no value is NaN or infinite (exponent bits all ones); written so it vectorises.
-bool AllFinite(const float* x, size_t n) {
-  uint32_t bad = 0;
-  for (size_t i = 0; i < n; ++i) {
-    uint32_t bits;
-    std::memcpy(&bits, x + i, 4);
-    bad |= static_cast<uint32_t>((bits & 0x7f800000u) == 0x7f800000u);
-  }
-  return bad == 0;
-}
-
 double SecondsSince(std::chrono::steady_clock::time_point start) {
   return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
 }
@@ -125,7 +114,7 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
                                    " is a transformer model; it takes tokens, not float rows");
   }
   const size_t in = c.input_dim;
-  if (!AllFinite(input, rows * in)) {
+  if (!state_->kernels->all_finite(input, rows * in)) {
     for (size_t i = 0;; ++i) {
       if (std::isfinite(input[i])) continue;
       return Status::InvalidArgument("input row " + std::to_string(i / in) + ", column " +

@@ -39,11 +39,22 @@ RowLocation LocateRow(const RowMapInfo& map, uint64_t row) {
     return {r / map.rows_per_record, r % map.rows_per_record};
   }
   const uint32_t level = LevelOf(row);
-  const uint32_t group = (level - map.hot_levels) / map.chunk_levels;
-  const uint32_t first = map.hot_levels + group * map.chunk_levels;
+  uint32_t first;
   // Records of earlier groups: 2^h + 2^(h+c) + ... for the group roots' levels.
   uint64_t before = 0;
-  for (uint32_t l = map.hot_levels; l < first; l += map.chunk_levels) before += uint64_t{1} << l;
+  if (map.chunk_levels == kPathChunkLevels) {
+    // The only chunk size files have (the loader checks it); it runs once per tree level for
+    // every row, so the division and the sum take their closed forms with a constant c:
+    // Σ_{j<g} 2^(h + c·j) = 2^h·(2^(c·g) - 1)/(2^c - 1).
+    constexpr uint32_t c = kPathChunkLevels;
+    const uint32_t group = (level - map.hot_levels) / c;
+    first = map.hot_levels + group * c;
+    before = (((uint64_t{1} << (c * group)) - 1) / ((uint64_t{1} << c) - 1)) << map.hot_levels;
+  } else {
+    const uint32_t group = (level - map.hot_levels) / map.chunk_levels;
+    first = map.hot_levels + group * map.chunk_levels;
+    for (uint32_t l = map.hot_levels; l < first; l += map.chunk_levels) before += uint64_t{1} << l;
+  }
   const uint32_t rel = level - first;  // depth inside the chunk
   const uint64_t heap_id = row + 1;    // 1-based heap numbering: children of k are 2k, 2k+1
   const uint64_t root_heap = heap_id >> rel;

@@ -48,6 +48,10 @@ struct WeightKernels {
                     size_t out, size_t in);
   // y[i] += a·w[i], i < n.
   void (*axpy)(float a, const W* w, float* y, size_t n);
+  // y[i] += Σ_r a[r]·w_r[i] for i < n, r < count, where rows[r] points at row w_r (of type W).
+  // Each y[i] receives the terms in the order r = 0, 1, ...: the result equals `count` axpy
+  // calls in that order, bit for bit, but y is read and written once instead of `count` times.
+  void (*axpy_rows)(const float* a, const void* const* rows, size_t count, float* y, size_t n);
 };
 
 // Kernels for int8 weights with one float32 scale per row: W[o, i] = scales[o]·q[o, i]
@@ -64,6 +68,8 @@ struct Int8Kernels {
                     float* y, size_t rows, size_t out, size_t in);
   // y[i] += a·q[i], i < n (unscaled: pass a·scale).
   void (*axpy)(float a, const int8_t* q, float* y, size_t n);
+  // As WeightKernels::axpy_rows over int8 rows, unscaled: pass a[r]·scale_r.
+  void (*axpy_rows)(const float* a, const void* const* rows, size_t count, float* y, size_t n);
 };
 
 struct KernelTable {
@@ -87,6 +93,9 @@ struct KernelTable {
                      size_t n);
   // y = x/sqrt(mean(x²) + eps)·weight. `weight` may be null (1); `y` may be `x`.
   void (*rms_norm)(const float* x, const float* weight, float eps, float* y, size_t n);
+
+  // True when no x[i] is an infinity or a NaN (every path gives the same answer).
+  bool (*all_finite)(const float* x, size_t n);
 
   // Array converters, bit-identical on every path to numeric::FloatToHalf and friends.
   void (*f32_to_f16)(const float* src, uint16_t* dst, size_t n);
@@ -184,6 +193,22 @@ inline void Axpy(const KernelTable& k, DType type, float a, const void* w, float
       return k.i8.axpy(a * scales[0], static_cast<const int8_t*>(w), y, n);
     default:
       return k.f32.axpy(a, static_cast<const float*>(w), y, n);
+  }
+}
+
+// y += Σ_r a[r]·row_r over `count` rows of `type` (WeightKernels::axpy_rows). For kI8 each a[r]
+// must already include its row's scale.
+inline void AxpyRows(const KernelTable& k, DType type, const float* a, const void* const* rows,
+                     size_t count, float* y, size_t n) {
+  switch (type) {
+    case DType::kF16:
+      return k.f16.axpy_rows(a, rows, count, y, n);
+    case DType::kBF16:
+      return k.bf16.axpy_rows(a, rows, count, y, n);
+    case DType::kI8:
+      return k.i8.axpy_rows(a, rows, count, y, n);
+    default:
+      return k.f32.axpy_rows(a, rows, count, y, n);
   }
 }
 

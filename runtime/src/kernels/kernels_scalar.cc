@@ -47,6 +47,11 @@ void Axpy(float a, const W* w, float* y, size_t n) {
   for (size_t i = 0; i < n; ++i) y[i] += a * Tag::Decode(w[i]);
 }
 
+template <typename Tag, typename W>
+void AxpyRows(const float* a, const void* const* rows, size_t count, float* y, size_t n) {
+  for (size_t r = 0; r < count; ++r) Axpy<Tag>(a[r], static_cast<const W*>(rows[r]), y, n);
+}
+
 // int8 rows: the unscaled sum of the row, times its scale, plus the bias.
 void GemvInt8(const int8_t* q, const float* scales, const float* x, const float* bias, float* y,
               size_t out, size_t in) {
@@ -139,6 +144,13 @@ void RmsNorm(const float* x, const float* weight, float eps, float* y, size_t n)
   for (size_t i = 0; i < n; ++i) y[i] = x[i] * inv_rms * (weight != nullptr ? weight[i] : 1.0f);
 }
 
+bool AllFinite(const float* x, size_t n) {
+  for (size_t i = 0; i < n; ++i) {
+    if (!std::isfinite(x[i])) return false;
+  }
+  return true;
+}
+
 void FloatToHalfArray(const float* src, uint16_t* dst, size_t n) {
   for (size_t i = 0; i < n; ++i) dst[i] = numeric::FloatToHalf(src[i]);
 }
@@ -154,7 +166,7 @@ void BFloat16ToFloatArray(const uint16_t* src, float* dst, size_t n) {
 
 template <typename Tag, typename W>
 constexpr WeightKernels<W> MakeWeightKernels() {
-  return {&Dot<Tag, W>, &Gemv<Tag, W>, &GemmRows<Tag, W>, &Axpy<Tag, W>};
+  return {&Dot<Tag, W>, &Gemv<Tag, W>, &GemmRows<Tag, W>, &Axpy<Tag, W>, &AxpyRows<Tag, W>};
 }
 
 constexpr KernelTable kScalarTable = {
@@ -162,12 +174,14 @@ constexpr KernelTable kScalarTable = {
     MakeWeightKernels<FloatWeights, float>(),
     MakeWeightKernels<HalfWeights, uint16_t>(),
     MakeWeightKernels<BFloat16Weights, uint16_t>(),
-    {&Dot<Int8Weights, int8_t>, &GemvInt8, &GemmRowsInt8, &Axpy<Int8Weights, int8_t>},
+    {&Dot<Int8Weights, int8_t>, &GemvInt8, &GemmRowsInt8, &Axpy<Int8Weights, int8_t>,
+     &AxpyRows<Int8Weights, int8_t>},
     &Activate,
     &GatedActivate,
     &Softmax,
     &LayerNorm,
     &RmsNorm,
+    &AllFinite,
     &FloatToHalfArray,
     &HalfToFloatArray,
     &FloatToBFloat16Array,

@@ -208,6 +208,48 @@ struct SimdKernels {
     }
   }
 
+  // Four vectors of y at a time stay in registers while every row adds its term, so y is
+  // loaded and stored once and the rows' loads run side by side. Each element still receives
+  // fma(a[r], w_r, y) in the order of r, exactly as `count` Axpy calls would give it.
+  template <class Tag>
+  static void AxpyRows(const float* a, const void* const* rows, size_t count, float* y, size_t n) {
+    using W = typename Tag::Storage;
+    size_t i = 0;
+    for (; i + 4 * L <= n; i += 4 * L) {
+      F y0 = F::load_unaligned(y + i), y1 = F::load_unaligned(y + i + L);
+      F y2 = F::load_unaligned(y + i + 2 * L), y3 = F::load_unaligned(y + i + 3 * L);
+      for (size_t r = 0; r < count; ++r) {
+        const W* w = static_cast<const W*>(rows[r]) + i;
+        const F ar(a[r]);
+        y0 = xsimd::fma(ar, Load(w, Tag{}), y0);
+        y1 = xsimd::fma(ar, Load(w + L, Tag{}), y1);
+        y2 = xsimd::fma(ar, Load(w + 2 * L, Tag{}), y2);
+        y3 = xsimd::fma(ar, Load(w + 3 * L, Tag{}), y3);
+      }
+      y0.store_unaligned(y + i);
+      y1.store_unaligned(y + i + L);
+      y2.store_unaligned(y + i + 2 * L);
+      y3.store_unaligned(y + i + 3 * L);
+    }
+    for (; i + L <= n; i += L) {
+      F acc = F::load_unaligned(y + i);
+      for (size_t r = 0; r < count; ++r) {
+        acc = xsimd::fma(F(a[r]), Load(static_cast<const W*>(rows[r]) + i, Tag{}), acc);
+      }
+      acc.store_unaligned(y + i);
+    }
+    if (i < n) {
+      F acc = LoadPartial(y + i, n - i, FloatTag{});
+      for (size_t r = 0; r < count; ++r) {
+        acc =
+            xsimd::fma(F(a[r]), LoadPartial(static_cast<const W*>(rows[r]) + i, n - i, Tag{}), acc);
+      }
+      alignas(64) float out[L];
+      acc.store_aligned(out);
+      std::memcpy(y + i, out, (n - i) * sizeof(float));
+    }
+  }
+
   // ---- gemv and gemm_rows: one register-blocked micro-kernel ----
 
   // Sums of R rows of X against C rows of W, over `in`: sums[r·C + c] = X[r]·W[c]. Each step
@@ -528,11 +570,28 @@ struct SimdKernels {
              [](const uint16_t* s, float* d) { Load(s, BFloat16Tag{}).store_unaligned(d); });
   }
 
+  // ---- checks ----
+
+  // A float is an infinity or a NaN exactly when its exponent bits are all ones.
+  static bool AllFinite(const float* x, size_t n) {
+    const I exponent(0x7f800000);
+    xsimd::batch_bool<int32_t, Arch> bad(false);
+    size_t i = 0;
+    for (; i + L <= n; i += L) {
+      bad = bad | ((xsimd::bitwise_cast<I>(F::load_unaligned(x + i)) & exponent) == exponent);
+    }
+    if (i < n) {
+      const I tail = xsimd::bitwise_cast<I>(LoadPartial(x + i, n - i, FloatTag{}));
+      bad = bad | ((tail & exponent) == exponent);  // the zero lanes are finite
+    }
+    return !xsimd::any(bad);
+  }
+
   // ---- the table ----
 
   template <class Tag>
   static constexpr WeightKernels<typename Tag::Storage> MakeWeightKernels() {
-    return {&Dot<Tag>, &Gemv<Tag>, &GemmRows<Tag>, &Axpy<Tag>};
+    return {&Dot<Tag>, &Gemv<Tag>, &GemmRows<Tag>, &Axpy<Tag>, &AxpyRows<Tag>};
   }
 
   static constexpr KernelTable MakeTable(KernelPath path) {
@@ -541,12 +600,14 @@ struct SimdKernels {
         MakeWeightKernels<FloatTag>(),
         MakeWeightKernels<HalfTag>(),
         MakeWeightKernels<BFloat16Tag>(),
-        Int8Kernels{&Dot<Int8Tag>, &GemvScaled<Int8Tag>, &GemmRowsScaled<Int8Tag>, &Axpy<Int8Tag>},
+        Int8Kernels{&Dot<Int8Tag>, &GemvScaled<Int8Tag>, &GemmRowsScaled<Int8Tag>, &Axpy<Int8Tag>,
+                    &AxpyRows<Int8Tag>},
         &Activate,
         &GatedActivate,
         &Softmax,
         &LayerNorm,
         &RmsNorm,
+        &AllFinite,
         &FloatToHalfArray,
         &HalfToFloatArray,
         &FloatToBFloat16Array,

@@ -97,6 +97,10 @@ class FeedForward {
     if (exec.touched == nullptr || records_ == nullptr || row < records_->map.hot_rows) return;
     exec.touched->Mark(index_, format::LocateRow(records_->map, row).record);
   }
+  // The same for a row whose record the caller has located already.
+  void TouchRecord(const Exec& exec, uint64_t record) const {
+    if (exec.touched != nullptr && records_ != nullptr) exec.touched->Mark(index_, record);
+  }
 
   size_t in_ = 0, out_ = 0;
   size_t index_ = 0;

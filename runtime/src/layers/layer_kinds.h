@@ -52,9 +52,11 @@ class PathTreeLayer final : public FeedForward {
   // Where one neuron's data lies: its weight row, bias, output row and (i8) their scales.
   // Located once per neuron, as all of them share one record.
   struct Neuron {
+    static constexpr uint64_t kHot = ~uint64_t{0};
+    uint64_t record = kHot;  // the record holding the neuron, or kHot for a hot row
     const uint8_t* weight = nullptr;
     const float* weight_scale = nullptr;
-    float bias = 0.0f;
+    const float* bias = nullptr;  // null: no bias. Read when the logit is formed, not here.
     const uint8_t* out = nullptr;
     const float* out_scale = nullptr;
   };
@@ -79,6 +81,9 @@ class PathTreeLayer final : public FeedForward {
   // nodes.weight, nodes.bias and nodes.out share hot rows and records (as the packer writes
   // them), so Locate finds a neuron's record once for all three.
   bool shared_location_ = false;
+  // For Locate: where the records are (the record set of nodes.weight), looked up once.
+  const uint8_t* file_base_ = nullptr;
+  const format::RecordSetInfo* node_records_ = nullptr;
 };
 
 // Top-k mixture of experts with a softmax router.

@@ -5,29 +5,13 @@
 #include <utility>
 
 #include "layers/layer_kinds.h"
+#include "model/config_check.h"
 
 namespace sprig::layers {
 namespace {
 
 // How many rows ahead the batched descent prefetches (measured: 1 to 4 at in = out = 768).
 constexpr size_t kPrefetchRowsAhead = 2;
-
-// Scalar activation of one pre-activation (the same formulas as the kernels' scalar path).
-float ActivateScalar(Activation act, float a) {
-  switch (act) {
-    case Activation::kRelu:
-      return a > 0.0f ? a : 0.0f;
-    case Activation::kGelu:
-      return 0.5f * a * std::erfc(-a * 0.70710678118654752f);
-    case Activation::kGeluTanh: {
-      const float u = 0.79788456080286536f * (a + 0.044715f * a * a * a);
-      return a / (1.0f + std::exp(-2.0f * u));
-    }
-    case Activation::kSilu:
-      return a / (1.0f + std::exp(-a));
-  }
-  return a;
-}
 
 }  // namespace
 
@@ -43,30 +27,34 @@ PathTreeLayer::PathTreeLayer(const Binder& b, const LayerConfig& c) : binder_(b)
            (t->record_set == weight_->record_set && t->hot_rows == weight_->hot_rows);
   };
   shared_location_ = same_place(bias_) && same_place(out_rows_);
+  file_base_ = b.file().base();
+  if (weight_->record_set >= 0 &&
+      static_cast<size_t>(weight_->record_set) < b.file().record_sets().size()) {
+    node_records_ = &b.file().record_sets()[weight_->record_set];
+  }
 }
 
 PathTreeLayer::Neuron PathTreeLayer::Locate(uint64_t node) const {
-  const format::ModelFile& f = binder_.file();
   // The routed tensors (nodes.weight, nodes.bias, nodes.out) have the same rows, hot rows and
   // record set (checked at open), so one location serves all of them: the ModelFile::Row
   // arithmetic, done once per neuron instead of once per tensor.
   if (!shared_location_) return LocateEach(node);
+  Neuron n;
   const uint8_t* record = nullptr;
   uint64_t local = node;
   if (node >= weight_->hot_rows) {
-    const format::RecordSetInfo& rs = f.record_sets()[weight_->record_set];
-    const format::RowLocation loc = format::LocateRow(rs.map, node);
-    record = f.base() + rs.offsets[loc.record];
+    const format::RowLocation loc = format::LocateRow(node_records_->map, node);
+    n.record = loc.record;
+    record = file_base_ + node_records_->offsets[loc.record];
     local = loc.local_row;
   }
   auto at = [&](const uint8_t* hot, uint64_t part_offset, uint64_t row_bytes) {
     return record == nullptr ? hot + local * row_bytes : record + part_offset + local * row_bytes;
   };
-  Neuron n;
   n.weight = at(weight_->hot, weight_->part_offset, weight_->row_bytes);
   n.out = at(out_rows_->hot, out_rows_->part_offset, out_rows_->row_bytes);
   if (bias_ != nullptr) {
-    n.bias = *reinterpret_cast<const float*>(at(bias_->hot, bias_->part_offset, bias_->row_bytes));
+    n.bias = reinterpret_cast<const float*>(at(bias_->hot, bias_->part_offset, bias_->row_bytes));
   }
   if (weight_->scale_row_bytes > 0) {
     n.weight_scale = reinterpret_cast<const float*>(
@@ -84,22 +72,28 @@ PathTreeLayer::Neuron PathTreeLayer::Locate(uint64_t node) const {
 PathTreeLayer::Neuron PathTreeLayer::LocateEach(uint64_t node) const {
   const format::ModelFile& f = binder_.file();
   Neuron n;
+  if (records() != nullptr && node >= records()->map.hot_rows) {
+    n.record = format::LocateRow(records()->map, node).record;
+  }
   n.weight = f.Row(*weight_, node);
   n.weight_scale = f.RowScales(*weight_, node);
   n.out = f.Row(*out_rows_, node);
   n.out_scale = f.RowScales(*out_rows_, node);
-  if (bias_ != nullptr) n.bias = *reinterpret_cast<const float*>(f.Row(*bias_, node));
+  if (bias_ != nullptr) n.bias = reinterpret_cast<const float*>(f.Row(*bias_, node));
   return n;
 }
 
 float PathTreeLayer::Logit(const kernels::KernelTable& k, const Neuron& n, const float* x) const {
-  return kernels::Dot(k, weight_->dtype, x, n.weight, in_, n.weight_scale) + n.bias;
+  const float dot = kernels::Dot(k, weight_->dtype, x, n.weight, in_, n.weight_scale);
+  return n.bias != nullptr ? dot + *n.bias : dot;
 }
 
 void PathTreeLayer::AddOutput(const kernels::KernelTable& k, const Neuron& n, float a,
                               float* y) const {
-  kernels::Axpy(k, out_rows_->dtype, ActivateScalar(config_.activation, a), n.out, y, out_,
-                n.out_scale);
+  // The kernels' activation, one element: the same value it gives inside a vector, so a row's
+  // result does not depend on whether it ran alone (ForwardOne) or in a batch.
+  k.activate(config_.activation, &a, 1);
+  kernels::Axpy(k, out_rows_->dtype, a, n.out, y, out_, n.out_scale);
 }
 
 void PathTreeLayer::PrefetchWeight(const Neuron& n) const {
@@ -107,6 +101,7 @@ void PathTreeLayer::PrefetchWeight(const Neuron& n) const {
     __builtin_prefetch(n.weight + off, 0, 3);
   }
   if (n.weight_scale != nullptr) __builtin_prefetch(n.weight_scale, 0, 3);
+  if (n.bias != nullptr) __builtin_prefetch(n.bias, 0, 3);
 }
 
 void PathTreeLayer::PrefetchOut(const Neuron& n) const {
@@ -116,37 +111,51 @@ void PathTreeLayer::PrefetchOut(const Neuron& n) const {
   if (n.out_scale != nullptr) __builtin_prefetch(n.out_scale, 0, 3);
 }
 
-// One row: each level's latency is a load of the neuron's weight row followed by its dot
-// product, and the next neuron is known only after that dot product. So both children's weight
-// rows are requested before the current dot product starts (one of them is wasted, but the
-// chosen one is then on its way a whole dot product earlier), and the chosen child's output row
-// as soon as the choice is made, so it arrives while the current output row is added. (Asking
-// for all four grandchildren as well measured slower at in = out = 768: the extra misses cost
-// more than the latency they hide.)
+// One row, in two phases. The descent: each level's latency is a load of the neuron's weight
+// row followed by its dot product, and the next neuron is known only after that dot product. So
+// both children's weight rows are requested before the current dot product starts (one of them
+// is wasted, but the chosen one is then on its way a whole dot product earlier), and the chosen
+// child's output row as soon as the choice is made. (Measured at in = out = 768 in every storage
+// type: asking for all four grandchildren as well, or for a record's whole node part on entering
+// it, is slower: the extra misses cost more than the latency they hide; not asking for the
+// output rows during the descent is slower too.)
+// Then the sum: all the path's activations in one vector call, and all its output rows added
+// to y in one pass (axpy_rows), by which time the output rows have arrived. With the output rows
+// out of the descent, its critical path is the weight rows alone.
 void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& e, const float* x,
                                float* y, int32_t* routes) const {
   const uint32_t depth = config_.depth;
+  Neuron path[kMaxPathDepth + 1];
+  float a[kMaxPathDepth + 1];
   uint64_t n = 0;
   Neuron current = Locate(0);
   PrefetchWeight(current);
   PrefetchOut(current);
-  for (uint32_t level = 0; level <= depth; ++level) {
-    Touch(e, n);
+  for (uint32_t level = 0;; ++level) {
+    if (current.record != Neuron::kHot) TouchRecord(e, current.record);
+    path[level] = current;
     if (level == depth) {
-      AddOutput(k, current, Logit(k, current, x), y);
+      a[level] = Logit(k, current, x);
       break;
     }
     const Neuron left = Locate(2 * n + 1), right = Locate(2 * n + 2);
     PrefetchWeight(left);
     PrefetchWeight(right);
-    const float a = Logit(k, current, x);
-    const bool go_right = a > 0.0f;
+    a[level] = Logit(k, current, x);
+    const bool go_right = a[level] > 0.0f;
     const Neuron& child = go_right ? right : left;
     PrefetchOut(child);
-    AddOutput(k, current, a, y);
     n = 2 * n + 1 + (go_right ? 1 : 0);
     current = child;
   }
+  const size_t count = depth + 1;
+  k.activate(config_.activation, a, count);
+  const void* out_rows[kMaxPathDepth + 1];
+  for (size_t level = 0; level < count; ++level) {
+    out_rows[level] = path[level].out;
+    if (path[level].out_scale != nullptr) a[level] *= *path[level].out_scale;
+  }
+  kernels::AxpyRows(k, out_rows_->dtype, a, out_rows, count, y, out_);
   if (routes) routes[0] = static_cast<int32_t>(n - ((uint64_t{1} << depth) - 1));
 }
 
