@@ -1,6 +1,5 @@
 // Tree in path mode: the d + 1 neurons on the root-to-leaf path each add act(a)·out[n].
 #include <algorithm>
-#include <cmath>
 #include <cstring>
 #include <utility>
 
