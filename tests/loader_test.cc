@@ -2,10 +2,13 @@
 #include <gtest/gtest.h>
 
 #include <cstring>
+#include <vector>
 
+#include "format/header_config.h"
 #include "format/model_file.h"
 #include "format/preamble.h"
 #include "sprig/model.h"
+#include "sprig/session.h"
 #include "support/test_util.h"
 
 namespace sprig {
@@ -162,6 +165,91 @@ TEST_F(LoaderTest, DamagedRecordIsCaughtByCheck) {
   auto r = testing::Run(testing::SprigCli() + " inspect --check " + Quote(path));
   EXPECT_EQ(r.exit_code, 1) << r.output;
   EXPECT_NE(r.output.find("record 3 of layer 1"), std::string::npos) << r.output;
+}
+
+// The file with its header built again field by field; with `decoy_for_layer` >= 0, an extra
+// record set for that layer, holding only its first record, goes first, before the layer's own set
+// (the tensors' record-set indices move up by one to keep pointing at their sets). The checksums
+// stay valid, so only the loader's structural checks can refuse it.
+std::string RebuiltFile(const std::string& bytes, const ModelConfig& config, int decoy_for_layer) {
+  const auto* data = reinterpret_cast<const uint8_t*>(bytes.data());
+  auto pre = format::DecodePreamble(data, bytes.size(), bytes.size(), "m");
+  EXPECT_TRUE(pre.ok());
+  const fb::Header* h = fb::GetHeader(data + pre->header_offset);
+  flatbuffers::FlatBufferBuilder b;
+  b.ForceDefaults(true);
+  auto cfg = format::BuildConfig(b, config);
+  auto json = b.CreateString(h->config_json()->str());
+  auto producer = b.CreateString(h->producer()->str());
+  std::vector<flatbuffers::Offset<fb::Section>> sections;
+  for (const fb::Section* s : *h->sections()) {
+    sections.push_back(fb::CreateSection(b, b.CreateString(s->name()->str()), s->kind(),
+                                         s->offset(), s->size(), s->padding(), s->layer()));
+  }
+  auto sections_vec = b.CreateVector(sections);
+  const int shift = decoy_for_layer >= 0 ? 1 : 0;
+  std::vector<flatbuffers::Offset<fb::Tensor>> tensors;
+  for (const fb::Tensor* t : *h->tensors()) {
+    auto shape = b.CreateVector(std::vector<uint64_t>(t->shape()->begin(), t->shape()->end()));
+    auto name = b.CreateString(t->name()->str());
+    tensors.push_back(fb::CreateTensor(
+        b, name, t->dtype(), shape, t->hot_offset(), t->hot_rows(), t->hot_size(), t->hot_crc32(),
+        t->record_set() >= 0 ? t->record_set() + shift : -1, t->record_part_offset(),
+        t->record_part_size(), t->layer(), t->scales_hot_offset(), t->scales_hot_crc32(),
+        t->scales_record_part_offset(), t->error_max_abs(), t->error_rel_rms()));
+  }
+  auto tensors_vec = b.CreateVector(tensors);
+  std::vector<flatbuffers::Offset<fb::RecordSet>> sets;
+  auto copy_set = [&](const fb::RecordSet* r, size_t max_records) {
+    std::vector<fb::RecordRef> refs;
+    for (const fb::RecordRef* ref : *r->records()) {
+      if (refs.size() < max_records) refs.push_back(*ref);
+    }
+    sets.push_back(fb::CreateRecordSet(b, r->layer(), r->section(), r->row_map(),
+                                       r->rows_per_record(), r->hot_levels(), r->chunk_levels(),
+                                       r->record_size(), b.CreateVectorOfStructs(refs)));
+  };
+  for (const fb::RecordSet* r : *h->record_sets()) {
+    if (static_cast<int>(r->layer()) == decoy_for_layer) copy_set(r, 1);
+  }
+  for (const fb::RecordSet* r : *h->record_sets()) copy_set(r, r->records()->size());
+  auto sets_vec = b.CreateVector(sets);
+  fb::FinishHeaderBuffer(
+      b, fb::CreateHeader(b, cfg, json, producer, sections_vec, tensors_vec, sets_vec));
+  // The new header must end before the first section, where the data starts.
+  EXPECT_LE(pre->header_offset + b.GetSize(), h->sections()->Get(0)->offset());
+  format::Preamble p = *pre;
+  p.header_size = b.GetSize();
+  p.header_crc32 = format::Crc32(b.GetBufferPointer(), b.GetSize());
+  std::string out = bytes;
+  format::EncodePreamble(p, reinterpret_cast<uint8_t*>(out.data()));
+  std::memcpy(out.data() + p.header_offset, b.GetBufferPointer(), b.GetSize());
+  return out;
+}
+
+TEST_F(LoaderTest, ASecondRecordSetForALayerIsRefused) {
+  auto file = format::ModelFile::Open(dir_.File("m.sprig"));
+  ASSERT_TRUE(file.ok()) << file.status().message();
+  const ModelConfig config = (*file)->config();
+  file->reset();
+  // Control: the header built again without a decoy opens and runs.
+  const std::string path = dir_.File("rebuilt.sprig");
+  testing::WriteFile(path, RebuiltFile(bytes_, config, -1));
+  auto m = Model::open(path);
+  ASSERT_TRUE(m.ok()) << m.status().message();
+  auto session = Session::create(*m);
+  ASSERT_TRUE(session.ok());
+  std::vector<float> x(16, 0.5f), y(4);
+  ASSERT_TRUE((*session)->forward(x.data(), 1, y.data()).ok());
+  // A decoy set for the path tree (layer 1), listed before the set its tensors use: the layer
+  // would be bound to the decoy, whose one record sizes its touched-records log.
+  const std::string decoy = OpenBytes(RebuiltFile(bytes_, config, 1));
+  EXPECT_NE(decoy.find("second record set of layer 1"), std::string::npos) << decoy;
+  // The same for the leaf tree (layer 0) and the experts (layer 2).
+  EXPECT_NE(OpenBytes(RebuiltFile(bytes_, config, 0)).find("second record set of layer 0"),
+            std::string::npos);
+  EXPECT_NE(OpenBytes(RebuiltFile(bytes_, config, 2)).find("second record set of layer 2"),
+            std::string::npos);
 }
 
 TEST_F(LoaderTest, InspectOfABadFileExitsTwo) {

@@ -218,6 +218,14 @@ Status ModelFile::Index(const std::string& src) {
                                   " names a layer or section that does not "
                                   "exist");
       }
+      // One record set per layer: layers find theirs by layer index, so a second one could
+      // hand a layer a set other than the one its tensors are stored in.
+      for (const RecordSetInfo& earlier : record_sets_) {
+        if (earlier.layer == rs.layer) {
+          return Status::Corruption(src + ": " + which + " is a second record set of layer " +
+                                    Num(rs.layer));
+        }
+      }
       const LayerConfig& layer = config_.layers[rs.layer];
       if (r->row_map() == fb::RowMap::Subtree) {
         if (layer.kind != LayerKind::kTree || layer.mode != TreeMode::kPath) {

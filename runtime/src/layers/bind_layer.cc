@@ -27,10 +27,10 @@ Result<std::unique_ptr<FeedForward>> BindLayer(const format::ModelFile& file, si
                                                const std::string& prefix) {
   SPRIG_ASSIGN_OR_RETURN(auto layer, BindKind(file, index, prefix));
   // All of a routed layer's tensors share one record set (one record per leaf, expert or
-  // path-tree chunk).
+  // path-tree chunk); the loader allows at most one per layer.
   const format::RecordSetInfo* records = nullptr;
   for (const format::RecordSetInfo& rs : file.record_sets()) {
-    if (rs.layer == index && records == nullptr) records = &rs;
+    if (rs.layer == index) records = &rs;
   }
   layer->SetRecords(index, records);
   return layer;

@@ -95,7 +95,7 @@ class FeedForward {
   // path-tree node) in exec.touched; hot rows live in no record.
   void Touch(const Exec& exec, uint64_t row) const {
     if (exec.touched == nullptr || records_ == nullptr || row < records_->map.hot_rows) return;
-    exec.touched->Mark(index_, format::LocateRow(records_->map, row).record);
+    TouchRecord(exec, format::LocateRow(records_->map, row).record);
   }
   // The same for a row whose record the caller has located already.
   void TouchRecord(const Exec& exec, uint64_t record) const {

@@ -81,9 +81,6 @@ class PathTreeLayer final : public FeedForward {
   // nodes.weight, nodes.bias and nodes.out share hot rows and records (as the packer writes
   // them), so Locate finds a neuron's record once for all three.
   bool shared_location_ = false;
-  // For Locate: where the records are (the record set of nodes.weight), looked up once.
-  const uint8_t* file_base_ = nullptr;
-  const format::RecordSetInfo* node_records_ = nullptr;
 };
 
 // Top-k mixture of experts with a softmax router.

@@ -26,25 +26,21 @@ PathTreeLayer::PathTreeLayer(const Binder& b, const LayerConfig& c) : binder_(b)
            (t->record_set == weight_->record_set && t->hot_rows == weight_->hot_rows);
   };
   shared_location_ = same_place(bias_) && same_place(out_rows_);
-  file_base_ = b.file().base();
-  if (weight_->record_set >= 0 &&
-      static_cast<size_t>(weight_->record_set) < b.file().record_sets().size()) {
-    node_records_ = &b.file().record_sets()[weight_->record_set];
-  }
 }
 
 PathTreeLayer::Neuron PathTreeLayer::Locate(uint64_t node) const {
   // The routed tensors (nodes.weight, nodes.bias, nodes.out) have the same rows, hot rows and
   // record set (checked at open), so one location serves all of them: the ModelFile::Row
-  // arithmetic, done once per neuron instead of once per tensor.
+  // arithmetic, done once per neuron instead of once per tensor. Their record set is the
+  // layer's (a layer has one).
   if (!shared_location_) return LocateEach(node);
   Neuron n;
   const uint8_t* record = nullptr;
   uint64_t local = node;
   if (node >= weight_->hot_rows) {
-    const format::RowLocation loc = format::LocateRow(node_records_->map, node);
+    const format::RowLocation loc = format::LocateRow(records()->map, node);
     n.record = loc.record;
-    record = file_base_ + node_records_->offsets[loc.record];
+    record = binder_.file().base() + records()->offsets[loc.record];
     local = loc.local_row;
   }
   auto at = [&](const uint8_t* hot, uint64_t part_offset, uint64_t row_bytes) {
