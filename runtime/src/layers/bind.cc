@@ -1,9 +1,5 @@
 #include "layers/bind.h"
 
-#include <algorithm>
-
-#include "layers/thread_pool.h"
-
 namespace sprig::layers {
 
 MatrixView Binder::Matrix(const format::TensorInfo* t) const {
@@ -69,18 +65,6 @@ MlpView MlpOf(const Binder& b, const MlpTensors& t, uint64_t unit, const LayerCo
     m.fc2_bias = b.FloatRow(t.fc2_bias, 0);
   }
   return m;
-}
-
-size_t Exec::threads() const {
-  return pool ? pool->size() : 1;
-}
-
-void Exec::ParallelFor(size_t count, const std::function<void(size_t, Scratch&)>& fn) const {
-  if (pool == nullptr || count <= 1) {
-    for (size_t t = 0; t < count; ++t) fn(t, (*scratch)[0]);
-    return;
-  }
-  pool->Run(count, [&](size_t task, size_t worker) { fn(task, (*scratch)[worker]); });
 }
 
 }  // namespace sprig::layers

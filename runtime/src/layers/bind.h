@@ -3,13 +3,10 @@
 
 #include <string>
 
+#include "format/model_file.h"
 #include "layers/mlp.h"
 
 namespace sprig::layers {
-
-// Rows are split between threads in chunks that are multiples of this, so that every row lands
-// in the same register block of the matrix kernels whatever the thread count.
-inline constexpr size_t kRowChunk = 16;
 
 class Binder {
  public:

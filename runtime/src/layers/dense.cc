@@ -15,7 +15,7 @@ void DenseLayer::Forward(const Exec& e, const float* x, size_t rows, float* y, i
     MlpForward(*e.k, mlp_, x, rows, y, (*e.scratch)[0], true);
     return;
   }
-  // Split rows into chunks that are multiples of kRowChunk (see bind.h).
+  // Split rows into chunks that are multiples of kRowChunk (see exec.h).
   const size_t per_thread = (rows + e.threads() - 1) / e.threads();
   const size_t chunk = (per_thread + kRowChunk - 1) / kRowChunk * kRowChunk;
   const size_t tasks = (rows + chunk - 1) / chunk;

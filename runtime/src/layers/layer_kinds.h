@@ -4,6 +4,7 @@
 #pragma once
 
 #include "layers/bind.h"
+#include "layers/feed_forward.h"
 
 namespace sprig::layers {
 

@@ -2,7 +2,12 @@
 // y = fc2 h + b2. Leaves and experts are MLPs whose weights live in one record.
 #pragma once
 
-#include "layers/feed_forward.h"
+#include <cstddef>
+
+#include "kernels/kernels.h"
+#include "layers/exec.h"
+#include "layers/matrix_view.h"
+#include "sprig/config.h"
 
 namespace sprig::layers {
 
