@@ -1,5 +1,4 @@
 // Dense feed-forward layer: the MLP over every row.
-#include "layers/bind.h"
 #include "layers/layer_kinds.h"
 
 namespace sprig::layers {

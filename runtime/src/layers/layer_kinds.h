@@ -3,8 +3,9 @@
 // executable form the tests compare against.
 #pragma once
 
-#include "layers/bind.h"
+#include "layers/binder.h"
 #include "layers/feed_forward.h"
+#include "layers/mlp.h"
 
 namespace sprig::layers {
 

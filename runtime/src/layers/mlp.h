@@ -1,10 +1,15 @@
 // The MLP every layer kind is built from: h = act(fc1 x + b1) (⊙ (gate…) when gated),
-// y = fc2 h + b2. Leaves and experts are MLPs whose weights live in one record.
+// y = fc2 h + b2. Leaves and experts are MLPs whose weights live in one record. Here: finding a
+// layer's MLP tensors, viewing one unit's MLP, running it.
 #pragma once
 
 #include <cstddef>
+#include <cstdint>
+#include <string>
 
+#include "format/model_file.h"
 #include "kernels/kernels.h"
+#include "layers/binder.h"
 #include "layers/exec.h"
 #include "layers/matrix_view.h"
 #include "sprig/config.h"
@@ -19,6 +24,17 @@ struct MlpView {
   Activation activation = Activation::kRelu;
   size_t width = 0, in = 0, out = 0;
 };
+
+// The MLP of unit `unit` of a routed layer whose tensors are named `<group>.fc1.weight` etc.
+// (group "leaves" or "experts"), or of a dense layer when `group` is empty (unit ignored).
+struct MlpTensors {
+  const format::TensorInfo *fc1 = nullptr, *fc1_bias = nullptr, *gate = nullptr,
+                           *gate_bias = nullptr, *fc2 = nullptr, *fc2_bias = nullptr;
+  bool stacked = false;
+};
+MlpTensors FindMlp(const Binder& b, const std::string& group);
+MlpView MlpOf(const Binder& b, const MlpTensors& t, uint64_t unit, const LayerConfig& layer,
+              size_t width);
 
 // y[rows, out] = mlp(x[rows, in]). Uses scratch.a and scratch.b. `vector_kernels` picks the
 // matrix-vector kernels (only for calls of one row: the two kernel families round

@@ -4,7 +4,7 @@
 #include <algorithm>
 #include <cstring>
 
-#include "layers/bind.h"
+#include "layers/binder.h"
 
 namespace sprig::transformer {
 namespace {

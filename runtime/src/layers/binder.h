@@ -1,10 +1,12 @@
-// Helpers for binding layers to tensors of a mapped file.
+// Finds a layer's tensors in a mapped model file and views them as matrices and rows.
 #pragma once
 
+#include <cstdint>
 #include <string>
+#include <utility>
 
 #include "format/model_file.h"
-#include "layers/mlp.h"
+#include "layers/matrix_view.h"
 
 namespace sprig::layers {
 
@@ -28,16 +30,5 @@ class Binder {
   const format::ModelFile& file_;
   std::string prefix_;
 };
-
-// The MLP of unit `unit` of a routed layer whose tensors are named `<group>.fc1.weight` etc.
-// (group "leaves" or "experts"), or of a dense layer when `group` is empty (unit ignored).
-struct MlpTensors {
-  const format::TensorInfo *fc1 = nullptr, *fc1_bias = nullptr, *gate = nullptr,
-                           *gate_bias = nullptr, *fc2 = nullptr, *fc2_bias = nullptr;
-  bool stacked = false;
-};
-MlpTensors FindMlp(const Binder& b, const std::string& group);
-MlpView MlpOf(const Binder& b, const MlpTensors& t, uint64_t unit, const LayerConfig& layer,
-              size_t width);
 
 }  // namespace sprig::layers
