@@ -5,6 +5,7 @@
 
 #include "layers/binder.h"
 #include "layers/feed_forward.h"
+#include "layers/grouping.h"
 #include "layers/mlp.h"
 
 namespace sprig::layers {
@@ -107,20 +108,5 @@ class ExpertsLayer final : public FeedForward {
   const float* router_bias_ = nullptr;
   MlpTensors experts_;
 };
-
-// Orders rows by unit: order[] lists rows grouped by unit (rows ascending within a unit),
-// groups[] the (unit, begin, end) of each non-empty group in unit order.
-struct RowGroup {
-  uint32_t unit, begin, end;
-};
-void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& order,
-                 std::vector<RowGroup>& groups);
-
-// Evaluates each group's unit once over its entries, as a small matrix product: entry `e`
-// (an index from `order`) reads input row e / per_row of x and writes output row e of out.
-// Groups run in parallel; each row's arithmetic is the same whatever the grouping.
-void RunGroups(const Exec& exec, const std::vector<RowGroup>& groups,
-               const std::vector<uint32_t>& order, size_t per_row, const float* x, size_t in,
-               float* out, size_t out_width, const std::function<MlpView(uint32_t)>& unit);
 
 }  // namespace sprig::layers
