@@ -1,4 +1,15 @@
-#include "layers/layer_kinds.h"
+#include <memory>
+#include <string>
+
+#include "format/model_file.h"
+#include "layers/binder.h"
+#include "layers/dense.h"
+#include "layers/experts.h"
+#include "layers/feed_forward.h"
+#include "layers/leaf_tree.h"
+#include "layers/path_tree.h"
+#include "sprig/config.h"
+#include "sprig/status.h"
 
 namespace sprig::layers {
 

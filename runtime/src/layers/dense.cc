@@ -1,5 +1,9 @@
-// Dense feed-forward layer: the MLP over every row.
-#include "layers/layer_kinds.h"
+#include "layers/dense.h"
+
+#include <algorithm>
+
+#include "layers/exec.h"
+#include "layers/mlp.h"
 
 namespace sprig::layers {
 

@@ -1,9 +1,12 @@
-// Top-k experts: softmax router, the k most probable experts, their outputs mixed.
-#include <algorithm>
-#include <cstring>
-#include <numeric>
+#include "layers/experts.h"
 
-#include "layers/layer_kinds.h"
+#include <algorithm>
+#include <numeric>
+#include <vector>
+
+#include "layers/exec.h"
+#include "layers/grouping.h"
+#include "layers/mlp.h"
 
 namespace sprig::layers {
 

@@ -1,7 +1,11 @@
-// Tree in leaf mode: d node decisions, then one leaf MLP.
-#include <algorithm>
+#include "layers/leaf_tree.h"
 
-#include "layers/layer_kinds.h"
+#include <algorithm>
+#include <vector>
+
+#include "layers/exec.h"
+#include "layers/grouping.h"
+#include "layers/mlp.h"
 
 namespace sprig::layers {
 

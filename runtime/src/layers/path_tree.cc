@@ -1,9 +1,12 @@
-// Tree in path mode: the d + 1 neurons on the root-to-leaf path each add act(a)·out[n].
+#include "layers/path_tree.h"
+
 #include <algorithm>
 #include <cstring>
 #include <utility>
+#include <vector>
 
-#include "layers/layer_kinds.h"
+#include "format/row_map.h"
+#include "layers/exec.h"
 #include "model/config_check.h"
 
 namespace sprig::layers {
