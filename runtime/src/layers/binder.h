@@ -19,11 +19,11 @@ class Binder {
     return file_.Find(prefix_ + name);
   }
   // A 2-D hot tensor as a matrix.
-  MatrixView Matrix(const format::TensorInfo* t) const;
+  MatrixView Matrix(const format::TensorInfo* tensor) const;
   // Unit `unit` of a stacked [units, rows, cols] tensor.
-  MatrixView UnitMatrix(const format::TensorInfo* t, uint64_t unit) const;
-  // Row `row` of a float32 tensor (biases), or null when t is null.
-  const float* FloatRow(const format::TensorInfo* t, uint64_t row) const;
+  MatrixView UnitMatrix(const format::TensorInfo* tensor, uint64_t unit) const;
+  // Row `row` of a float32 tensor (biases), or null when `tensor` is null.
+  const float* FloatRow(const format::TensorInfo* tensor, uint64_t row) const;
   const format::ModelFile& file() const { return file_; }
 
  private:

@@ -16,8 +16,8 @@ namespace sprig::layers {
 
 class DenseLayer final : public FeedForward {
  public:
-  DenseLayer(const Binder& b, const LayerConfig& c);
-  void Forward(const Exec& e, const float* x, size_t rows, float* y,
+  DenseLayer(const Binder& binder, const LayerConfig& config);
+  void Forward(const Exec& exec, const float* x, size_t rows, float* y,
                int32_t* routes) const override;
 
  private:

@@ -16,11 +16,18 @@ namespace sprig::layers {
 // in the same register block of the matrix kernels whatever the thread count.
 inline constexpr size_t kRowChunk = 16;
 
-// Growable per-thread buffers. Each layer uses the slots it needs; nothing is shared.
+// One thread's buffers, each named for what it holds. A buffer grows to the largest size asked
+// of it and is kept for later calls, so a warm session allocates nothing here. A function that
+// calls another while holding a buffer uses buffers the callee does not (RunGroups calls
+// MlpForward).
 struct Scratch {
-  std::vector<float> a, b, c, d, e;
-  std::vector<uint32_t> index, order, counts;
-  std::vector<int32_t> choice;
+  std::vector<float> hidden;  // MlpForward: act(fc1 x + b1), [rows, width]
+  std::vector<float> gate;    // MlpForward, gated: gate x + b, [rows, width]
+  // RunGroups: one group's input rows, gathered, [rows, in]. The transformer's attention also
+  // keeps one (sequence, head)'s scores here; it never runs inside a layer.
+  std::vector<float> c;
+  std::vector<float> group_output;   // RunGroups: one group's output rows, [rows, out]
+  std::vector<float> expert_output;  // ExpertsLayer, single row: one expert's output, [out]
 };
 
 class ThreadPool;
@@ -37,8 +44,8 @@ struct Exec {
   TouchLog* touched = nullptr;
 
   size_t threads() const;
-  // fn(task, scratch) for task < count, spread over the pool.
-  void ParallelFor(size_t count, const std::function<void(size_t, Scratch&)>& fn) const;
+  // body(task, scratch) for task < count, spread over the pool.
+  void ParallelFor(size_t count, const std::function<void(size_t, Scratch&)>& body) const;
 };
 
 }  // namespace sprig::layers

@@ -19,8 +19,8 @@ namespace sprig::layers {
 // Top-k mixture of experts with a softmax router.
 class ExpertsLayer final : public FeedForward {
  public:
-  ExpertsLayer(const Binder& b, const LayerConfig& c);
-  void Forward(const Exec& e, const float* x, size_t rows, float* y,
+  ExpertsLayer(const Binder& binder, const LayerConfig& config);
+  void Forward(const Exec& exec, const float* x, size_t rows, float* y,
                int32_t* routes) const override;
   size_t route_width() const override { return config_.top_k; }
   uint64_t unit_count() const override { return config_.experts; }
@@ -30,7 +30,9 @@ class ExpertsLayer final : public FeedForward {
   // writes indices and mixing weights in descending weight order, ties to the lower index.
   void Choose(const kernels::KernelTable& k, float* logits, int32_t* chosen, float* weights) const;
   static constexpr size_t kMaxExpertsOnStack = 256;
-  MlpView Expert(uint64_t j) const { return MlpOf(binder_, experts_, j, config_, config_.width); }
+  MlpView Expert(uint64_t expert) const {
+    return MlpOf(binder_, experts_, expert, config_, config_.width);
+  }
 
   Binder binder_;
   LayerConfig config_;

@@ -20,21 +20,25 @@ void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& o
   }
 }
 
-void RunGroups(const Exec& e, const std::vector<RowGroup>& groups,
+void RunGroups(const Exec& exec, const std::vector<RowGroup>& groups,
                const std::vector<uint32_t>& order, size_t per_row, const float* x, size_t in,
                float* out, size_t out_width, const std::function<MlpView(uint32_t)>& unit) {
-  e.ParallelFor(groups.size(), [&](size_t gi, Scratch& s) {
-    const RowGroup& g = groups[gi];
-    const size_t n = g.end - g.begin;
-    if (s.c.size() < n * in) s.c.resize(n * in);
-    if (s.d.size() < n * out_width) s.d.resize(n * out_width);
-    for (size_t i = 0; i < n; ++i) {
-      const size_t row = order[g.begin + i] / per_row;
-      std::memcpy(s.c.data() + i * in, x + row * in, in * sizeof(float));
+  exec.ParallelFor(groups.size(), [&](size_t task, Scratch& scratch) {
+    const RowGroup& group = groups[task];
+    const size_t count = group.end - group.begin;
+    if (scratch.c.size() < count * in) scratch.c.resize(count * in);
+    if (scratch.group_output.size() < count * out_width) {
+      scratch.group_output.resize(count * out_width);
     }
-    MlpForward(*e.k, unit(g.unit), s.c.data(), n, s.d.data(), s, false);
-    for (size_t i = 0; i < n; ++i) {
-      std::memcpy(out + order[g.begin + i] * out_width, s.d.data() + i * out_width,
+    float* input = scratch.c.data();
+    float* output = scratch.group_output.data();
+    for (size_t i = 0; i < count; ++i) {
+      const size_t row = order[group.begin + i] / per_row;
+      std::memcpy(input + i * in, x + row * in, in * sizeof(float));
+    }
+    MlpForward(*exec.k, unit(group.unit), input, count, output, scratch, false);
+    for (size_t i = 0; i < count; ++i) {
+      std::memcpy(out + order[group.begin + i] * out_width, output + i * out_width,
                   out_width * sizeof(float));
     }
   });

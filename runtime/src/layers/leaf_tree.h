@@ -19,8 +19,8 @@ namespace sprig::layers {
 // Hard descent to one leaf MLP (fast feedforward inference).
 class LeafTreeLayer final : public FeedForward {
  public:
-  LeafTreeLayer(const Binder& b, const LayerConfig& c);
-  void Forward(const Exec& e, const float* x, size_t rows, float* y,
+  LeafTreeLayer(const Binder& binder, const LayerConfig& config);
+  void Forward(const Exec& exec, const float* x, size_t rows, float* y,
                int32_t* routes) const override;
   size_t route_width() const override { return 1; }
   uint64_t unit_count() const override { return uint64_t{1} << config_.depth; }

@@ -32,11 +32,11 @@ struct MlpTensors {
                            *gate_bias = nullptr, *fc2 = nullptr, *fc2_bias = nullptr;
   bool stacked = false;
 };
-MlpTensors FindMlp(const Binder& b, const std::string& group);
-MlpView MlpOf(const Binder& b, const MlpTensors& t, uint64_t unit, const LayerConfig& layer,
-              size_t width);
+MlpTensors FindMlp(const Binder& binder, const std::string& group);
+MlpView MlpOf(const Binder& binder, const MlpTensors& tensors, uint64_t unit,
+              const LayerConfig& layer, size_t width);
 
-// y[rows, out] = mlp(x[rows, in]). Uses scratch.a and scratch.b. `vector_kernels` picks the
+// y[rows, out] = mlp(x[rows, in]). Uses scratch.hidden and scratch.gate. `vector_kernels` picks the
 // matrix-vector kernels (only for calls of one row: the two kernel families round
 // differently, and a row's result must not depend on how its batch was split).
 void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* x, size_t rows,

@@ -18,8 +18,8 @@ namespace sprig::layers {
 // Every neuron on the root-to-leaf path contributes (conditional matrix multiplication form).
 class PathTreeLayer final : public FeedForward {
  public:
-  PathTreeLayer(const Binder& b, const LayerConfig& c);
-  void Forward(const Exec& e, const float* x, size_t rows, float* y,
+  PathTreeLayer(const Binder& binder, const LayerConfig& config);
+  void Forward(const Exec& exec, const float* x, size_t rows, float* y,
                int32_t* routes) const override;
   size_t route_width() const override { return 1; }
   uint64_t unit_count() const override { return uint64_t{1} << config_.depth; }
@@ -39,13 +39,13 @@ class PathTreeLayer final : public FeedForward {
   Neuron Locate(uint64_t node) const;
   Neuron LocateEach(uint64_t node) const;
   // The pre-activation w·x + b of a neuron.
-  float Logit(const kernels::KernelTable& k, const Neuron& n, const float* x) const;
+  float Logit(const kernels::KernelTable& k, const Neuron& neuron, const float* x) const;
   // y += act(a)·out.
-  void AddOutput(const kernels::KernelTable& k, const Neuron& n, float a, float* y) const;
+  void AddOutput(const kernels::KernelTable& k, const Neuron& neuron, float a, float* y) const;
   // Starts loading a neuron's weight row, or its output row (both with their scales).
-  void PrefetchWeight(const Neuron& n) const;
-  void PrefetchOut(const Neuron& n) const;
-  void ForwardOne(const kernels::KernelTable& k, const Exec& e, const float* x, float* y,
+  void PrefetchWeight(const Neuron& neuron) const;
+  void PrefetchOut(const Neuron& neuron) const;
+  void ForwardOne(const kernels::KernelTable& k, const Exec& exec, const float* x, float* y,
                   int32_t* routes) const;
 
   Binder binder_;
