@@ -1,4 +1,5 @@
-// Feed-forward layers bound to a mapped model file: dense, tree (leaf and path mode), experts.
+// The interface of a feed-forward layer bound to a mapped model file (the kinds: dense, tree in
+// leaf or path mode, experts), and the function that binds one.
 //
 // A layer holds pointers into the file's mapping and its dimensions; it is immutable and shared
 // by every session. All per-call memory comes from the caller's Scratch, so one layer can run
@@ -7,64 +8,15 @@
 
 #include <cstddef>
 #include <cstdint>
-#include <functional>
 #include <memory>
-#include <vector>
+#include <string>
 
 #include "format/model_file.h"
-#include "kernels/kernels.h"
-#include "sprig/config.h"
+#include "layers/exec.h"
+#include "layers/touch_log.h"
 #include "sprig/status.h"
 
 namespace sprig::layers {
-
-// A weight matrix (or a stack of rows) in the file: row i starts at row(i). An i8 matrix has
-// one float32 scale per row, row i's at scales[i] (null for the other types).
-struct MatrixView {
-  DType type = DType::kF32;
-  const uint8_t* data = nullptr;
-  const float* scales = nullptr;
-  uint64_t rows = 0, cols = 0, row_bytes = 0;
-  const void* row(uint64_t i) const { return data + i * row_bytes; }
-  const float* row_scales(uint64_t i) const { return scales ? scales + i : nullptr; }
-};
-
-// Growable per-thread buffers. Each layer uses the slots it needs; nothing is shared.
-struct Scratch {
-  std::vector<float> a, b, c, d, e;
-  std::vector<uint32_t> index, order, counts;
-  std::vector<int32_t> choice;
-};
-
-class ThreadPool;
-
-// The records a session has read: one bitset per model layer (bit i of word i / 64 is record
-// i), empty for layers without records. Layers mark records on the calling thread only, before
-// or after their parallel parts, so no synchronisation is needed and the result is the same
-// for any thread count.
-struct TouchLog {
-  std::vector<std::vector<uint64_t>> bits;
-  void Mark(size_t layer, uint64_t record) {
-    bits[layer][record / 64] |= uint64_t{1} << (record % 64);
-  }
-};
-
-// How a call runs: kernels, threads and their scratch. Results never depend on the number of
-// threads: work is split only where a row's arithmetic is the same wherever it runs.
-struct Exec {
-  const kernels::KernelTable* k = nullptr;
-  ThreadPool* pool = nullptr;               // null: the calling thread only
-  std::vector<Scratch>* scratch = nullptr;  // one per thread of the pool (at least one)
-  // The call is for a single row: layers use matrix-vector kernels and prefetch the records
-  // they are about to touch. (Batches use matrix-matrix kernels, grouped by record.)
-  bool single_row = false;
-  // When not null, layers mark every record they read here.
-  TouchLog* touched = nullptr;
-
-  size_t threads() const;
-  // fn(task, scratch) for task < count, spread over the pool.
-  void ParallelFor(size_t count, const std::function<void(size_t, Scratch&)>& fn) const;
-};
 
 class FeedForward {
  public:
@@ -74,7 +26,7 @@ class FeedForward {
   // descending weight order.
   virtual void Forward(const Exec& exec, const float* x, size_t rows, float* y,
                        int32_t* routes) const = 0;
-  // Ints per row that Forward writes to a RouteSink (0 for a dense layer).
+  // Ints per row that Forward writes to `routes` (0 for a dense layer).
   virtual size_t route_width() const { return 0; }
   // Records a layer has (leaves, experts); 0 when it has none.
   virtual uint64_t unit_count() const { return 0; }

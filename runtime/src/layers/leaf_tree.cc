@@ -1,62 +1,66 @@
-// Tree in leaf mode: d node decisions, then one leaf MLP.
-#include <algorithm>
-#include <cstring>
+#include "layers/leaf_tree.h"
 
-#include "layers/layer_kinds.h"
+#include <algorithm>
+#include <vector>
+
+#include "layers/exec.h"
+#include "layers/grouping.h"
+#include "layers/mlp.h"
 
 namespace sprig::layers {
 
-LeafTreeLayer::LeafTreeLayer(const Binder& b, const LayerConfig& c) : binder_(b), config_(c) {
-  in_ = c.in;
-  out_ = c.out;
-  if (c.depth > 0) {
-    nodes_ = b.Matrix(b.Find("nodes.weight"));
-    node_bias_ = b.FloatRow(b.Find("nodes.bias"), 0);
+LeafTreeLayer::LeafTreeLayer(const Binder& binder, const LayerConfig& config)
+    : binder_(binder), config_(config) {
+  in_ = config.in;
+  out_ = config.out;
+  if (config.depth > 0) {
+    nodes_ = binder.Matrix(binder.Find("nodes.weight"));
+    node_bias_ = binder.FloatRow(binder.Find("nodes.bias"), 0);
   }
-  leaves_ = FindMlp(b, "leaves");
+  leaves_ = FindMlp(binder, "leaves");
 }
 
 uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
                                 bool prefetch) const {
-  uint64_t n = 0;
+  uint64_t node = 0;
   const uint64_t first_leaf = (uint64_t{1} << config_.depth) - 1;
   for (uint32_t level = 0; level < config_.depth; ++level) {
     if (prefetch) {
       // While this node's dot product runs, start loading whichever comes next: both child
       // nodes, or at the last level both candidate leaves.
       if (level + 1 == config_.depth) {
-        PrefetchMlp(Leaf(2 * n + 1 - first_leaf));
-        PrefetchMlp(Leaf(2 * n + 2 - first_leaf));
+        PrefetchMlp(Leaf(2 * node + 1 - first_leaf));
+        PrefetchMlp(Leaf(2 * node + 2 - first_leaf));
       } else {
-        __builtin_prefetch(nodes_.row(2 * n + 1), 0, 1);
-        __builtin_prefetch(nodes_.row(2 * n + 2), 0, 1);
+        __builtin_prefetch(nodes_.row(2 * node + 1), 0, 1);
+        __builtin_prefetch(nodes_.row(2 * node + 2), 0, 1);
       }
     }
-    const float logit = kernels::Dot(k, nodes_.type, x, nodes_.row(n), in_, nodes_.row_scales(n)) +
-                        (node_bias_ ? node_bias_[n] : 0.0f);
+    const float logit =
+        kernels::Dot(k, nodes_.type, x, nodes_.row(node), in_, nodes_.row_scales(node)) +
+        (node_bias_ ? node_bias_[node] : 0.0f);
     // A logit of exactly 0 (or NaN) goes left.
-    n = 2 * n + 1 + (logit > 0.0f ? 1 : 0);
+    node = 2 * node + 1 + (logit > 0.0f ? 1 : 0);
   }
-  return static_cast<uint32_t>(n - first_leaf);
+  return static_cast<uint32_t>(node - first_leaf);
 }
 
-void LeafTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y,
+void LeafTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float* y,
                             int32_t* routes) const {
-  const kernels::KernelTable& k = *e.k;
-  Scratch& s0 = (*e.scratch)[0];
-  if (e.single_row) {
+  const kernels::KernelTable& k = *exec.k;
+  if (exec.single_row) {
     const uint32_t leaf = Descend(k, x, true);
     if (routes) routes[0] = static_cast<int32_t>(leaf);
-    Touch(e, leaf);
-    MlpForward(k, Leaf(leaf), x, 1, y, s0, true);
+    Touch(exec, leaf);
+    MlpForward(k, Leaf(leaf), x, 1, y, (*exec.scratch)[0], true);
     return;
   }
   // Descend every row (rows are independent), then evaluate each touched leaf once over the
   // rows routed to it, as a small matrix product.
   std::vector<uint32_t> leaf_of(rows);
   const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
-  e.ParallelFor(chunks, [&](size_t c, Scratch&) {
-    for (size_t r = c * kRowChunk; r < std::min(rows, (c + 1) * kRowChunk); ++r) {
+  exec.ParallelFor(chunks, [&](size_t chunk, Scratch&) {
+    for (size_t r = chunk * kRowChunk; r < std::min(rows, (chunk + 1) * kRowChunk); ++r) {
       leaf_of[r] = Descend(k, x + r * in_, false);
     }
   });
@@ -66,47 +70,8 @@ void LeafTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y
   std::vector<uint32_t> order;
   std::vector<RowGroup> groups;
   GroupByUnit(leaf_of.data(), rows, order, groups);
-  for (const RowGroup& g : groups) Touch(e, g.unit);
-  RunGroups(e, groups, order, 1, x, in_, y, out_, [this](uint32_t leaf) { return Leaf(leaf); });
-}
-
-void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& order,
-                 std::vector<RowGroup>& groups) {
-  order.resize(count);
-  for (size_t i = 0; i < count; ++i) order[i] = static_cast<uint32_t>(i);
-  std::stable_sort(order.begin(), order.end(),
-                   [&](uint32_t a, uint32_t b) { return unit_of[a] < unit_of[b]; });
-  groups.clear();
-  for (size_t i = 0; i < count;) {
-    size_t j = i;
-    while (j < count && unit_of[order[j]] == unit_of[order[i]]) ++j;
-    groups.push_back({unit_of[order[i]], static_cast<uint32_t>(i), static_cast<uint32_t>(j)});
-    i = j;
-  }
-}
-
-}  // namespace sprig::layers
-
-namespace sprig::layers {
-
-void RunGroups(const Exec& e, const std::vector<RowGroup>& groups,
-               const std::vector<uint32_t>& order, size_t per_row, const float* x, size_t in,
-               float* out, size_t out_width, const std::function<MlpView(uint32_t)>& unit) {
-  e.ParallelFor(groups.size(), [&](size_t gi, Scratch& s) {
-    const RowGroup& g = groups[gi];
-    const size_t n = g.end - g.begin;
-    if (s.c.size() < n * in) s.c.resize(n * in);
-    if (s.d.size() < n * out_width) s.d.resize(n * out_width);
-    for (size_t i = 0; i < n; ++i) {
-      const size_t row = order[g.begin + i] / per_row;
-      std::memcpy(s.c.data() + i * in, x + row * in, in * sizeof(float));
-    }
-    MlpForward(*e.k, unit(g.unit), s.c.data(), n, s.d.data(), s, false);
-    for (size_t i = 0; i < n; ++i) {
-      std::memcpy(out + order[g.begin + i] * out_width, s.d.data() + i * out_width,
-                  out_width * sizeof(float));
-    }
-  });
+  for (const RowGroup& group : groups) Touch(exec, group.unit);
+  RunGroups(exec, groups, order, 1, x, in_, y, out_, [this](uint32_t leaf) { return Leaf(leaf); });
 }
 
 }  // namespace sprig::layers

@@ -14,29 +14,67 @@ void Project(const kernels::KernelTable& k, const MatrixView& w, const float* x,
 
 }  // namespace
 
-void MlpForward(const kernels::KernelTable& k, const MlpView& m, const float* x, size_t rows,
-                float* y, Scratch& s, bool vk) {
-  const size_t hidden = rows * m.width;
-  if (s.a.size() < hidden) s.a.resize(hidden);
-  float* h = s.a.data();
-  Project(k, m.fc1, x, m.fc1_bias, h, rows, vk);
-  if (m.gate.data != nullptr) {
-    if (s.b.size() < hidden) s.b.resize(hidden);
-    float* g = s.b.data();
-    Project(k, m.gate, x, m.gate_bias, g, rows, vk);
-    k.gated_activate(m.activation, g, h, h, hidden);
-  } else {
-    k.activate(m.activation, h, hidden);
-  }
-  Project(k, m.fc2, h, m.fc2_bias, y, rows, vk);
+MlpTensors FindMlp(const Binder& binder, const std::string& group) {
+  const std::string prefix = group.empty() ? "" : group + ".";
+  MlpTensors tensors;
+  tensors.fc1 = binder.Find(prefix + "fc1.weight");
+  tensors.fc1_bias = binder.Find(prefix + "fc1.bias");
+  tensors.gate = binder.Find(prefix + "gate.weight");
+  tensors.gate_bias = binder.Find(prefix + "gate.bias");
+  tensors.fc2 = binder.Find(prefix + "fc2.weight");
+  tensors.fc2_bias = binder.Find(prefix + "fc2.bias");
+  tensors.stacked = !group.empty();
+  return tensors;
 }
 
-void PrefetchMlp(const MlpView& m) {
+MlpView MlpOf(const Binder& binder, const MlpTensors& tensors, uint64_t unit,
+              const LayerConfig& layer, size_t width) {
+  MlpView mlp;
+  mlp.activation = layer.activation;
+  mlp.width = width;
+  mlp.in = layer.in;
+  mlp.out = layer.out;
+  if (tensors.stacked) {
+    mlp.fc1 = binder.UnitMatrix(tensors.fc1, unit);
+    mlp.fc2 = binder.UnitMatrix(tensors.fc2, unit);
+    if (tensors.gate) mlp.gate = binder.UnitMatrix(tensors.gate, unit);
+    mlp.fc1_bias = binder.FloatRow(tensors.fc1_bias, unit);
+    mlp.gate_bias = binder.FloatRow(tensors.gate_bias, unit);
+    mlp.fc2_bias = binder.FloatRow(tensors.fc2_bias, unit);
+  } else {
+    mlp.fc1 = binder.Matrix(tensors.fc1);
+    mlp.fc2 = binder.Matrix(tensors.fc2);
+    if (tensors.gate) mlp.gate = binder.Matrix(tensors.gate);
+    mlp.fc1_bias = binder.FloatRow(tensors.fc1_bias, 0);
+    mlp.gate_bias = binder.FloatRow(tensors.gate_bias, 0);
+    mlp.fc2_bias = binder.FloatRow(tensors.fc2_bias, 0);
+  }
+  return mlp;
+}
+
+void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* x, size_t rows,
+                float* y, Scratch& scratch, bool vector_kernels) {
+  const size_t size = rows * mlp.width;
+  if (scratch.hidden.size() < size) scratch.hidden.resize(size);
+  float* hidden = scratch.hidden.data();
+  Project(k, mlp.fc1, x, mlp.fc1_bias, hidden, rows, vector_kernels);
+  if (mlp.gate.data != nullptr) {
+    if (scratch.gate.size() < size) scratch.gate.resize(size);
+    float* gate = scratch.gate.data();
+    Project(k, mlp.gate, x, mlp.gate_bias, gate, rows, vector_kernels);
+    k.gated_activate(mlp.activation, gate, hidden, hidden, size);
+  } else {
+    k.activate(mlp.activation, hidden, size);
+  }
+  Project(k, mlp.fc2, hidden, mlp.fc2_bias, y, rows, vector_kernels);
+}
+
+void PrefetchMlp(const MlpView& mlp) {
   // A few lines at the start of each matrix: enough for the hardware prefetcher to take over
   // the sequential stream while the current node's dot product finishes.
-  for (const MatrixView* w : {&m.fc1, &m.gate, &m.fc2}) {
-    if (w->data == nullptr) continue;
-    for (int line = 0; line < 4; ++line) __builtin_prefetch(w->data + 64 * line, 0, 1);
+  for (const MatrixView* matrix : {&mlp.fc1, &mlp.gate, &mlp.fc2}) {
+    if (matrix->data == nullptr) continue;
+    for (int line = 0; line < 4; ++line) __builtin_prefetch(matrix->data + 64 * line, 0, 1);
   }
 }
 

@@ -1,8 +1,18 @@
 // The MLP every layer kind is built from: h = act(fc1 x + b1) (⊙ (gate…) when gated),
-// y = fc2 h + b2. Leaves and experts are MLPs whose weights live in one record.
+// y = fc2 h + b2. Leaves and experts are MLPs whose weights live in one record. Here: finding a
+// layer's MLP tensors, viewing one unit's MLP, running it.
 #pragma once
 
-#include "layers/feed_forward.h"
+#include <cstddef>
+#include <cstdint>
+#include <string>
+
+#include "format/model_file.h"
+#include "kernels/kernels.h"
+#include "layers/binder.h"
+#include "layers/exec.h"
+#include "layers/matrix_view.h"
+#include "sprig/config.h"
 
 namespace sprig::layers {
 
@@ -15,7 +25,18 @@ struct MlpView {
   size_t width = 0, in = 0, out = 0;
 };
 
-// y[rows, out] = mlp(x[rows, in]). Uses scratch.a and scratch.b. `vector_kernels` picks the
+// The MLP of unit `unit` of a routed layer whose tensors are named `<group>.fc1.weight` etc.
+// (group "leaves" or "experts"), or of a dense layer when `group` is empty (unit ignored).
+struct MlpTensors {
+  const format::TensorInfo *fc1 = nullptr, *fc1_bias = nullptr, *gate = nullptr,
+                           *gate_bias = nullptr, *fc2 = nullptr, *fc2_bias = nullptr;
+  bool stacked = false;
+};
+MlpTensors FindMlp(const Binder& binder, const std::string& group);
+MlpView MlpOf(const Binder& binder, const MlpTensors& tensors, uint64_t unit,
+              const LayerConfig& layer, size_t width);
+
+// y[rows, out] = mlp(x[rows, in]). Uses scratch.hidden and scratch.gate. `vector_kernels` picks the
 // matrix-vector kernels (only for calls of one row: the two kernel families round
 // differently, and a row's result must not depend on how its batch was split).
 void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* x, size_t rows,

@@ -1,9 +1,12 @@
-// Tree in path mode: the d + 1 neurons on the root-to-leaf path each add act(a)·out[n].
+#include "layers/path_tree.h"
+
 #include <algorithm>
 #include <cstring>
 #include <utility>
+#include <vector>
 
-#include "layers/layer_kinds.h"
+#include "format/row_map.h"
+#include "layers/exec.h"
 #include "model/config_check.h"
 
 namespace sprig::layers {
@@ -14,16 +17,17 @@ constexpr size_t kPrefetchRowsAhead = 2;
 
 }  // namespace
 
-PathTreeLayer::PathTreeLayer(const Binder& b, const LayerConfig& c) : binder_(b), config_(c) {
-  in_ = c.in;
-  out_ = c.out;
-  weight_ = b.Find("nodes.weight");
-  bias_ = b.Find("nodes.bias");
-  out_rows_ = b.Find("nodes.out");
-  out_bias_ = b.FloatRow(b.Find("out_bias"), 0);
-  auto same_place = [&](const format::TensorInfo* t) {
-    return t == nullptr ||
-           (t->record_set == weight_->record_set && t->hot_rows == weight_->hot_rows);
+PathTreeLayer::PathTreeLayer(const Binder& binder, const LayerConfig& config)
+    : binder_(binder), config_(config) {
+  in_ = config.in;
+  out_ = config.out;
+  weight_ = binder.Find("nodes.weight");
+  bias_ = binder.Find("nodes.bias");
+  out_rows_ = binder.Find("nodes.out");
+  out_bias_ = binder.FloatRow(binder.Find("out_bias"), 0);
+  auto same_place = [&](const format::TensorInfo* tensor) {
+    return tensor == nullptr ||
+           (tensor->record_set == weight_->record_set && tensor->hot_rows == weight_->hot_rows);
   };
   shared_location_ = same_place(bias_) && same_place(out_rows_);
 }
@@ -34,76 +38,78 @@ PathTreeLayer::Neuron PathTreeLayer::Locate(uint64_t node) const {
   // arithmetic, done once per neuron instead of once per tensor. Their record set is the
   // layer's (a layer has one).
   if (!shared_location_) return LocateEach(node);
-  Neuron n;
+  Neuron neuron;
   const uint8_t* record = nullptr;
   uint64_t local = node;
   if (node >= weight_->hot_rows) {
-    const format::RowLocation loc = format::LocateRow(records()->map, node);
-    n.record = loc.record;
-    record = binder_.file().base() + records()->offsets[loc.record];
-    local = loc.local_row;
+    const format::RowLocation location = format::LocateRow(records()->map, node);
+    neuron.record = location.record;
+    record = binder_.file().base() + records()->offsets[location.record];
+    local = location.local_row;
   }
   auto at = [&](const uint8_t* hot, uint64_t part_offset, uint64_t row_bytes) {
     return record == nullptr ? hot + local * row_bytes : record + part_offset + local * row_bytes;
   };
-  n.weight = at(weight_->hot, weight_->part_offset, weight_->row_bytes);
-  n.out = at(out_rows_->hot, out_rows_->part_offset, out_rows_->row_bytes);
+  neuron.weight = at(weight_->hot, weight_->part_offset, weight_->row_bytes);
+  neuron.out = at(out_rows_->hot, out_rows_->part_offset, out_rows_->row_bytes);
   if (bias_ != nullptr) {
-    n.bias = reinterpret_cast<const float*>(at(bias_->hot, bias_->part_offset, bias_->row_bytes));
+    neuron.bias =
+        reinterpret_cast<const float*>(at(bias_->hot, bias_->part_offset, bias_->row_bytes));
   }
   if (weight_->scale_row_bytes > 0) {
-    n.weight_scale = reinterpret_cast<const float*>(
+    neuron.weight_scale = reinterpret_cast<const float*>(
         at(weight_->scales_hot, weight_->scales_part_offset, weight_->scale_row_bytes));
   }
   if (out_rows_->scale_row_bytes > 0) {
-    n.out_scale = reinterpret_cast<const float*>(
+    neuron.out_scale = reinterpret_cast<const float*>(
         at(out_rows_->scales_hot, out_rows_->scales_part_offset, out_rows_->scale_row_bytes));
   }
-  return n;
+  return neuron;
 }
 
 // The general form, for a file whose routed tensors are stored apart (no packer writes one,
 // but a file is untrusted): each pointer from its own tensor's layout.
 PathTreeLayer::Neuron PathTreeLayer::LocateEach(uint64_t node) const {
-  const format::ModelFile& f = binder_.file();
-  Neuron n;
+  const format::ModelFile& file = binder_.file();
+  Neuron neuron;
   if (records() != nullptr && node >= records()->map.hot_rows) {
-    n.record = format::LocateRow(records()->map, node).record;
+    neuron.record = format::LocateRow(records()->map, node).record;
   }
-  n.weight = f.Row(*weight_, node);
-  n.weight_scale = f.RowScales(*weight_, node);
-  n.out = f.Row(*out_rows_, node);
-  n.out_scale = f.RowScales(*out_rows_, node);
-  if (bias_ != nullptr) n.bias = reinterpret_cast<const float*>(f.Row(*bias_, node));
-  return n;
+  neuron.weight = file.Row(*weight_, node);
+  neuron.weight_scale = file.RowScales(*weight_, node);
+  neuron.out = file.Row(*out_rows_, node);
+  neuron.out_scale = file.RowScales(*out_rows_, node);
+  if (bias_ != nullptr) neuron.bias = reinterpret_cast<const float*>(file.Row(*bias_, node));
+  return neuron;
 }
 
-float PathTreeLayer::Logit(const kernels::KernelTable& k, const Neuron& n, const float* x) const {
-  const float dot = kernels::Dot(k, weight_->dtype, x, n.weight, in_, n.weight_scale);
-  return n.bias != nullptr ? dot + *n.bias : dot;
+float PathTreeLayer::Logit(const kernels::KernelTable& k, const Neuron& neuron,
+                           const float* x) const {
+  const float dot = kernels::Dot(k, weight_->dtype, x, neuron.weight, in_, neuron.weight_scale);
+  return neuron.bias != nullptr ? dot + *neuron.bias : dot;
 }
 
-void PathTreeLayer::AddOutput(const kernels::KernelTable& k, const Neuron& n, float a,
+void PathTreeLayer::AddOutput(const kernels::KernelTable& k, const Neuron& neuron, float a,
                               float* y) const {
   // The kernels' activation, one element: the same value it gives inside a vector, so a row's
   // result does not depend on whether it ran alone (ForwardOne) or in a batch.
   k.activate(config_.activation, &a, 1);
-  kernels::Axpy(k, out_rows_->dtype, a, n.out, y, out_, n.out_scale);
+  kernels::Axpy(k, out_rows_->dtype, a, neuron.out, y, out_, neuron.out_scale);
 }
 
-void PathTreeLayer::PrefetchWeight(const Neuron& n) const {
-  for (uint64_t off = 0; off < weight_->row_bytes; off += 64) {
-    __builtin_prefetch(n.weight + off, 0, 3);
+void PathTreeLayer::PrefetchWeight(const Neuron& neuron) const {
+  for (uint64_t offset = 0; offset < weight_->row_bytes; offset += 64) {
+    __builtin_prefetch(neuron.weight + offset, 0, 3);
   }
-  if (n.weight_scale != nullptr) __builtin_prefetch(n.weight_scale, 0, 3);
-  if (n.bias != nullptr) __builtin_prefetch(n.bias, 0, 3);
+  if (neuron.weight_scale != nullptr) __builtin_prefetch(neuron.weight_scale, 0, 3);
+  if (neuron.bias != nullptr) __builtin_prefetch(neuron.bias, 0, 3);
 }
 
-void PathTreeLayer::PrefetchOut(const Neuron& n) const {
-  for (uint64_t off = 0; off < out_rows_->row_bytes; off += 64) {
-    __builtin_prefetch(n.out + off, 0, 3);
+void PathTreeLayer::PrefetchOut(const Neuron& neuron) const {
+  for (uint64_t offset = 0; offset < out_rows_->row_bytes; offset += 64) {
+    __builtin_prefetch(neuron.out + offset, 0, 3);
   }
-  if (n.out_scale != nullptr) __builtin_prefetch(n.out_scale, 0, 3);
+  if (neuron.out_scale != nullptr) __builtin_prefetch(neuron.out_scale, 0, 3);
 }
 
 // One row, in two phases. The descent: each level's latency is a load of the neuron's weight
@@ -117,30 +123,30 @@ void PathTreeLayer::PrefetchOut(const Neuron& n) const {
 // Then the sum: all the path's activations in one vector call, and all its output rows added
 // to y in one pass (axpy_rows), by which time the output rows have arrived. With the output rows
 // out of the descent, its critical path is the weight rows alone.
-void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& e, const float* x,
+void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& exec, const float* x,
                                float* y, int32_t* routes) const {
   const uint32_t depth = config_.depth;
   Neuron path[kMaxPathDepth + 1];
   float a[kMaxPathDepth + 1];
-  uint64_t n = 0;
+  uint64_t node = 0;
   Neuron current = Locate(0);
   PrefetchWeight(current);
   PrefetchOut(current);
   for (uint32_t level = 0;; ++level) {
-    if (current.record != Neuron::kHot) TouchRecord(e, current.record);
+    if (current.record != Neuron::kHot) TouchRecord(exec, current.record);
     path[level] = current;
     if (level == depth) {
       a[level] = Logit(k, current, x);
       break;
     }
-    const Neuron left = Locate(2 * n + 1), right = Locate(2 * n + 2);
+    const Neuron left = Locate(2 * node + 1), right = Locate(2 * node + 2);
     PrefetchWeight(left);
     PrefetchWeight(right);
     a[level] = Logit(k, current, x);
     const bool go_right = a[level] > 0.0f;
     const Neuron& child = go_right ? right : left;
     PrefetchOut(child);
-    n = 2 * n + 1 + (go_right ? 1 : 0);
+    node = 2 * node + 1 + (go_right ? 1 : 0);
     current = child;
   }
   const size_t count = depth + 1;
@@ -151,24 +157,24 @@ void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& e, con
     if (path[level].out_scale != nullptr) a[level] *= *path[level].out_scale;
   }
   kernels::AxpyRows(k, out_rows_->dtype, a, out_rows, count, y, out_);
-  if (routes) routes[0] = static_cast<int32_t>(n - ((uint64_t{1} << depth) - 1));
+  if (routes) routes[0] = static_cast<int32_t>(node - ((uint64_t{1} << depth) - 1));
 }
 
-void PathTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y,
+void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float* y,
                             int32_t* routes) const {
-  const kernels::KernelTable& k = *e.k;
+  const kernels::KernelTable& k = *exec.k;
   const uint32_t depth = config_.depth;
   const uint64_t first_leaf = (uint64_t{1} << depth) - 1;
-  auto init = [&](float* yr) {
+  auto init = [&](float* y_row) {
     if (out_bias_) {
-      std::memcpy(yr, out_bias_, out_ * sizeof(float));
+      std::memcpy(y_row, out_bias_, out_ * sizeof(float));
     } else {
-      std::fill(yr, yr + out_, 0.0f);
+      std::fill(y_row, y_row + out_, 0.0f);
     }
   };
-  if (e.single_row) {
+  if (exec.single_row) {
     init(y);
-    ForwardOne(k, e, x, y, routes);
+    ForwardOne(k, exec, x, y, routes);
     return;
   }
   // Level by level for all rows; within a level rows are visited grouped by node, so each
@@ -180,15 +186,15 @@ void PathTreeLayer::Forward(const Exec& e, const float* x, size_t rows, float* y
   for (uint32_t level = 0; level <= depth; ++level) {
     for (size_t r = 0; r < rows; ++r) order[r] = {node[r], static_cast<uint32_t>(r)};
     if (level > 0) std::sort(order.begin(), order.end());
-    if (e.touched) {
+    if (exec.touched) {
       // Rows are sorted by node: mark each distinct node's record once.
       for (size_t i = 0; i < rows; ++i) {
-        if (i == 0 || order[i].first != order[i - 1].first) Touch(e, order[i].first);
+        if (i == 0 || order[i].first != order[i - 1].first) Touch(exec, order[i].first);
       }
     }
     const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
-    e.ParallelFor(chunks, [&](size_t c, Scratch&) {
-      for (size_t i = c * kRowChunk; i < std::min(rows, (c + 1) * kRowChunk); ++i) {
+    exec.ParallelFor(chunks, [&](size_t chunk, Scratch&) {
+      for (size_t i = chunk * kRowChunk; i < std::min(rows, (chunk + 1) * kRowChunk); ++i) {
         const uint32_t r = order[i].second;
         // Rows further on in this order usually need other neurons: fetch them ahead, far
         // enough that they arrive before they are needed.

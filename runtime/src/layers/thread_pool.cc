@@ -8,26 +8,26 @@ ThreadPool::ThreadPool(size_t threads) {
 
 ThreadPool::~ThreadPool() {
   {
-    std::lock_guard<std::mutex> lock(mu_);
+    std::lock_guard<std::mutex> lock(mutex_);
     stop_ = true;
   }
   wake_.notify_all();
-  for (auto& t : workers_) t.join();
+  for (std::thread& worker : workers_) worker.join();
 }
 
 void ThreadPool::Drain(size_t worker) {
-  std::unique_lock<std::mutex> lock(mu_);
+  std::unique_lock<std::mutex> lock(mutex_);
   while (next_ < count_) {
     const size_t task = next_++;
     lock.unlock();
-    (*fn_)(task, worker);
+    (*body_)(task, worker);
     lock.lock();
   }
 }
 
 void ThreadPool::WorkerLoop(size_t worker) {
   size_t seen = 0;
-  std::unique_lock<std::mutex> lock(mu_);
+  std::unique_lock<std::mutex> lock(mutex_);
   for (;;) {
     wake_.wait(lock, [&] { return stop_ || generation_ != seen; });
     if (stop_) return;
@@ -40,23 +40,23 @@ void ThreadPool::WorkerLoop(size_t worker) {
   }
 }
 
-void ThreadPool::Run(size_t count, const std::function<void(size_t, size_t)>& fn) {
+void ThreadPool::Run(size_t count, const std::function<void(size_t, size_t)>& body) {
   if (workers_.empty() || count <= 1) {
-    for (size_t t = 0; t < count; ++t) fn(t, 0);
+    for (size_t task = 0; task < count; ++task) body(task, 0);
     return;
   }
   {
-    std::lock_guard<std::mutex> lock(mu_);
-    fn_ = &fn;
+    std::lock_guard<std::mutex> lock(mutex_);
+    body_ = &body;
     count_ = count;
     next_ = 0;
     ++generation_;
   }
   wake_.notify_all();
   Drain(0);
-  std::unique_lock<std::mutex> lock(mu_);
+  std::unique_lock<std::mutex> lock(mutex_);
   done_.wait(lock, [&] { return active_ == 0 && next_ >= count_; });
-  fn_ = nullptr;
+  body_ = nullptr;
 }
 
 }  // namespace sprig::layers

@@ -1,7 +1,7 @@
-// A small fork-join pool: Run(count, fn) calls fn(task, worker) for task < count on the caller
-// and the pool's workers, and returns when all are done. Tasks are claimed in order from an
-// atomic counter, so which worker runs a task varies, but a task's inputs never depend on it:
-// results are the same for any number of threads.
+// A small fork-join pool: Run(count, body) calls body(task, worker) for task < count on the
+// caller and the pool's workers, and returns when all are done. Tasks are claimed in order from
+// a counter under the pool's mutex, so which worker runs a task varies, but a task's inputs
+// never depend on it: results are the same for any number of threads.
 #pragma once
 
 #include <condition_variable>
@@ -21,17 +21,17 @@ class ThreadPool {
   ThreadPool& operator=(const ThreadPool&) = delete;
 
   size_t size() const { return workers_.size() + 1; }
-  // fn(task, worker) with worker < size(). Not reentrant; one Run at a time.
-  void Run(size_t count, const std::function<void(size_t, size_t)>& fn);
+  // body(task, worker) with worker < size(). Not reentrant; one Run at a time.
+  void Run(size_t count, const std::function<void(size_t, size_t)>& body);
 
  private:
   void WorkerLoop(size_t worker);
   void Drain(size_t worker);
 
   std::vector<std::thread> workers_;
-  std::mutex mu_;
+  std::mutex mutex_;
   std::condition_variable wake_, done_;
-  const std::function<void(size_t, size_t)>* fn_ = nullptr;
+  const std::function<void(size_t, size_t)>* body_ = nullptr;
   size_t count_ = 0;
   size_t next_ = 0;
   size_t active_ = 0;

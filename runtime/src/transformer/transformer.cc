@@ -4,7 +4,7 @@
 #include <algorithm>
 #include <cstring>
 
-#include "layers/bind.h"
+#include "layers/binder.h"
 
 namespace sprig::transformer {
 namespace {
@@ -36,7 +36,7 @@ void RowToFloat(const kernels::KernelTable& k, const MatrixView& m, uint64_t row
 
 // y[rows, out] = x[rows, in] W^T + b. One row uses the matrix-vector kernel; batches are split
 // between threads in multiples of kRowChunk, so a row's result does not depend on the thread
-// count (see layers/bind.h).
+// count (see layers/exec.h).
 // A matrix-vector product is split between threads only when each gets at least this many
 // output rows; below that the hand-off costs more than it saves.
 constexpr size_t kMinRowsPerThread = 128;

@@ -12,6 +12,7 @@
 #include <vector>
 
 #include "layers/feed_forward.h"
+#include "layers/matrix_view.h"
 #include "sprig/model.h"
 #include "sprig/session.h"
 #include "sprig/status.h"

@@ -1,0 +1,51 @@
+// How a layer call runs: the kernels, the threads and each thread's scratch memory.
+#pragma once
+
+#include <cstddef>
+#include <functional>
+#include <vector>
+
+#include "kernels/kernels.h"
+#include "layers/touch_log.h"
+
+namespace sprig::layers {
+
+// Results never depend on the number of threads, so work is split between threads only where
+// a row's arithmetic is the same wherever it runs: over units whose arithmetic does not depend
+// on the split, or over rows in chunks that are multiples of kRowChunk, so that every row lands
+// in the same register block of the matrix kernels whatever the thread count.
+inline constexpr size_t kRowChunk = 16;
+
+// One thread's buffers, each named for what it holds. A buffer grows to the largest size asked
+// of it and is kept for later calls, so a warm session allocates nothing here. A function that
+// calls another while holding a buffer uses buffers the callee does not (RunGroups calls
+// MlpForward).
+struct Scratch {
+  std::vector<float> hidden;  // MlpForward: act(fc1 x + b1), [rows, width]
+  std::vector<float> gate;    // MlpForward, gated: gate x + b, [rows, width]
+  // RunGroups: one group's input rows, gathered, [rows, in]. The transformer's attention also
+  // keeps one (sequence, head)'s scores here; it never runs inside a layer.
+  std::vector<float> c;
+  std::vector<float> group_output;   // RunGroups: one group's output rows, [rows, out]
+  std::vector<float> expert_output;  // ExpertsLayer, single row: one expert's output, [out]
+};
+
+class ThreadPool;
+
+// How a call runs: kernels, threads and their scratch (see kRowChunk for how work is split).
+struct Exec {
+  const kernels::KernelTable* k = nullptr;
+  ThreadPool* pool = nullptr;               // null: the calling thread only
+  std::vector<Scratch>* scratch = nullptr;  // one per thread of the pool (at least one)
+  // The call is for a single row: layers use matrix-vector kernels and prefetch the records
+  // they are about to touch. (Batches use matrix-matrix kernels, grouped by record.)
+  bool single_row = false;
+  // When not null, layers mark every record they read here.
+  TouchLog* touched = nullptr;
+
+  size_t threads() const;
+  // body(task, scratch) for task < count, spread over the pool.
+  void ParallelFor(size_t count, const std::function<void(size_t, Scratch&)>& body) const;
+};
+
+}  // namespace sprig::layers

@@ -1,0 +1,44 @@
+// Top-k experts: a softmax router, the k most probable experts, their outputs mixed.
+// Semantics: README.md ("Model semantics"); the PyTorch reference in
+// converter/python/sprig_torch/layers.py is the executable form the tests compare against.
+#pragma once
+
+#include <cstddef>
+#include <cstdint>
+
+#include "kernels/kernels.h"
+#include "layers/binder.h"
+#include "layers/exec.h"
+#include "layers/feed_forward.h"
+#include "layers/matrix_view.h"
+#include "layers/mlp.h"
+#include "sprig/config.h"
+
+namespace sprig::layers {
+
+// Top-k mixture of experts with a softmax router.
+class ExpertsLayer final : public FeedForward {
+ public:
+  ExpertsLayer(const Binder& binder, const LayerConfig& config);
+  void Forward(const Exec& exec, const float* x, size_t rows, float* y,
+               int32_t* routes) const override;
+  size_t route_width() const override { return config_.top_k; }
+  uint64_t unit_count() const override { return config_.experts; }
+
+ private:
+  // Chooses top_k experts for one row from its router logits (overwritten with probabilities);
+  // writes indices and mixing weights in descending weight order, ties to the lower index.
+  void Choose(const kernels::KernelTable& k, float* logits, int32_t* chosen, float* weights) const;
+  static constexpr size_t kMaxExpertsOnStack = 256;
+  MlpView Expert(uint64_t expert) const {
+    return MlpOf(binder_, experts_, expert, config_, config_.width);
+  }
+
+  Binder binder_;
+  LayerConfig config_;
+  MatrixView router_;
+  const float* router_bias_ = nullptr;
+  MlpTensors experts_;
+};
+
+}  // namespace sprig::layers

@@ -1,0 +1,47 @@
+#include "layers/grouping.h"
+
+#include <algorithm>
+#include <cstring>
+
+namespace sprig::layers {
+
+void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& order,
+                 std::vector<RowGroup>& groups) {
+  order.resize(count);
+  for (size_t i = 0; i < count; ++i) order[i] = static_cast<uint32_t>(i);
+  std::stable_sort(order.begin(), order.end(),
+                   [&](uint32_t a, uint32_t b) { return unit_of[a] < unit_of[b]; });
+  groups.clear();
+  for (size_t i = 0; i < count;) {
+    size_t j = i;
+    while (j < count && unit_of[order[j]] == unit_of[order[i]]) ++j;
+    groups.push_back({unit_of[order[i]], static_cast<uint32_t>(i), static_cast<uint32_t>(j)});
+    i = j;
+  }
+}
+
+void RunGroups(const Exec& exec, const std::vector<RowGroup>& groups,
+               const std::vector<uint32_t>& order, size_t per_row, const float* x, size_t in,
+               float* out, size_t out_width, const std::function<MlpView(uint32_t)>& unit) {
+  exec.ParallelFor(groups.size(), [&](size_t task, Scratch& scratch) {
+    const RowGroup& group = groups[task];
+    const size_t count = group.end - group.begin;
+    if (scratch.c.size() < count * in) scratch.c.resize(count * in);
+    if (scratch.group_output.size() < count * out_width) {
+      scratch.group_output.resize(count * out_width);
+    }
+    float* input = scratch.c.data();
+    float* output = scratch.group_output.data();
+    for (size_t i = 0; i < count; ++i) {
+      const size_t row = order[group.begin + i] / per_row;
+      std::memcpy(input + i * in, x + row * in, in * sizeof(float));
+    }
+    MlpForward(*exec.k, unit(group.unit), input, count, output, scratch, false);
+    for (size_t i = 0; i < count; ++i) {
+      std::memcpy(out + order[group.begin + i] * out_width, output + i * out_width,
+                  out_width * sizeof(float));
+    }
+  });
+}
+
+}  // namespace sprig::layers

@@ -1,0 +1,41 @@
+// A tree in leaf mode: d node decisions, then one leaf MLP.
+// Semantics: README.md ("Model semantics"); the PyTorch reference in
+// converter/python/sprig_torch/layers.py is the executable form the tests compare against.
+#pragma once
+
+#include <cstddef>
+#include <cstdint>
+
+#include "kernels/kernels.h"
+#include "layers/binder.h"
+#include "layers/exec.h"
+#include "layers/feed_forward.h"
+#include "layers/matrix_view.h"
+#include "layers/mlp.h"
+#include "sprig/config.h"
+
+namespace sprig::layers {
+
+// Hard descent to one leaf MLP (fast feedforward inference).
+class LeafTreeLayer final : public FeedForward {
+ public:
+  LeafTreeLayer(const Binder& binder, const LayerConfig& config);
+  void Forward(const Exec& exec, const float* x, size_t rows, float* y,
+               int32_t* routes) const override;
+  size_t route_width() const override { return 1; }
+  uint64_t unit_count() const override { return uint64_t{1} << config_.depth; }
+
+ private:
+  uint32_t Descend(const kernels::KernelTable& k, const float* x, bool prefetch) const;
+  MlpView Leaf(uint64_t leaf) const {
+    return MlpOf(binder_, leaves_, leaf, config_, config_.leaf_width);
+  }
+
+  Binder binder_;
+  LayerConfig config_;
+  MatrixView nodes_;
+  const float* node_bias_ = nullptr;
+  MlpTensors leaves_;
+};
+
+}  // namespace sprig::layers
