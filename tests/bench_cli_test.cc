@@ -1,5 +1,5 @@
-// `sprig bench` (README "Benchmarking") through the built program: every key the README
-// documents for --json, with sane values on small models; FLOPs against the README's cost
+// `sprig bench` (docs/benchmarking.md) through the built program: every key that document
+// gives for --json, with sane values on small models; FLOPs against the documented cost
 // formulas; a model benchmarked against itself reports identical FLOPs, records touched and
 // memory sections on both sides; the HTML report is self-contained and renders in a real
 // browser (headless Chromium, Debian's chromium package) to a non-blank screenshot. No timing
@@ -64,16 +64,17 @@ class BenchCli : public ::testing::Test {
   static inline std::string* transformer_ = nullptr;
 };
 
-// The key paths of the README's --json table: the backticked first column of each row between
+// The key paths of the documented --json table: the backticked first column of each row between
 // the "bench-json-keys" markers. `<side>` stands for model, baseline and floor; `[]` for every
 // element of an array.
 std::vector<std::string> DocumentedKeys() {
-  const std::string readme = testing::ReadFile(std::string(SPRIG_SOURCE_DIR) + "/README.md");
-  const size_t begin = readme.find("<!-- bench-json-keys -->");
-  const size_t end = readme.find("<!-- /bench-json-keys -->");
+  const std::string doc =
+      testing::ReadFile(std::string(SPRIG_SOURCE_DIR) + "/docs/benchmarking.md");
+  const size_t begin = doc.find("<!-- bench-json-keys -->");
+  const size_t end = doc.find("<!-- /bench-json-keys -->");
   std::vector<std::string> keys;
   if (begin == std::string::npos || end == std::string::npos) return keys;
-  std::istringstream lines(readme.substr(begin, end - begin));
+  std::istringstream lines(doc.substr(begin, end - begin));
   const std::regex row(R"(^\| `([^`]+)` \|)");
   std::string line;
   for (std::smatch m; std::getline(lines, line);) {
@@ -105,7 +106,7 @@ void ExpectPath(const json& j, const std::string& path, const std::string& where
   for (const json& e : v) ExpectPath(e, rest, where + "." + head + "[]");
 }
 
-// A summary (README): count, then min <= median <= p95 <= p99 <= max, all positive.
+// A summary (docs/benchmarking.md): count, then min <= median <= p95 <= p99 <= max, all positive.
 void ExpectSummary(const json& s, const std::string& what) {
   ASSERT_TRUE(s.is_object()) << what;
   EXPECT_GT(s["count"].get<double>(), 0) << what;
@@ -160,7 +161,8 @@ void ExpectSaneMemory(const json& r) {
 
 TEST_F(BenchCli, StackJsonHasEveryDocumentedKey) {
   const std::vector<std::string> keys = DocumentedKeys();
-  ASSERT_GT(keys.size(), 40u) << "the README's bench-json-keys table is missing or short";
+  ASSERT_GT(keys.size(), 40u)
+      << "the bench-json-keys table of docs/benchmarking.md is missing or short";
   const json r = Bench(Quote(*stack_) + " --repeat 2 --rows 64 --batch 1,8 --threads 1,2", "s");
   ASSERT_TRUE(r.is_object());
   for (const std::string& key : keys) ExpectPath(r, key, "report");
@@ -191,7 +193,7 @@ TEST_F(BenchCli, StackJsonHasEveryDocumentedKey) {
   }
 }
 
-// FLOPs per token against the README's performance model (multiply-add = 2): a dense layer of
+// FLOPs per token against the documented performance model (multiply-add = 2): a dense layer of
 // width W costs 2·W·(in + out), twice the input product when gated; a leaf tree d·2·in plus one
 // leaf; a path tree (d + 1)·2·(in + out); experts 2·E·in for the router plus k experts. The
 // dense twin has W = all units: 16·8 leaf units, 4·16 expert units, 63 path neurons.

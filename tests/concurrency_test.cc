@@ -1,8 +1,9 @@
 // Heavy use of one model: many threads, each with its own Session over one shared Model, mixing
 // whole-sequence forward passes, decoding and generation, must give exactly the outputs of a
-// single thread (README: a Model is shared by any number of threads, and results do not depend
-// on thread counts). The same file is built alone under ThreadSanitizer (tests/tsan/), where
-// it must also run without a data race report. Also: a long decoding loop keeps memory flat.
+// single thread (docs/embedding.md: a Model is shared by any number of threads; docs/verbs.md:
+// results do not depend on thread counts). The same file is built alone under ThreadSanitizer
+// (tests/tsan/), where it must also run without a data race report. Also: a long decoding loop
+// keeps memory flat.
 //
 // Models are packed in-process (synthesized weights), so this file needs neither the sprig
 // program nor Python and links into the small sanitizer build as it is.

@@ -1,4 +1,4 @@
-// config.json parsing and validation (the input contract in README.md), ConfigToJson and the rename
+// config.json parsing and validation (docs/input-contract.md), ConfigToJson and the rename
 // map.
 #include <gtest/gtest.h>
 
@@ -87,7 +87,7 @@ class TempDir {
 // ---------------------------------------------------------------------------------------------
 // Parsing valid configs.
 
-// The four example entries of the input contract in README.md, verbatim. The first carries in/out,
+// The four example entries of docs/input-contract.md, verbatim. The first carries in/out,
 // so it belongs to a stack; the others leave them out, as transformer entries do.
 TEST(ConfigParse, DesignExampleLayersParse) {
   auto stack = ParseConfig(R"({"family":"stack","input_dim":64,"layers":[
@@ -626,7 +626,7 @@ TEST(ConfigLimits, LayerCount) {
 }
 
 TEST(ConfigLimits, TensorElementCount) {
-  // fc1.weight is [width, in] (the input contract in README.md): 2^12 x 2^24 = 2^36 elements is the
+  // fc1.weight is [width, in] (docs/input-contract.md): 2^12 x 2^24 = 2^36 elements is the
   // largest allowed.
   EXPECT_EQ(ErrorOf(DenseStack(1u << 24, 1u << 12, 1)), "OK");
   EXPECT_EQ(
@@ -664,7 +664,7 @@ TEST(ConfigLimits, NoOverflowAtTheExtremes) {
 }
 
 TEST(ConfigLimits, TotalElementCount) {
-  // Per the input contract in README.md a dense layer holds fc1.weight [W,in], fc1.bias [W],
+  // Per docs/input-contract.md a dense layer holds fc1.weight [W,in], fc1.bias [W],
   // fc2.weight [out,W] and fc2.bias [out]. With in = out = 2^24 and W = 2^12 each weight is 2^36
   // elements (allowed), so one layer holds 2^37 + 2^12 + 2^24 and two layers exceed 2^38.
   const uint64_t one = (uint64_t{1} << 37) + (1u << 12) + (1u << 24);

@@ -1,10 +1,10 @@
-// Identities of the routed layers (the model semantics in README.md, the published definitions of
+// Identities of the routed layers (docs/model-semantics.md, the published definitions of
 // each kind), checked through the public runtime API: configs parsed with ParseConfig, weights
 // synthesized and edited in memory, packed with MatchTensors + PackTensors, opened with Model::open
 // and run with Session::forward.
 //
 // The independent reference is RefForward below: a plain double-precision C++ rendering
-// of the model semantics in README.md (nn.Linear layout, the four activations' formulas, hard
+// of docs/model-semantics.md (nn.Linear layout, the four activations' formulas, hard
 // descent with a logit of exactly 0 going left, path-mode accumulation, softmax top-k mixing),
 // written from the definitions and sharing no code with the runtime.
 //
@@ -188,7 +188,7 @@ bool BitEqual(const std::vector<float>& a, const std::vector<float>& b) {
   return ::testing::AssertionSuccess();
 }
 
-// ---- the independent double-precision reference (the model semantics in README.md) ----
+// ---- the independent double-precision reference (docs/model-semantics.md) ----
 
 double Act(Activation a, double v) {
   switch (a) {
@@ -371,7 +371,7 @@ struct DenseCase {
 
 class RuntimeIdentityLeafDepthZero : public ::testing::TestWithParam<DenseCase> {};
 
-// the model semantics in README.md: "d = 0 is one leaf, equal to a dense MLP". The same
+// docs/model-semantics.md: "d = 0 is one leaf, equal to a dense MLP". The same
 // fc1/fc2(/gate) weights are packed once as a depth-0 tree and once as a dense layer.
 TEST_P(RuntimeIdentityLeafDepthZero, EqualsDenseMlpOfSameWidth) {
   const DenseCase p = GetParam();
@@ -445,7 +445,7 @@ void ZeroNodes(Net& net, size_t layer) {
 
 class RuntimeIdentityZeroLeafTree : public ::testing::TestWithParam<bool> {};
 
-// the model semantics in README.md: "A logit of exactly 0 goes left". With every node weight and
+// docs/model-semantics.md: "A logit of exactly 0 goes left". With every node weight and
 // bias zero each logit is exactly 0, so every row descends left to leaf 0 and the output is leaf
 // 0's MLP (checked against leaf 0's weights packed as a dense layer).
 TEST_P(RuntimeIdentityZeroLeafTree, EveryRowTakesLeafZero) {
@@ -499,7 +499,7 @@ struct PathCase {
 
 class RuntimeIdentityZeroPathTree : public ::testing::TestWithParam<PathCase> {};
 
-// the model semantics in README.md, path mode: y = out_bias + Σ_levels act(a)·out[n]. With zero
+// docs/model-semantics.md, path mode: y = out_bias + Σ_levels act(a)·out[n]. With zero
 // node weights and biases every a is exactly 0, so every row takes the leftmost path (route 0), and
 // since act(0) = 0 for relu, gelu, gelu_tanh and silu, the output is out_bias (0 without biases).
 TEST_P(RuntimeIdentityZeroPathTree, LeftmostPathAndOutBias) {
@@ -551,7 +551,7 @@ struct ExpertsCase {
 
 class RuntimeIdentityExpertsFullMixture : public ::testing::TestWithParam<ExpertsCase> {};
 
-// the model semantics in README.md, experts with top_k = E and renormalize: Σ_S p = 1, so the
+// docs/model-semantics.md, experts with top_k = E and renormalize: Σ_S p = 1, so the
 // output is the full softmax mixture Σ_j softmax(router x)_j · expert_j(x), computed here by the
 // reference.
 TEST_P(RuntimeIdentityExpertsFullMixture, EqualsSoftmaxMixtureOfAllExperts) {
@@ -603,7 +603,7 @@ INSTANTIATE_TEST_SUITE_P(Kinds, RuntimeIdentityExpertsFullMixture,
                                   info.param.activation;
                          });
 
-// the model semantics in README.md: with renormalize false the chosen expert is weighted by p_j
+// docs/model-semantics.md: with renormalize false the chosen expert is weighted by p_j
 // itself, so with top_k = 1 the output is p_max · expert_max(x), while renormalize true gives
 // expert_max(x).
 TEST(RuntimeIdentityExpertsNoRenormalize, TopOneScaledByItsProbability) {
@@ -818,7 +818,7 @@ TEST(RuntimeIdentityGemmRows, RowResultIndependentOfTheRowsAroundIt) {
   }
 }
 
-// The scalar path against the double-precision reference of the model semantics in README.md, for
+// The scalar path against the double-precision reference of docs/model-semantics.md, for
 // the whole stack. Rows with a routing decision within 1e-4 of flipping are left out (float
 // rounding may take the other branch there); with these N(0, 1) inputs there are normally none.
 TEST_F(RuntimeIdentityEveryKind, ScalarPathMatchesReference) {

@@ -1,4 +1,4 @@
-// Matching weights against a config (the input contract in README.md) and the NaN/Inf scan behind
+// Matching weights against a config (docs/input-contract.md) and the NaN/Inf scan behind
 // it.
 #include <gtest/gtest.h>
 
@@ -83,7 +83,7 @@ NdArray* Find(std::vector<NdArray>& arrays, const std::string& name) {
 // ---------------------------------------------------------------------------------------------
 // Successful matches.
 
-// Names and shapes written out from the table in the input contract in README.md (dense:
+// Names and shapes written out from the table in docs/input-contract.md (dense:
 // fc1/gate/fc2; tree leaf: nodes, leaves.fc1, leaves.fc2), not taken from the code under test.
 TEST(TensorMatch, DesignTableNames) {
   const ModelConfig config = SmallStack();

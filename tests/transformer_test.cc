@@ -293,7 +293,7 @@ TEST_F(TransformerTest, RefusesBadInputs) {
   EXPECT_FALSE(st_model->forward_tokens(bad, 1, 1, out.data()).ok());
 }
 
-// Source: the rotate-half definition of rotary positions (README "Model semantics"): each pair
+// Source: the rotate-half definition of rotary positions (docs/model-semantics.md): each pair
 // (i, i + d/2) is the 2-D vector rotated by θ_i = t · base^(−2i/d), i.e. multiplied by
 // [[cos θ, −sin θ], [sin θ, cos θ]]; θ evaluated here in long double, independently.
 TEST(Rope, MatchesTheClosedFormRotation) {

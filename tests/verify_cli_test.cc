@@ -228,7 +228,7 @@ TEST(Verify, RefusesReferencesThatDoNotFitTheModel) {
 namespace sprig {
 namespace {
 
-// The README's path for a module of one's own (samples/export/own_module.py): its weights under
+// The documented path for a module of one's own (samples/export/own_module.py): its weights under
 // its own names, a rename map, the export checked against the module's own outputs, then pack
 // --rename and verify.
 TEST(Verify, ExampleOfAnOwnModuleRoundTrips) {

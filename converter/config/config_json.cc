@@ -1,5 +1,5 @@
 // ParseConfig and ReadConfigFile: config.json → a validated ModelConfig (the input contract in
-// README.md).
+// docs/input-contract.md).
 #include "converter/config/config_json.h"
 
 #include <string>

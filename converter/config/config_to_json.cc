@@ -68,7 +68,7 @@ ojson HeadToJson(const HeadConfig& head) {
   return j;
 }
 
-// The top-level fields except `layers`, in the order the input contract in README.md lists them.
+// The top-level fields except `layers`, in the order docs/input-contract.md lists them.
 ojson TopLevelToJson(const ModelConfig& c) {
   ojson j;
   j["family"] = ToString(c.family);
@@ -101,8 +101,8 @@ std::string Dump(const ojson& j) {
 
 }  // namespace
 
-// Written by hand rather than with dump(2) so each layer stays on one line, as in the input
-// contract in README.md: a config with a hundred layers is then still a page one can read.
+// Written by hand rather than with dump(2) so each layer stays on one line, as in
+// docs/input-contract.md: a config with a hundred layers is then still a page one can read.
 std::string ConfigToJson(const ModelConfig& config) {
   const ojson top = TopLevelToJson(config);
   std::string out = "{\n";

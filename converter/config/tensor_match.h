@@ -1,4 +1,4 @@
-// Matching a weights file against the tensors a config requires (the input contract in README.md):
+// Matching a weights file against the tensors a config requires (docs/input-contract.md):
 // every expected tensor present once, with the right shape, a floating-point type and finite
 // values; nothing else present.
 #pragma once

@@ -74,7 +74,7 @@ CONFIG = {"family": "stack", "name": "seed-sorter", "input_dim": 6,
           "description": "example: grades invented seed measurements",
           "layers": [{"kind": "tree", "mode": "leaf", "depth": 2, "leaf_width": 8,
                       "activation": "relu", "out": 3}]}
-# Their names -> sprig's names (README, "Input: config.json and weights").
+# Their names -> sprig's names (docs/input-contract.md).
 RENAME = {"split_w": "layers.0.nodes.weight", "split_b": "layers.0.nodes.bias",
           "hidden_w": "layers.0.leaves.fc1.weight", "hidden_b": "layers.0.leaves.fc1.bias",
           "out_w": "layers.0.leaves.fc2.weight", "out_b": "layers.0.leaves.fc2.bias"}

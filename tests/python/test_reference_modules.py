@@ -1,7 +1,7 @@
 """Tests of the PyTorch reference modules (converter/python/sprig_torch) and the exporter.
 
 The reference is checked against independent implementations: plain NumPy/Python loops
-written here from the formulas of the model semantics in README.md, torch.nn.MultiheadAttention and the closed
+written here from the formulas of docs/model-semantics.md, torch.nn.MultiheadAttention and the closed
 form of a 2-D rotation. Run from the repository root:
 
     PYTHONPATH=converter/python /usr/bin/python3 -m unittest discover -s tests/python -p 'test_*.py'
@@ -57,7 +57,7 @@ def _np_mlp(x, w, prefix, i, act, gated):
 
 
 def _np_descend(w, x, depth):
-    """Hard descent of the model semantics in README.md for one row; returns the visited nodes and logits."""
+    """Hard descent (docs/model-semantics.md) for one row; returns the visited nodes and logits."""
     n, visited, logits = 0, [0], []
     for _ in range(depth):
         a = float(np.dot(w["nodes.weight"][n], x))
@@ -100,7 +100,7 @@ class TreeTest(unittest.TestCase):
             self.assertTrue(torch.isinf(margins).all())
 
     def test_zero_nodes_send_every_row_to_leaf_zero(self):
-        # A logit of exactly 0 goes left (the model semantics in README.md), so every row ends in leaf 0.
+        # A logit of exactly 0 goes left (docs/model-semantics.md), so every row ends in leaf 0.
         for mode in ("leaf", "path"):
             cfg = {"kind": "tree", "mode": mode, "depth": 4, "in": 6, "out": 3}
             if mode == "leaf":
@@ -305,7 +305,7 @@ class TransformerTest(unittest.TestCase):
 
     def test_rope_is_the_closed_form_rotation(self):
         # Source: a 2-D rotation by angle theta, (a, b) -> (a cos - b sin, b cos + a sin),
-        # applied to pairs (i, i + head_dim/2) with theta = t * base^(-2i/head_dim) (the model semantics in README.md).
+        # applied to pairs (i, i + head_dim/2) with theta = t * base^(-2i/head_dim) (docs/model-semantics.md).
         head_dim, base = 6, 10000.0
         vec = [0.3, -1.2, 0.7, 2.0, -0.4, 1.1]
         x = torch.tensor(vec, dtype=torch.float64).expand(1, 1, 18, head_dim)
@@ -364,7 +364,7 @@ class TransformerTest(unittest.TestCase):
         torch.testing.assert_close(y[1:2], alone)
 
 
-# Expected tensor names and shapes, written from the table of the input contract in README.md.
+# Expected tensor names and shapes, written from the table of docs/input-contract.md.
 def _expected_layer_tensors(cfg, i, o):
     bias, gated = cfg.get("bias", True), cfg.get("gated", False)
 

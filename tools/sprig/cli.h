@@ -12,7 +12,7 @@
 
 namespace sprig::cli {
 
-// README: 0 success, 1 a check failed, 2 bad usage or input.
+// docs/verbs.md: 0 success, 1 a check failed, 2 bad usage or input.
 inline constexpr int kExitOk = 0;
 inline constexpr int kExitCheckFailed = 1;
 inline constexpr int kExitBadInput = 2;

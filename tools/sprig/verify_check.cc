@@ -147,7 +147,7 @@ double StorageRoundoff(DType type) {
 }
 
 Tolerance DefaultTolerance(DType type) {
-  // Measured on the project's reference models (README, "Verifying a conversion") and widened
+  // Measured on the project's reference models (docs/verifying.md) and widened
   // by about ten times, so that honest conversions pass and a perturbed weight does not.
   switch (type) {
     case DType::kF32:

@@ -1,7 +1,7 @@
 // The comparison behind `sprig verify`: a model's outputs, layer outputs and routing decisions
 // against a reference, with every routing disagreement judged against rounding.
 //
-// Rules (README, "Verifying a conversion"):
+// Rules (docs/verifying.md):
 // - An element passes when |got - want| <= atol + rtol * |want| (the numpy.isclose rule). The
 //   default atol is a factor times the RMS of the reference array being compared, so it does
 //   not depend on the model's output scale.

@@ -4,8 +4,8 @@
 * `sprig_torch.models`  the stack and transformer families;
 * `sprig_torch.export`  writes config.json, weights.npz and reference.npz (also a command).
 
-The modules follow the model semantics in README.md (semantics) and §4 (config fields and tensor names); the C++
-runtime is tested against them.
+The modules follow docs/model-semantics.md (semantics) and docs/input-contract.md (config fields and
+tensor names); the C++ runtime is tested against them.
 """
 
 from sprig_torch.layers import DenseFF, ExpertsFF, TreeFF, build_layer

@@ -3,7 +3,7 @@
 `export` writes, into one directory:
 
 * ``config.json``  the model's config (a stack's layers with their ``in``/``out`` spelled out);
-* ``weights.npz``  the state dict as float32 arrays under the tensor names of the input contract in README.md;
+* ``weights.npz``  the state dict as float32 arrays under the tensor names of docs/input-contract.md;
 * ``reference.npz`` ``inputs`` (as given), ``outputs`` (hard mode, float32); for every
   layer i (stack layer or transformer block) ``layer_outputs.layer{i}`` (float32 [rows, out]:
   the layer's output, or the residual stream after the block); and for each routed layer i

@@ -1,9 +1,9 @@
 """Reference feed-forward layers of sprig: dense, tree (leaf and path modes) and top-k experts.
 
-These PyTorch modules are the reference for sprig's model semantics (the model semantics in README.md): the C++
+These PyTorch modules are the reference for sprig's model semantics (docs/model-semantics.md): the C++
 runtime is checked against them. They are written straight from the formulas with plain torch
 primitives, favouring clarity over speed. Each module's ``state_dict()`` keys are exactly the
-tensor names of the input contract (the input contract in README.md), so a state dict can be exported as is.
+tensor names of the input contract (docs/input-contract.md), so a state dict can be exported as is.
 
 Every layer takes ``forward(x, hard=None, return_routes=False)`` with ``x`` of shape
 ``[rows, in]``:
@@ -39,7 +39,7 @@ ACTIVATIONS = {
     "silu": F.silu,
 }
 
-# Config keys each layer kind accepts (the input contract in README.md). `in`/`out` are filled by the model.
+# Config keys each layer kind accepts (docs/input-contract.md). `in`/`out` are filled by the model.
 _COMMON_KEYS = {"kind", "activation", "bias", "in", "out"}
 _KIND_KEYS = {
     "dense": _COMMON_KEYS | {"width", "gated"},

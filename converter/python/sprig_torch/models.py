@@ -1,7 +1,7 @@
-"""Reference models of sprig: the `stack` and `transformer` families (the model semantics in README.md).
+"""Reference models of sprig: the `stack` and `transformer` families (docs/model-semantics.md).
 
 Like `layers`, this module is the reference for sprig's model semantics, written from the
-formulas with torch primitives; ``state_dict()`` keys are the tensor names of the input contract in README.md
+formulas with torch primitives; ``state_dict()`` keys are the tensor names of docs/input-contract.md
 (`layers.{i}.…` in a stack; `embed.weight`, `pos.weight`, `blocks.{i}.…`, `norm.*`, `head.*`
 in a transformer).
 

@@ -11,7 +11,7 @@
 
 namespace sprig {
 
-// Documented limits (README "Limits").
+// Documented limits (docs/input-contract.md, "Limits").
 inline constexpr uint64_t kMaxDimension = uint64_t{1} << 24;  // any width, vocab, max_seq
 inline constexpr uint32_t kMaxLeafDepth = 20;
 inline constexpr uint32_t kMaxPathDepth = 22;
