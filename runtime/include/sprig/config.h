@@ -8,6 +8,8 @@
 #include <string>
 #include <vector>
 
+#include "sprig/export.h"
+
 namespace sprig {
 
 enum class Family : uint8_t { kStack, kTransformer };
@@ -46,7 +48,7 @@ struct HeadConfig {
   Pool pool = Pool::kMean;  // classifier only
 };
 
-struct ModelConfig {
+struct SPRIG_API ModelConfig {
   Family family = Family::kStack;
   std::string name;
   std::string description;
@@ -76,18 +78,18 @@ struct ModelConfig {
 };
 
 // Names used in config.json, error messages and inspect output.
-const char* ToString(Family v);
-const char* ToString(LayerKind v);
-const char* ToString(TreeMode v);
-const char* ToString(Activation v);
-const char* ToString(NormKind v);
-const char* ToString(Positions v);
-const char* ToString(HeadKind v);
-const char* ToString(Pool v);
-const char* ToString(Tokenizer v);
-const char* ToString(DType v);
+SPRIG_API const char* ToString(Family v);
+SPRIG_API const char* ToString(LayerKind v);
+SPRIG_API const char* ToString(TreeMode v);
+SPRIG_API const char* ToString(Activation v);
+SPRIG_API const char* ToString(NormKind v);
+SPRIG_API const char* ToString(Positions v);
+SPRIG_API const char* ToString(HeadKind v);
+SPRIG_API const char* ToString(Pool v);
+SPRIG_API const char* ToString(Tokenizer v);
+SPRIG_API const char* ToString(DType v);
 
 // Bytes per element of a storage type (i8 counts its values only, not its scales).
-size_t DTypeSize(DType v);
+SPRIG_API size_t DTypeSize(DType v);
 
 }  // namespace sprig

@@ -7,6 +7,7 @@
 #include <cstdint>
 #include <string>
 
+#include "sprig/export.h"
 #include "sprig/status.h"
 
 namespace sprig {
@@ -21,13 +22,13 @@ struct ProcessMemory {
   uint64_t major_faults = 0;  // ru_majflt: faults that read from storage (count)
 };
 
-ProcessMemory ReadProcessMemory();
+SPRIG_API ProcessMemory ReadProcessMemory();
 
 // Asks the kernel to drop `path`'s pages from the page cache (posix_fadvise DONTNEED), so the
 // next run starts cold. The kernel drops only clean pages that no process has mapped: close
 // models of this file first (another process's open model keeps its mapped pages), and pages
 // on file systems that keep data only in memory (tmpfs) are never dropped. Check with
 // Model::residency() when it matters. IOError when the file cannot be opened.
-Status EvictFromPageCache(const std::string& path);
+SPRIG_API Status EvictFromPageCache(const std::string& path);
 
 }  // namespace sprig
