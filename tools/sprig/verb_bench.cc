@@ -18,7 +18,7 @@
 #include "bench/kit/models.h"
 #include "bench/kit/report.h"
 #include "cli.h"
-#include "converter/io/atomic_file.h"
+#include "io/atomic_file.h"
 #include "sprig/memory.h"
 #include "sprig/model.h"
 
