@@ -13,8 +13,8 @@
 #include <string>
 #include <vector>
 
+#include "kernels/convert.h"
 #include "kernels/kernels.h"
-#include "numeric/half.h"
 
 #ifdef SPRIG_HAVE_BLAS
 #include <cblas.h>
@@ -40,9 +40,9 @@ struct BenchWeights {
     if (type != DType::kF32) {
       bits.resize(f32.size());
       if (type == DType::kF16) {
-        numeric::ConvertFloatToHalf(f32.data(), bits.data(), f32.size());
+        kernels::ConvertFloatToHalf(f32.data(), bits.data(), f32.size());
       } else {
-        numeric::ConvertFloatToBFloat16(f32.data(), bits.data(), f32.size());
+        kernels::ConvertFloatToBFloat16(f32.data(), bits.data(), f32.size());
       }
     }
   }
@@ -158,7 +158,7 @@ void BM_HalfToFloat(benchmark::State& state, KernelPath path, bool bfloat16) {
   const KernelTable& k = Kernels(path);
   std::vector<uint16_t> src(kConvertCount);
   const std::vector<float> values = RandomVector(kConvertCount, 7);
-  numeric::ConvertFloatToHalf(values.data(), src.data(), kConvertCount);
+  kernels::ConvertFloatToHalf(values.data(), src.data(), kConvertCount);
   std::vector<float> dst(kConvertCount);
   for (auto _ : state) {
     (bfloat16 ? k.bf16_to_f32 : k.f16_to_f32)(src.data(), dst.data(), kConvertCount);

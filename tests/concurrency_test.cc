@@ -17,7 +17,7 @@
 #include <vector>
 
 #include "converter/config/config_json.h"
-#include "converter/io/tensor_archive.h"
+#include "io/tensor_archive.h"
 #include "converter/pack/packer.h"
 #include "converter/synth/synth.h"
 #include "sprig/memory.h"

@@ -19,6 +19,7 @@
 #include <string>
 #include <vector>
 
+#include "kernels/convert.h"
 #include "kernels/kernels.h"
 #include "numeric/half.h"
 
@@ -463,18 +464,18 @@ TEST(HalfBulk, ConvertersOfEveryPathMatchScalar) {
 TEST(HalfBulk, PublicConvertersMatchScalar) {
   const std::vector<float> floats = HalfTestFloats();
   std::vector<uint16_t> bits(floats.size());
-  numeric::ConvertFloatToHalf(floats.data(), bits.data(), floats.size());
+  kernels::ConvertFloatToHalf(floats.data(), bits.data(), floats.size());
   for (size_t i = 0; i < floats.size(); ++i) ASSERT_EQ(bits[i], FloatToHalf(floats[i]));
-  numeric::ConvertFloatToBFloat16(floats.data(), bits.data(), floats.size());
+  kernels::ConvertFloatToBFloat16(floats.data(), bits.data(), floats.size());
   for (size_t i = 0; i < floats.size(); ++i) ASSERT_EQ(bits[i], FloatToBFloat16(floats[i]));
 
   const std::vector<uint16_t> patterns = AllPatterns();
   std::vector<float> widened(patterns.size());
-  numeric::ConvertHalfToFloat(patterns.data(), widened.data(), patterns.size());
+  kernels::ConvertHalfToFloat(patterns.data(), widened.data(), patterns.size());
   for (size_t i = 0; i < patterns.size(); ++i) {
     ASSERT_EQ(Bits(widened[i]), Bits(HalfToFloat(patterns[i])));
   }
-  numeric::ConvertBFloat16ToFloat(patterns.data(), widened.data(), patterns.size());
+  kernels::ConvertBFloat16ToFloat(patterns.data(), widened.data(), patterns.size());
   for (size_t i = 0; i < patterns.size(); ++i) {
     ASSERT_EQ(Bits(widened[i]), Bits(BFloat16ToFloat(patterns[i])));
   }

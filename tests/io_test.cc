@@ -1,4 +1,4 @@
-// Tests of converter/io: reading .npy/.npz/.safetensors files, the writers, and AtomicFile.
+// Tests of io/: reading .npy/.npz/.safetensors files, the writers, and AtomicFile.
 //
 // Reference files come from NumPy itself: tests/python/io_make_fixtures.py writes every array
 // both in its container and as the raw bytes NumPy holds (arr.tobytes()), and the reader must
@@ -27,10 +27,10 @@
 #include <string>
 #include <vector>
 
-#include "converter/io/atomic_file.h"
-#include "converter/io/ndarray.h"
-#include "converter/io/npz.h"
-#include "converter/io/tensor_archive.h"
+#include "io/atomic_file.h"
+#include "io/ndarray.h"
+#include "io/npz.h"
+#include "io/tensor_archive.h"
 
 namespace sprig::io {
 namespace {

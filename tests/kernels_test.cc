@@ -237,7 +237,7 @@ TEST(KernelDispatch, EnvironmentSelectsOrIsRefused) {
   }
   {
     ScopedKernelPathEnv env(ToString(UnavailablePath()));
-    EXPECT_EQ(BestAvailablePath(), DetectBestPath());  // refused, with a warning on stderr
+    EXPECT_EQ(BestAvailablePath(), DetectBestPath());  // refused, with a warning to the log
   }
   for (KernelPath path : AvailablePaths()) {
     ScopedKernelPathEnv env(ToString(path));

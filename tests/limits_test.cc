@@ -7,9 +7,9 @@
 #include <cstdint>
 #include <string>
 
-#include "converter/io/mapped_file.h"
-#include "converter/io/npy.h"
-#include "converter/io/safetensors.h"
+#include "io/mapped_file.h"
+#include "io/npy.h"
+#include "io/safetensors.h"
 
 namespace sprig::io {
 namespace {

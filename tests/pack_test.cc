@@ -5,7 +5,7 @@
 #include <cstring>
 
 #include "converter/config/config_json.h"
-#include "converter/io/tensor_archive.h"
+#include "io/tensor_archive.h"
 #include "converter/pack/layout.h"
 #include "converter/pack/packer.h"
 #include "format/model_file.h"

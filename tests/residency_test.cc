@@ -16,7 +16,7 @@
 
 #include "converter/config/config_json.h"
 #include "converter/config/tensor_match.h"
-#include "converter/io/tensor_archive.h"
+#include "io/tensor_archive.h"
 #include "converter/pack/packer.h"
 #include "converter/synth/synth.h"
 #include "format/model_file.h"

@@ -13,7 +13,7 @@
 #include <string>
 #include <vector>
 
-#include "converter/io/tensor_archive.h"
+#include "io/tensor_archive.h"
 #include "sprig/model.h"
 #include "sprig/session.h"
 #include "support/test_util.h"

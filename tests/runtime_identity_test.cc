@@ -27,7 +27,7 @@
 
 #include "converter/config/config_json.h"
 #include "converter/config/tensor_match.h"
-#include "converter/io/ndarray.h"
+#include "io/ndarray.h"
 #include "converter/pack/packer.h"
 #include "converter/synth/synth.h"
 #include "kernels/kernels.h"

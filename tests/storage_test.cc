@@ -11,7 +11,7 @@
 #include <string>
 #include <vector>
 
-#include "converter/io/tensor_archive.h"
+#include "io/tensor_archive.h"
 #include "format/model_file.h"
 #include "format/preamble.h"
 #include "support/test_util.h"

@@ -4,7 +4,7 @@
 #include <cstdint>
 #include <optional>
 
-#include "converter/io/ndarray.h"
+#include "io/ndarray.h"
 
 namespace sprig::convert {
 

@@ -7,8 +7,8 @@
 #include <vector>
 
 #include "converter/config/config_json.h"
-#include "converter/io/ndarray.h"
-#include "converter/io/tensor_archive.h"
+#include "io/ndarray.h"
+#include "io/tensor_archive.h"
 #include "model/tensor_spec.h"
 #include "sprig/config.h"
 #include "sprig/status.h"

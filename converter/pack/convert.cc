@@ -5,6 +5,7 @@
 #include <cstring>
 #include <vector>
 
+#include "kernels/convert.h"
 #include "numeric/half.h"
 
 namespace sprig::convert {
@@ -39,22 +40,22 @@ void ConvertChunk(io::ElementType st, const void* s, DType dt, void* d, size_t n
       std::memcpy(d, s, n * 2);
       return;
     }
-    numeric::ConvertHalfToFloat(static_cast<const uint16_t*>(s), wide, n);
+    kernels::ConvertHalfToFloat(static_cast<const uint16_t*>(s), wide, n);
     f = wide;
   } else {  // bf16
     if (dt == DType::kBF16) {
       std::memcpy(d, s, n * 2);
       return;
     }
-    numeric::ConvertBFloat16ToFloat(static_cast<const uint16_t*>(s), wide, n);
+    kernels::ConvertBFloat16ToFloat(static_cast<const uint16_t*>(s), wide, n);
     f = wide;
   }
   if (dt == DType::kF32) {
     std::memcpy(d, f, n * 4);
   } else if (dt == DType::kF16) {
-    numeric::ConvertFloatToHalf(f, static_cast<uint16_t*>(d), n);
+    kernels::ConvertFloatToHalf(f, static_cast<uint16_t*>(d), n);
   } else {
-    numeric::ConvertFloatToBFloat16(f, static_cast<uint16_t*>(d), n);
+    kernels::ConvertFloatToBFloat16(f, static_cast<uint16_t*>(d), n);
   }
 }
 

@@ -3,7 +3,7 @@
 
 #include <cstdint>
 
-#include "converter/io/ndarray.h"
+#include "io/ndarray.h"
 #include "sprig/config.h"
 
 namespace sprig::convert {

@@ -10,8 +10,8 @@
 #include <mutex>
 #include <thread>
 
-#include "converter/io/atomic_file.h"
-#include "converter/io/tensor_archive.h"
+#include "io/atomic_file.h"
+#include "io/tensor_archive.h"
 #include "converter/pack/convert.h"
 #include "converter/pack/layout.h"
 #include "format/header_config.h"

@@ -10,7 +10,7 @@
 #include <cstdint>
 #include <vector>
 
-#include "converter/io/ndarray.h"
+#include "io/ndarray.h"
 #include "numeric/random.h"
 #include "sprig/config.h"
 

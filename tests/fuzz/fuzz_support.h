@@ -8,7 +8,7 @@
 #include <string>
 #include <vector>
 
-#include "converter/io/ndarray.h"
+#include "io/ndarray.h"
 #include "sprig/status.h"
 
 namespace sprig::fuzz {

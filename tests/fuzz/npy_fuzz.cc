@@ -6,7 +6,7 @@
 #include <cstring>
 #include <string>
 
-#include "converter/io/npy.h"
+#include "io/npy.h"
 #include "fuzz_support.h"
 
 extern "C" int LLVMFuzzerTestOneInput(const uint8_t* data, size_t size) {

@@ -3,8 +3,8 @@
 // it returns is read.
 #include <cstdint>
 
-#include "converter/io/mapped_file.h"
-#include "converter/io/npz.h"
+#include "io/mapped_file.h"
+#include "io/npz.h"
 #include "fuzz_support.h"
 
 extern "C" int LLVMFuzzerTestOneInput(const uint8_t* data, size_t size) {

@@ -2,8 +2,8 @@
 // byte of every tensor it returns is read, so a range outside the file shows up.
 #include <cstdint>
 
-#include "converter/io/mapped_file.h"
-#include "converter/io/safetensors.h"
+#include "io/mapped_file.h"
+#include "io/safetensors.h"
 #include "fuzz_support.h"
 
 extern "C" int LLVMFuzzerTestOneInput(const uint8_t* data, size_t size) {

@@ -6,8 +6,22 @@
 #include <vector>
 
 #include "cli.h"
+#include "sprig/log.h"
+
+namespace {
+
+// The library writes nothing itself: the program prints its messages, one line each on stderr.
+void PrintLibraryMessage(sprig::LogLevel level, const char* message, void* /*user*/) {
+  const char* kind = level == sprig::LogLevel::kError     ? "error"
+                     : level == sprig::LogLevel::kWarning ? "warning"
+                                                          : "note";
+  std::fprintf(stderr, "sprig: %s: %s\n", kind, message);
+}
+
+}  // namespace
 
 int main(int argc, char** argv) {
+  sprig::SetLogCallback(PrintLibraryMessage, nullptr);
   // Diagnostics go to stderr at the level SPRIG_LOG names (e.g. SPRIG_LOG=debug); default off.
   const char* log_level = std::getenv("SPRIG_LOG");
   spdlog::set_level(log_level ? spdlog::level::from_str(log_level) : spdlog::level::warn);

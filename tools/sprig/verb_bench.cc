@@ -16,11 +16,11 @@
 
 #include "bench/kit/measure.h"
 #include "bench/kit/models.h"
-#include "bench/kit/report.h"
 #include "cli.h"
-#include "converter/io/atomic_file.h"
+#include "io/atomic_file.h"
 #include "sprig/memory.h"
 #include "sprig/model.h"
+#include "tools/report/report.h"
 
 namespace sprig::cli {
 namespace {

@@ -13,7 +13,7 @@
 #include <nlohmann/json.hpp>
 
 #include "cli.h"
-#include "converter/io/tensor_archive.h"
+#include "io/tensor_archive.h"
 #include "layers/feed_forward.h"
 #include "sprig/memory.h"
 #include "sprig/session.h"

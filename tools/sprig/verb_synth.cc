@@ -4,7 +4,7 @@
 
 #include "cli.h"
 #include "converter/config/config_json.h"
-#include "converter/io/tensor_archive.h"
+#include "io/tensor_archive.h"
 #include "converter/synth/synth.h"
 
 namespace sprig::cli {

@@ -11,7 +11,7 @@
 #include <nlohmann/json.hpp>
 
 #include "cli.h"
-#include "converter/io/tensor_archive.h"
+#include "io/tensor_archive.h"
 #include "layers/feed_forward.h"
 #include "numeric/half.h"
 #include "sprig/session.h"

@@ -32,6 +32,8 @@
 #include <stddef.h>
 #include <stdint.h>
 
+#include "sprig/export.h"
+
 #ifdef __cplusplus
 extern "C" {
 #endif
@@ -210,6 +212,27 @@ typedef struct sprig_process_memory_t {
   uint64_t minor_faults, major_faults;
 } sprig_process_memory_t;
 void sprig_process_memory(sprig_process_memory_t* memory);
+
+/* ---- messages ---- */
+
+/* Messages sprig reports on its own, apart from the outcome of a call (see sprig/log.h): today
+ * one warning, when SPRIG_KERNEL_PATH names a kernel path this CPU cannot run. sprig never writes
+ * to stderr or stdout; it hands each message to the callback set here, or drops it when none is
+ * set (the default). */
+#define SPRIG_LOG_INFO 0    /* worth knowing; nothing is wrong */
+#define SPRIG_LOG_WARNING 1 /* sprig did something other than what was asked, and carried on */
+#define SPRIG_LOG_ERROR 2   /* something failed that no call's status reports */
+
+/* Receives one message: its level (SPRIG_LOG_*), a sentence without a trailing newline (valid
+ * during the call only) and the `user` pointer given to sprig_set_log_callback. It is called on
+ * the thread that emits the message, one message at a time. It must return normally (no longjmp
+ * or exception out of it) and must not call sprig's functions. */
+typedef void (*sprig_log_callback)(int level, const char* message, void* user);
+
+/* Sends sprig's messages to `callback` from now on, or drops them when it is NULL. Process-wide
+ * and thread-safe. When it returns, the previous callback is no longer running and will not be
+ * called again, so whatever its `user` points to may be released. */
+SPRIG_API void sprig_set_log_callback(sprig_log_callback callback, void* user);
 
 #ifdef __cplusplus
 } /* extern "C" */

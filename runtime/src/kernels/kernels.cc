@@ -2,10 +2,10 @@
 // never include the xsimd implementation (see kernels_simd.h).
 #include "kernels/kernels.h"
 
-#include <cstdio>
 #include <cstdlib>
 #include <string>
 
+#include "base/log.h"
 #include "kernels/kernels_internal.h"
 
 #if defined(__aarch64__) && defined(__linux__)
@@ -131,8 +131,7 @@ KernelPath BestAvailablePath() {
   Result<KernelPath> path = ResolvePath(std::getenv("SPRIG_KERNEL_PATH"));
   if (path.ok()) return *path;
   const KernelPath best = DetectBestPath();
-  std::fprintf(stderr, "sprig: warning: %s; using \"%s\".\n", path.status().message().c_str(),
-               ToString(best));
+  base::Log(LogLevel::kWarning, path.status().message() + "; using \"" + ToString(best) + "\".");
   return best;
 }
 

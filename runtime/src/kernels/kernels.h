@@ -123,7 +123,7 @@ KernelPath DetectBestPath();
 Result<KernelPath> ResolvePath(const char* requested);
 
 // The path used by ActiveKernels(): ResolvePath(getenv("SPRIG_KERNEL_PATH")). A request this
-// CPU cannot honour is refused: one warning line goes to stderr and DetectBestPath() is used.
+// CPU cannot honour is refused: DetectBestPath() is used, with a warning to the log callback.
 KernelPath BestAvailablePath();
 
 // The table of `path`. Precondition: IsPathAvailable(path); otherwise the scalar table is

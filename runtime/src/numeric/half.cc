@@ -2,8 +2,6 @@
 
 #include <bit>
 
-#include "kernels/kernels.h"
-
 namespace sprig::numeric {
 namespace {
 
@@ -114,23 +112,6 @@ float BFloat16ToFloat(uint16_t bits) {
   return std::bit_cast<float>(uint32_t(bits) << 16);
 }
 
-void ConvertFloatToHalf(const float* src, uint16_t* dst, size_t n) {
-  kernels::ActiveKernels().f32_to_f16(src, dst, n);
-}
-
-void ConvertHalfToFloat(const uint16_t* src, float* dst, size_t n) {
-  kernels::ActiveKernels().f16_to_f32(src, dst, n);
-}
-
-void ConvertFloatToBFloat16(const float* src, uint16_t* dst, size_t n) {
-  kernels::ActiveKernels().f32_to_bf16(src, dst, n);
-}
-
-void ConvertBFloat16ToFloat(const uint16_t* src, float* dst, size_t n) {
-  kernels::ActiveKernels().bf16_to_f32(src, dst, n);
-}
-
-// Float64 input is rare (it only arrives at pack time), so these stay scalar.
 void ConvertDoubleToHalf(const double* src, uint16_t* dst, size_t n) {
   for (size_t i = 0; i < n; ++i) dst[i] = DoubleToHalf(src[i]);
 }

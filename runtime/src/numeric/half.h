@@ -27,13 +27,10 @@ uint16_t FloatToBFloat16(float value);
 float BFloat16ToFloat(uint16_t bits);
 uint16_t DoubleToBFloat16(double value);
 
-// Array converters, bit-identical to the scalar functions above. The float <-> f16/bf16 ones
-// run on the fastest kernel path of this CPU (kernels::ActiveKernels(), e.g. F16C on AVX2).
-// `src` and `dst` must not overlap.
-void ConvertFloatToHalf(const float* src, uint16_t* dst, size_t n);
-void ConvertHalfToFloat(const uint16_t* src, float* dst, size_t n);
-void ConvertFloatToBFloat16(const float* src, uint16_t* dst, size_t n);
-void ConvertBFloat16ToFloat(const uint16_t* src, float* dst, size_t n);
+// Array converters from float64: the scalar functions above, element by element (float64 input
+// only arrives at pack time, so it has no vector path). The float32 <-> f16/bf16 array
+// converters run on the fastest kernel path of the CPU and so live with the kernels
+// (kernels/convert.h). `src` and `dst` must not overlap.
 void ConvertDoubleToHalf(const double* src, uint16_t* dst, size_t n);
 void ConvertDoubleToBFloat16(const double* src, uint16_t* dst, size_t n);
 

@@ -1,4 +1,4 @@
-// The .safetensors container. Internal to converter/io.
+// The .safetensors container. Internal to io/.
 //
 //   u64 N (little-endian) | N bytes of JSON header | data
 //   header: {"NAME": {"dtype": "F32", "shape": [3, 4], "data_offsets": [BEGIN, END]}, ...,
@@ -11,8 +11,8 @@
 #include <string>
 #include <vector>
 
-#include "converter/io/mapped_file.h"
-#include "converter/io/ndarray.h"
+#include "io/mapped_file.h"
+#include "io/ndarray.h"
 #include "sprig/status.h"
 
 namespace sprig::io {

@@ -9,7 +9,7 @@
 #include <unordered_map>
 #include <vector>
 
-#include "converter/io/ndarray.h"
+#include "io/ndarray.h"
 #include "sprig/status.h"
 
 namespace sprig::io {

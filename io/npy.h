@@ -1,6 +1,6 @@
 // The .npy format (NumPy format versions 1.0, 2.0 and 3.0): header parsing, decoding of a
 // whole .npy image (a file or an .npz member) into an NdArray, and header encoding.
-// Internal to converter/io.
+// Internal to io/.
 //
 //   "\x93NUMPY" major minor  header_len (u16 in 1.0; u32 in 2.0/3.0)
 //   header: a Python dict literal {'descr': '<f4', 'fortran_order': False, 'shape': (3, 4), }
@@ -13,7 +13,7 @@
 #include <string>
 #include <vector>
 
-#include "converter/io/ndarray.h"
+#include "io/ndarray.h"
 #include "sprig/status.h"
 
 namespace sprig::io {

@@ -1,5 +1,5 @@
 // Little-endian loads and stores, overflow-checked arithmetic and small formatting helpers
-// shared by the container readers and writers. Internal to converter/io.
+// shared by the container readers and writers. Internal to io/.
 #pragma once
 
 #include <bit>

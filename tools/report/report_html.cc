@@ -2,8 +2,8 @@
 #include <algorithm>
 #include <cstdio>
 
-#include "bench/kit/report.h"
-#include "bench/kit/svg.h"
+#include "tools/report/report.h"
+#include "tools/report/svg.h"
 
 namespace sprig::bench {
 namespace {

@@ -1,16 +1,16 @@
-#include "converter/io/tensor_archive.h"
+#include "io/tensor_archive.h"
 
 #include <cstring>
 #include <filesystem>
 #include <optional>
 #include <utility>
 
-#include "converter/io/atomic_file.h"
-#include "converter/io/bytes.h"
-#include "converter/io/mapped_file.h"
-#include "converter/io/npy.h"
-#include "converter/io/npz.h"
-#include "converter/io/safetensors.h"
+#include "io/atomic_file.h"
+#include "io/bytes.h"
+#include "io/mapped_file.h"
+#include "io/npy.h"
+#include "io/npz.h"
+#include "io/safetensors.h"
 
 namespace sprig::io {
 

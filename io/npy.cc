@@ -1,4 +1,4 @@
-#include "converter/io/npy.h"
+#include "io/npy.h"
 
 #include <cctype>
 #include <cstring>
@@ -6,7 +6,7 @@
 #include <string_view>
 #include <utility>
 
-#include "converter/io/bytes.h"
+#include "io/bytes.h"
 
 namespace sprig::io {
 

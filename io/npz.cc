@@ -1,4 +1,4 @@
-#include "converter/io/npz.h"
+#include "io/npz.h"
 
 #include <zlib.h>
 
@@ -9,9 +9,9 @@
 #include <unordered_set>
 #include <utility>
 
-#include "converter/io/atomic_file.h"
-#include "converter/io/bytes.h"
-#include "converter/io/npy.h"
+#include "io/atomic_file.h"
+#include "io/bytes.h"
+#include "io/npy.h"
 
 namespace sprig::io {
 

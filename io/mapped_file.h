@@ -1,5 +1,5 @@
 // MappedFile: a whole file mapped read-only, shared by every array that points into it.
-// Internal to converter/io. Immutable after Open, so safe to share between threads.
+// Internal to io/. Immutable after Open, so safe to share between threads.
 #pragma once
 
 #include <cstdint>

@@ -3,7 +3,7 @@
 #include <cstdlib>
 #include <thread>
 
-#include "bench/kit/report.h"
+#include "tools/report/report.h"
 
 namespace sprig::bench {
 namespace {

@@ -1,4 +1,4 @@
-#include "converter/io/ndarray.h"
+#include "io/ndarray.h"
 
 #include <utility>
 

@@ -1,4 +1,4 @@
-#include "converter/io/safetensors.h"
+#include "io/safetensors.h"
 
 #include <algorithm>
 #include <cstring>
@@ -6,10 +6,10 @@
 #include <unordered_set>
 #include <utility>
 
-#include "converter/io/atomic_file.h"
-#include "converter/io/bytes.h"
-#include "converter/io/npy.h"
-#include "converter/io/tensor_archive.h"
+#include "io/atomic_file.h"
+#include "io/bytes.h"
+#include "io/npy.h"
+#include "io/tensor_archive.h"
 
 namespace sprig::io {
 

@@ -1,4 +1,4 @@
-#include "converter/io/bytes.h"
+#include "io/bytes.h"
 
 namespace sprig::io {
 

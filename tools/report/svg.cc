@@ -1,4 +1,4 @@
-#include "bench/kit/svg.h"
+#include "tools/report/svg.h"
 
 #include <algorithm>
 #include <cmath>

@@ -1,5 +1,5 @@
 // The .npz container: a zip archive whose members "x.npy" are .npy images of the arrays "x".
-// Internal to converter/io; TensorArchive and WriteNpz are the public entry points.
+// Internal to io/; TensorArchive and WriteNpz are the public entry points.
 //
 // Reading follows the zip specification (APPNOTE.TXT) as far as NumPy and Python's zipfile
 // use it: one disk, stored (method 0) or deflated (method 8) members, ZIP64 end records and
@@ -11,8 +11,8 @@
 #include <string>
 #include <vector>
 
-#include "converter/io/mapped_file.h"
-#include "converter/io/ndarray.h"
+#include "io/mapped_file.h"
+#include "io/ndarray.h"
 #include "sprig/status.h"
 
 namespace sprig::io {
