@@ -12,6 +12,7 @@
 #include <vector>
 
 #include "sprig/config.h"
+#include "sprig/export.h"
 #include "sprig/status.h"
 
 namespace sprig {
@@ -56,7 +57,7 @@ struct Residency {
   uint64_t records_size = 0, records_resident = 0;
 };
 
-class Model {
+class SPRIG_API Model {
  public:
   // Opens `path`. On failure the Status names the file and what is wrong with it.
   static Result<std::shared_ptr<const Model>> open(const std::string& path,

@@ -12,6 +12,7 @@
 #include <string>
 #include <vector>
 
+#include "sprig/export.h"
 #include "sprig/model.h"
 #include "sprig/status.h"
 
@@ -90,7 +91,7 @@ struct SessionStats {
   std::vector<LayerTouch> touched;
 };
 
-class Session {
+class SPRIG_API Session {
  public:
   static Result<std::unique_ptr<Session>> create(std::shared_ptr<const Model> model,
                                                  const SessionOptions& options = {});

@@ -51,13 +51,13 @@ extern "C" {
 
 /* A short constant name for a status code ("invalid argument", ...); "unknown" for others.
  * The string is static: do not free it. */
-const char* sprig_status_name(int code);
+SPRIG_API const char* sprig_status_name(int code);
 
 /* Frees a string sprig allocated (an error message). NULL is allowed. */
-void sprig_free(void* ptr);
+SPRIG_API void sprig_free(void* ptr);
 
 /* The library's version, "MAJOR.MINOR.PATCH". The string is static: do not free it. */
-const char* sprig_version(void);
+SPRIG_API const char* sprig_version(void);
 
 /* ---- models ---- */
 
@@ -70,28 +70,28 @@ typedef struct sprig_model_t sprig_model_t;
  * until inference touches it. On success *model receives a new handle. On failure *model is
  * set to NULL and the code says why: SPRIG_NOT_FOUND for a missing file, SPRIG_CORRUPTION for
  * damaged bytes, and so on, with a message naming the file. */
-int sprig_model_open(const char* path, sprig_model_t** model, char** errptr);
+SPRIG_API int sprig_model_open(const char* path, sprig_model_t** model, char** errptr);
 
 /* Releases the handle. Sessions created from it stay valid. NULL is allowed. */
-void sprig_model_close(sprig_model_t* model);
+SPRIG_API void sprig_model_close(sprig_model_t* model);
 
 /* What the model's config says. Each returns 0 for a NULL model. */
-int sprig_model_family(const sprig_model_t* model);         /* SPRIG_FAMILY_STACK or _TRANSFORMER */
-size_t sprig_model_layer_count(const sprig_model_t* model); /* feed-forward layers/blocks */
-size_t sprig_model_input_dim(const sprig_model_t* model);   /* stack: floats per row */
-size_t sprig_model_vocab_size(const sprig_model_t* model);  /* transformer: tokens 0..n-1 */
-size_t sprig_model_max_seq(const sprig_model_t* model);     /* transformer: longest sequence */
+SPRIG_API int sprig_model_family(const sprig_model_t* model);         /* SPRIG_FAMILY_STACK or _TRANSFORMER */
+SPRIG_API size_t sprig_model_layer_count(const sprig_model_t* model); /* feed-forward layers/blocks */
+SPRIG_API size_t sprig_model_input_dim(const sprig_model_t* model);   /* stack: floats per row */
+SPRIG_API size_t sprig_model_vocab_size(const sprig_model_t* model);  /* transformer: tokens 0..n-1 */
+SPRIG_API size_t sprig_model_max_seq(const sprig_model_t* model);     /* transformer: longest sequence */
 /* Floats per output row (stack), or per token or sequence (transformer: vocab_size logits for
  * an lm head, one score per class for a classifier, d_model for no head). */
-size_t sprig_model_output_dim(const sprig_model_t* model);
+SPRIG_API size_t sprig_model_output_dim(const sprig_model_t* model);
 /* Floats sprig_session_forward_tokens writes for `batch` sequences of `length` tokens:
  * batch × length × output_dim, or batch × output_dim for a classifier (one row per sequence).
  * 0 for a stack model or a NULL model. */
-size_t sprig_model_tokens_output_size(const sprig_model_t* model, size_t batch, size_t length);
+SPRIG_API size_t sprig_model_tokens_output_size(const sprig_model_t* model, size_t batch, size_t length);
 
 /* Reads every weight and compares it with its stored checksum: SPRIG_OK, or SPRIG_CHECK_FAILED
  * with a message naming the damaged tensors. May take a while on large files. */
-int sprig_model_verify_checksums(const sprig_model_t* model, char** errptr);
+SPRIG_API int sprig_model_verify_checksums(const sprig_model_t* model, char** errptr);
 
 /* ---- sessions ---- */
 
@@ -101,45 +101,45 @@ typedef struct sprig_session_t sprig_session_t;
  * included (0 means one per CPU; at most 256). The kernel instruction set is the fastest the
  * CPU supports, or the one the SPRIG_KERNEL_PATH environment variable names. On failure
  * *session is set to NULL. */
-int sprig_session_create(const sprig_model_t* model, size_t threads, sprig_session_t** session,
+SPRIG_API int sprig_session_create(const sprig_model_t* model, size_t threads, sprig_session_t** session,
                          char** errptr);
 
 /* Releases the session (and its reference to the model). NULL is allowed. */
-void sprig_session_destroy(sprig_session_t* session);
+SPRIG_API void sprig_session_destroy(sprig_session_t* session);
 
 /* Threads the session uses, and the kernel instruction set it runs ("avx2", ...; a static
  * string). 0 and NULL for a NULL session. */
-size_t sprig_session_threads(const sprig_session_t* session);
-const char* sprig_session_kernel_path(const sprig_session_t* session);
+SPRIG_API size_t sprig_session_threads(const sprig_session_t* session);
+SPRIG_API const char* sprig_session_kernel_path(const sprig_session_t* session);
 
 /* Stack models: `input` holds rows × input_dim floats (row-major); `output` receives
  * rows × output_dim. A row's result does not depend on the thread count or on how rows are
  * split into calls. SPRIG_INVALID_ARGUMENT for a transformer model or a non-finite input. */
-int sprig_session_forward(sprig_session_t* session, const float* input, size_t rows, float* output,
+SPRIG_API int sprig_session_forward(sprig_session_t* session, const float* input, size_t rows, float* output,
                           char** errptr);
 
 /* Transformer models: runs `batch` sequences of `length` tokens (row-major [batch, length]),
  * each independently from position 0; the KV cache is neither used nor changed. `output`
  * receives sprig_model_tokens_output_size(model, batch, length) floats. SPRIG_INVALID_ARGUMENT
  * for a stack model, length > max_seq or a token outside [0, vocab_size). */
-int sprig_session_forward_tokens(sprig_session_t* session, const int32_t* tokens, size_t batch,
+SPRIG_API int sprig_session_forward_tokens(sprig_session_t* session, const int32_t* tokens, size_t batch,
                                  size_t length, float* output, char** errptr);
 
 /* Causal transformer models with an lm head: runs `token` at the KV cache's next position
  * (sprig_session_position), keeps its keys and values, and writes the vocab_size logits of the
  * next token to `logits` (which may be NULL). SPRIG_INVALID_ARGUMENT when the cache is full
  * (max_seq tokens), the token is out of range or the model is not a causal lm. */
-int sprig_session_append_token(sprig_session_t* session, int32_t token, float* logits,
+SPRIG_API int sprig_session_append_token(sprig_session_t* session, int32_t token, float* logits,
                                char** errptr);
 /* As sprig_session_append_token for `count` tokens in one batched pass; `logits` (may be NULL)
  * receives the logits after the last of them. */
-int sprig_session_append_tokens(sprig_session_t* session, const int32_t* tokens, size_t count,
+SPRIG_API int sprig_session_append_tokens(sprig_session_t* session, const int32_t* tokens, size_t count,
                                 float* logits, char** errptr);
 
 /* Empties the KV cache: the next token goes to position 0. NULL is allowed. */
-void sprig_session_reset(sprig_session_t* session);
+SPRIG_API void sprig_session_reset(sprig_session_t* session);
 /* Tokens held in the KV cache; 0 for a NULL session. */
-size_t sprig_session_position(const sprig_session_t* session);
+SPRIG_API size_t sprig_session_position(const sprig_session_t* session);
 
 /* How sprig_session_generate picks each token. Fill it with sprig_generate_options_default
  * and change the fields you need. */
@@ -151,7 +151,7 @@ typedef struct sprig_generate_options_t {
 } sprig_generate_options_t;
 
 /* Sets every field to its default. NULL is allowed (does nothing). */
-void sprig_generate_options_default(sprig_generate_options_t* options);
+SPRIG_API void sprig_generate_options_default(sprig_generate_options_t* options);
 
 /* Called with each generated token as soon as it is chosen; return nonzero to continue and 0 to
  * stop. `user` is the pointer given to sprig_session_generate. It must return normally (no
@@ -164,7 +164,7 @@ typedef int (*sprig_token_callback)(int32_t token, void* user);
  * token chosen is still passed; sprig_session_position then equals max_seq). Returns SPRIG_OK
  * in all these cases; SPRIG_INVALID_ARGUMENT for an empty prompt, bad options, a NULL
  * callback, or a model that cannot generate. */
-int sprig_session_generate(sprig_session_t* session, const int32_t* prompt, size_t prompt_len,
+SPRIG_API int sprig_session_generate(sprig_session_t* session, const int32_t* prompt, size_t prompt_len,
                            const sprig_generate_options_t* options, sprig_token_callback callback,
                            void* user, char** errptr);
 
@@ -186,13 +186,13 @@ typedef struct sprig_session_stats_t {
 } sprig_session_stats_t;
 
 /* Fills *stats. Both must be non-NULL (else nothing is written). */
-void sprig_session_stats(const sprig_session_t* session, sprig_session_stats_t* stats);
-void sprig_session_reset_stats(sprig_session_t* session);
+SPRIG_API void sprig_session_stats(const sprig_session_t* session, sprig_session_stats_t* stats);
+SPRIG_API void sprig_session_reset_stats(sprig_session_t* session);
 
 /* The records (leaves, experts, path-tree chunks) the session has read in its `index`-th layer
  * with records: the model layer it is, how many distinct records were read, of how many, and
  * the bytes of one record. SPRIG_INVALID_ARGUMENT when index >= routed_layers. */
-int sprig_session_touched(const sprig_session_t* session, size_t index, size_t* layer,
+SPRIG_API int sprig_session_touched(const sprig_session_t* session, size_t index, size_t* layer,
                           uint64_t* touched, uint64_t* records, uint64_t* record_size,
                           char** errptr);
 
@@ -202,7 +202,7 @@ typedef struct sprig_residency_t {
   uint64_t hot_size, hot_resident;
   uint64_t records_size, records_resident;
 } sprig_residency_t;
-void sprig_model_residency(const sprig_model_t* model, sprig_residency_t* residency);
+SPRIG_API void sprig_model_residency(const sprig_model_t* model, sprig_residency_t* residency);
 
 /* This process's memory now (from /proc/self/status and getrusage): resident bytes, the peak,
  * file-backed and anonymous resident bytes, and page-fault counts. Zeros where the system does
@@ -211,7 +211,7 @@ typedef struct sprig_process_memory_t {
   uint64_t rss, peak_rss, rss_file, rss_anon;
   uint64_t minor_faults, major_faults;
 } sprig_process_memory_t;
-void sprig_process_memory(sprig_process_memory_t* memory);
+SPRIG_API void sprig_process_memory(sprig_process_memory_t* memory);
 
 /* ---- messages ---- */
 
