@@ -1,9 +1,9 @@
 // sprig::Model: an opened .sprig file.
 //
 // A Model is immutable once open and safe to share between any number of threads; each thread
-// runs it through its own Session. Opening maps the file read-only and verifies its preamble
-// and header (every offset and size against the file); it reads no weights, which are paged in
-// from the mapping as inference touches them.
+// runs it through its own Session. Opening maps the file read-only, verifies its preamble and
+// header (every offset and size against the file) and binds the network (pointers into the
+// mapping); it reads no weights, which are paged in from the mapping as inference touches them.
 #pragma once
 
 #include <cstdint>
@@ -80,13 +80,15 @@ class Model {
   bool hot_locked() const;
 
   // The underlying file and bound layers, for sprig's own tools. Not part of the stable API.
-  const format::ModelFile& file() const { return *file_; }
-  const std::vector<std::unique_ptr<layers::FeedForward>>& layers() const { return layers_; }
+  const format::ModelFile& file() const;
+  const std::vector<std::unique_ptr<layers::FeedForward>>& layers() const;
+
+  // The model's private state: the mapped file and the network bound to it.
+  struct Impl;
 
  private:
-  explicit Model(std::unique_ptr<format::ModelFile> file);
-  std::unique_ptr<format::ModelFile> file_;
-  std::vector<std::unique_ptr<layers::FeedForward>> layers_;
+  explicit Model(std::unique_ptr<Impl> impl);
+  std::unique_ptr<Impl> impl_;
 };
 
 }  // namespace sprig

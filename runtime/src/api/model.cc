@@ -1,12 +1,12 @@
 #include "sprig/model.h"
 
-#include "format/model_file.h"
-#include "layers/feed_forward.h"
-#include "model/tensor_spec.h"
+#include "api/model_impl.h"
+#include "network/stack_network.h"
+#include "transformer/transformer.h"
 
 namespace sprig {
 
-Model::Model(std::unique_ptr<format::ModelFile> file) : file_(std::move(file)) {}
+Model::Model(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
 Model::~Model() = default;
 
 Result<std::shared_ptr<const Model>> Model::open(const std::string& path,
@@ -15,47 +15,55 @@ Result<std::shared_ptr<const Model>> Model::open(const std::string& path,
   file_options.advise_random_records = options.advise_random_records;
   file_options.warm_hot = options.warm_hot;
   file_options.lock_hot = options.lock_hot;
-  SPRIG_ASSIGN_OR_RETURN(auto file, format::ModelFile::Open(path, file_options));
-  std::shared_ptr<Model> model(new Model(std::move(file)));
+  auto impl = std::make_unique<Impl>();
+  SPRIG_ASSIGN_OR_RETURN(impl->file, format::ModelFile::Open(path, file_options));
   // Binding only records pointers into the mapping; no weight is read.
-  const format::ModelFile& f = *model->file_;
-  for (size_t i = 0; i < f.config().layers.size(); ++i) {
-    SPRIG_ASSIGN_OR_RETURN(auto layer, layers::BindLayer(f, i, LayerPrefix(f.config(), i)));
-    model->layers_.push_back(std::move(layer));
+  if (impl->file->config().family == Family::kStack) {
+    SPRIG_ASSIGN_OR_RETURN(impl->network, network::StackNetwork::Bind(*impl->file));
+  } else {
+    SPRIG_ASSIGN_OR_RETURN(impl->network, transformer::TransformerNetwork::Bind(*impl->file));
   }
-  return std::shared_ptr<const Model>(std::move(model));
+  return std::shared_ptr<const Model>(new Model(std::move(impl)));
 }
 
 const ModelConfig& Model::config() const {
-  return file_->config();
+  return impl_->file->config();
 }
 const std::string& Model::path() const {
-  return file_->path();
+  return impl_->file->path();
 }
 uint64_t Model::file_size() const {
-  return file_->file_size();
+  return impl_->file->file_size();
 }
 Status Model::verify_checksums() const {
-  return file_->VerifyChecksums();
+  return impl_->file->VerifyChecksums();
 }
 bool Model::hot_locked() const {
-  return file_->hot_locked();
+  return impl_->file->hot_locked();
 }
 
 Residency Model::residency() const {
+  const format::ModelFile& file = *impl_->file;
   Residency r;
-  for (const format::SectionInfo& s : file_->sections()) {
+  for (const format::SectionInfo& s : file.sections()) {
     SectionResidency sr;
     sr.name = s.name;
     sr.records = s.records;
     sr.layer = s.records ? s.layer : -1;
     sr.size = s.size;
-    sr.resident_bytes = format::ResidentBytes(file_->base() + s.offset, s.size);
+    sr.resident_bytes = format::ResidentBytes(file.base() + s.offset, s.size);
     (s.records ? r.records_size : r.hot_size) += sr.size;
     (s.records ? r.records_resident : r.hot_resident) += sr.resident_bytes;
     r.sections.push_back(std::move(sr));
   }
   return r;
+}
+
+const format::ModelFile& Model::file() const {
+  return *impl_->file;
+}
+const std::vector<std::unique_ptr<layers::FeedForward>>& Model::layers() const {
+  return impl_->network->layers();
 }
 
 }  // namespace sprig

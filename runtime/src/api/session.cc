@@ -5,16 +5,15 @@
 #include <chrono>
 #include <cmath>
 #include <cstdio>
-#include <cstring>
-#include <optional>
 #include <thread>
 
-#include "format/model_file.h"
+#include "api/model_impl.h"
 #include "kernels/kernels.h"
 #include "layers/feed_forward.h"
 #include "layers/thread_pool.h"
+#include "network/network.h"
+#include "network/recorder.h"
 #include "transformer/sampler.h"
-#include "transformer/transformer.h"
 
 namespace sprig {
 namespace {
@@ -44,15 +43,14 @@ Status CheckTokens(const int32_t* tokens, size_t n, uint32_t vocab) {
 
 }  // namespace
 
+// Everything a session's calls change; the model's network is shared and never changes.
 struct Session::State {
+  const network::Network* network = nullptr;
   const kernels::KernelTable* kernels = nullptr;
   std::unique_ptr<layers::ThreadPool> pool;
   std::vector<layers::Scratch> scratch;
-  std::vector<float> ping, pong;  // activations between layers
-  // Transformer models only.
-  std::optional<transformer::Transformer> transformer;
-  transformer::Workspace workspace;
-  transformer::KvCache cache;
+  std::unique_ptr<network::Workspace> workspace;
+  network::KvCache cache;  // transformer models only
   SessionStats stats;
   layers::TouchLog touched;  // one bitset per model layer, sized at creation
 
@@ -75,6 +73,7 @@ Result<std::unique_ptr<Session>> Session::create(std::shared_ptr<const Model> mo
                                                  const SessionOptions& options) {
   if (!model) return Status::InvalidArgument("Session::create needs an open model");
   auto state = std::make_unique<State>();
+  state->network = Model::Impl::Of(*model).network.get();
   kernels::KernelPath path;
   if (options.kernel_path.empty()) {
     path = kernels::BestAvailablePath();
@@ -89,13 +88,10 @@ Result<std::unique_ptr<Session>> Session::create(std::shared_ptr<const Model> mo
   }
   if (threads > 1) state->pool = std::make_unique<layers::ThreadPool>(threads);
   state->scratch.resize(threads);
-  for (const auto& layer : model->layers()) {
+  for (const auto& layer : state->network->layers()) {
     state->touched.bits.emplace_back((layer->record_count() + 63) / 64, 0);
   }
-  if (model->config().family == Family::kTransformer) {
-    SPRIG_ASSIGN_OR_RETURN(auto bound, transformer::Transformer::Bind(*model));
-    state->transformer.emplace(std::move(bound));
-  }
+  state->workspace = state->network->NewWorkspace();
   return std::unique_ptr<Session>(new Session(std::move(model), std::move(state)));
 }
 
@@ -122,49 +118,21 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
     }
   }
   const auto start = std::chrono::steady_clock::now();
-  const layers::Exec exec = state_->MakeExec(rows == 1);
-  if (routes) routes->layers.clear();
-  if (trace) trace->clear();
-  const auto& net = model_->layers();
-  const float* x = input;
-  for (size_t i = 0; i < net.size(); ++i) {
-    const layers::FeedForward& layer = *net[i];
-    float* y = output;
-    if (i + 1 < net.size()) {
-      std::vector<float>& buf = (i % 2 == 0) ? state_->ping : state_->pong;
-      if (buf.size() < rows * layer.out()) buf.resize(rows * layer.out());
-      y = buf.data();
-    }
-    int32_t* route_out = nullptr;
-    if (routes && layer.route_width() > 0) {
-      LayerRoutes lr;
-      lr.layer = i;
-      lr.width = layer.route_width();
-      lr.choices.resize(rows * lr.width);
-      routes->layers.push_back(std::move(lr));
-      route_out = routes->layers.back().choices.data();
-    }
-    layer.Forward(exec, x, rows, y, route_out);
-    if (trace) {
-      trace->push_back({i, layer.in(), layer.out(), std::vector<float>(x, x + rows * layer.in()),
-                        std::vector<float>(y, y + rows * layer.out())});
-    }
-    x = y;
-  }
+  network::Input call;
+  call.rows = input;
+  call.sequences = rows;
+  network::Recorder recorder(routes, trace);
+  state_->network->Forward(state_->MakeExec(rows == 1), *state_->workspace, call, output, recorder);
   state_->stats.forward_calls += 1;
   state_->stats.rows += rows;
   state_->stats.forward_seconds += SecondsSince(start);
   return Status::Ok();
 }
 
-}  // namespace sprig
-
-namespace sprig {
-
 Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t length, float* output,
                                Routes* routes, std::vector<LayerTrace>* trace) {
   const ModelConfig& c = model_->config();
-  if (!state_->transformer) {
+  if (c.family != Family::kTransformer) {
     return Status::InvalidArgument(model_->path() +
                                    " is a stack model; it takes float rows, not tokens");
   }
@@ -178,9 +146,13 @@ Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t lengt
   }
   SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, batch * length, c.vocab_size));
   const auto start = std::chrono::steady_clock::now();
-  const layers::Exec exec = state_->MakeExec(batch * length == 1);
-  state_->transformer->Forward(exec, state_->workspace, tokens, batch, length, output, routes,
-                               trace);
+  network::Input call;
+  call.tokens = tokens;
+  call.sequences = batch;
+  call.length = length;
+  network::Recorder recorder(routes, trace);
+  state_->network->Forward(state_->MakeExec(batch * length == 1), *state_->workspace, call, output,
+                           recorder);
   state_->stats.forward_calls += 1;
   state_->stats.sequence_tokens += batch * length;
   state_->stats.forward_seconds += SecondsSince(start);
@@ -189,7 +161,7 @@ Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t lengt
 
 Status Session::append_tokens(const int32_t* tokens, size_t count, float* logits) {
   const ModelConfig& c = model_->config();
-  if (!state_->transformer) {
+  if (c.family != Family::kTransformer) {
     return Status::InvalidArgument(model_->path() + " is a stack model; it has no KV cache");
   }
   if (c.head.kind != HeadKind::kLm) {
@@ -212,8 +184,9 @@ Status Session::append_tokens(const int32_t* tokens, size_t count, float* logits
   SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, count, c.vocab_size));
   if (count == 0) return Status::Ok();
   const auto start = std::chrono::steady_clock::now();
-  const layers::Exec exec = state_->MakeExec(count == 1);
-  state_->transformer->Append(exec, state_->workspace, state_->cache, tokens, count, logits);
+  // The checks passed, so the model is a transformer, whose network decodes.
+  state_->network->decoder()->Append(state_->MakeExec(count == 1), *state_->workspace,
+                                     state_->cache, tokens, count, logits);
   const double seconds = SecondsSince(start);
   if (count == 1) {
     state_->stats.decode_tokens += 1;
@@ -237,13 +210,13 @@ const SessionStats& Session::stats() const {
   // Counted from the bitsets on demand, so forward calls only set bits.
   SessionStats& s = state_->stats;
   s.touched.clear();
-  const auto& net = model_->layers();
-  for (size_t i = 0; i < net.size(); ++i) {
-    if (net[i]->records() == nullptr) continue;
+  const auto& layers = state_->network->layers();
+  for (size_t i = 0; i < layers.size(); ++i) {
+    if (layers[i]->records() == nullptr) continue;
     LayerTouch t;
     t.layer = i;
-    t.records = net[i]->record_count();
-    t.record_size = net[i]->records()->record_size;
+    t.records = layers[i]->record_count();
+    t.record_size = layers[i]->records()->record_size;
     for (uint64_t word : state_->touched.bits[i]) t.touched += std::popcount(word);
     s.touched.push_back(t);
   }
@@ -272,7 +245,7 @@ Status Session::generate(const std::vector<int32_t>& prompt, const GenerateOptio
     return Status::InvalidArgument("generate needs a prompt of at least one token");
   const ModelConfig& c = model_->config();
   reset();
-  std::vector<float> logits(state_->transformer ? c.vocab_size : 0);
+  std::vector<float> logits(c.family == Family::kTransformer ? c.vocab_size : 0);
   // The prompt in one batched pass; its last token's logits predict the first new token.
   SPRIG_RETURN_IF_ERROR(append_tokens(prompt.data(), prompt.size(), logits.data()));
   transformer::Random rng(options.seed);
