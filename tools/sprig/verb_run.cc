@@ -14,7 +14,6 @@
 
 #include "cli.h"
 #include "converter/io/tensor_archive.h"
-#include "layers/feed_forward.h"
 #include "sprig/memory.h"
 #include "sprig/session.h"
 
@@ -344,11 +343,10 @@ void PrintHistogram(const Usage& u) {
 int RunRoutes(const RunArgs& a) {
   auto r = RunModel(a, true);
   if (!r.ok()) return Fail("routes", r.status());
-  auto model = Model::open(a.model);
-  if (!model.ok()) return Fail("routes", model.status());
+  const std::vector<LayerDescription> layers = r->model->layer_descriptions();
   std::vector<Usage> usage;
   for (const LayerRoutes& lr : r->routes.layers) {
-    usage.push_back(Summarise(lr, (*model)->layers()[lr.layer]->unit_count()));
+    usage.push_back(Summarise(lr, layers[lr.layer].units));
   }
   if (a.json) {
     nlohmann::json j;
@@ -371,7 +369,7 @@ int RunRoutes(const RunArgs& a) {
   std::printf("%s: routes of %zu rows\n", a.model.c_str(), r->rows);
   if (usage.empty()) std::printf("  the model has no routed layers\n");
   for (const Usage& u : usage) {
-    const LayerConfig& lc = (*model)->config().layers[u.layer];
+    const LayerConfig& lc = r->model->config().layers[u.layer];
     std::printf("\nlayer %zu (%s, %zu %s)\n", u.layer, ToString(lc.kind), u.counts.size(),
                 lc.kind == LayerKind::kExperts ? "experts" : "leaves");
     std::printf("  entropy      %.2f bits of %.2f possible (%.0f%%)\n", u.entropy_bits,

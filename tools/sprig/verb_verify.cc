@@ -10,9 +10,9 @@
 #include <cstring>
 #include <nlohmann/json.hpp>
 
+#include "api/model_internals.h"
 #include "cli.h"
 #include "converter/io/tensor_archive.h"
-#include "layers/feed_forward.h"
 #include "numeric/half.h"
 #include "sprig/session.h"
 #include "verify_check.h"
@@ -193,14 +193,10 @@ std::string TensorPrefix(const ModelConfig& c, size_t layer) {
          (c.family == Family::kStack ? "." : ".ffn.");
 }
 
-// The storage type of the tensor that makes a routed layer's decisions.
-DType DecidingType(const Model& model, size_t layer) {
-  const ModelConfig& c = model.config();
-  const std::string name =
-      TensorPrefix(c, layer) +
-      (c.layers[layer].kind == LayerKind::kExperts ? "router.weight" : "nodes.weight");
-  const format::TensorInfo* t = model.file().Find(name);
-  return t ? t->dtype : DType::kF32;
+// The tensor that makes a routed layer's decisions.
+std::string DecidingTensor(const ModelConfig& c, size_t layer) {
+  return TensorPrefix(c, layer) +
+         (c.layers[layer].kind == LayerKind::kExperts ? "router.weight" : "nodes.weight");
 }
 
 // For int8 deciding weights, an absolute bound per row on how far storage rounding moved the
@@ -215,14 +211,13 @@ std::vector<double> Int8MarginBounds(const Model& model, const RoutedLayer& r,
   const ModelConfig& c = model.config();
   const LayerConfig& layer = c.layers[r.layer];
   const bool experts = layer.kind == LayerKind::kExperts;
-  const format::TensorInfo* t =
-      model.file().Find(TensorPrefix(c, r.layer) + (experts ? "router.weight" : "nodes.weight"));
+  const std::vector<float> scales = internal::RowScales(model, DecidingTensor(c, r.layer));
+  if (scales.empty()) return {};
   std::vector<double> bounds(rows, 0.0);
-  if (t == nullptr || t->dtype != DType::kI8) return {};
-  auto scale = [&](uint64_t n) { return static_cast<double>(*model.file().RowScales(*t, n)); };
+  auto scale = [&](uint64_t n) { return static_cast<double>(scales[n]); };
   double router_max = 0;
   if (experts) {
-    for (uint64_t j = 0; j < t->shape[0]; ++j) router_max = std::max(router_max, scale(j));
+    for (uint64_t j = 0; j < scales.size(); ++j) router_max = std::max(router_max, scale(j));
   }
   const uint64_t first_leaf = (uint64_t{1} << layer.depth) - 1;
   for (uint64_t row = 0; row < rows; ++row) {
@@ -254,9 +249,11 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
   v.length = got.length;
   v.rows = got.rows;
   v.storage = DType::kF32;
-  for (const auto& t : model.file().tensors()) {
+  const std::vector<TensorDescription> tensors = model.tensor_descriptions();
+  for (const TensorDescription& t : tensors) {
     if (StorageRoundoff(t.dtype) > StorageRoundoff(v.storage)) v.storage = t.dtype;
   }
+  const std::vector<LayerDescription> layers = model.layer_descriptions();
   const uint64_t out_rows = got.shape[0] * (got.shape.size() == 3 ? got.shape[1] : 1);
   v.output.name = "outputs";
   v.output.rows = out_rows;
@@ -281,10 +278,13 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
     RoutedLayer r;
     r.layer = lr.layer;
     r.width = lr.width;
-    r.units = model.layers()[lr.layer]->unit_count();
+    r.units = layers[lr.layer].units;
     r.kind = c.layers[lr.layer].kind;
-    r.storage = DecidingType(model, lr.layer);
-    r.in = model.layers()[lr.layer]->in();
+    r.storage = DType::kF32;
+    for (const TensorDescription& t : tensors) {
+      if (t.name == DecidingTensor(c, lr.layer)) r.storage = t.dtype;
+    }
+    r.in = layers[lr.layer].in;
     r.got.assign(lr.choices.begin(), lr.choices.end());
     SPRIG_ASSIGN_OR_RETURN(r.want, ref.Ints("routes" + suffix, got.rows, lr.width));
     SPRIG_ASSIGN_OR_RETURN(r.margins, ref.Floats("margins" + suffix, got.rows, 0));

@@ -1,10 +1,25 @@
 #include "sprig/model.h"
 
+#include <cinttypes>
+#include <cstdio>
+#include <cstring>
+
 #include "api/model_impl.h"
+#include "model/flops.h"
+#include "model/tensor_spec.h"
 #include "network/stack_network.h"
 #include "transformer/transformer.h"
 
 namespace sprig {
+namespace {
+
+// The record set `records` points into, as an index into the file's list; -1 for null.
+int RecordSetIndex(const format::ModelFile& file, const format::RecordSetInfo* records) {
+  if (records == nullptr) return -1;
+  return static_cast<int>(records - file.record_sets().data());
+}
+
+}  // namespace
 
 Model::Model(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
 Model::~Model() = default;
@@ -35,6 +50,71 @@ const std::string& Model::path() const {
 uint64_t Model::file_size() const {
   return impl_->file->file_size();
 }
+uint32_t Model::format_version() const {
+  return impl_->file->format_version();
+}
+const std::string& Model::producer() const {
+  return impl_->file->producer();
+}
+uint64_t Model::header_size() const {
+  return impl_->file->header_size();
+}
+const std::string& Model::config_json() const {
+  return impl_->file->config_json();
+}
+
+std::vector<SectionDescription> Model::sections() const {
+  std::vector<SectionDescription> out;
+  for (const format::SectionInfo& s : impl_->file->sections()) {
+    out.push_back({s.name, s.records, s.layer, s.offset, s.size, s.padding});
+  }
+  return out;
+}
+
+std::vector<LayerDescription> Model::layer_descriptions() const {
+  const format::ModelFile& file = *impl_->file;
+  std::vector<LayerDescription> out;
+  for (const auto& layer : impl_->network->layers()) {
+    LayerDescription d;
+    d.index = layer->index();
+    d.config = file.config().layers[d.index];
+    d.in = layer->in();
+    d.out = layer->out();
+    d.route_width = layer->route_width();
+    d.units = layer->unit_count();
+    d.record_set = RecordSetIndex(file, layer->records());
+    d.records = layer->record_count();
+    d.record_size = layer->records() ? layer->records()->record_size : 0;
+    const LayerCost cost = CostOf(d.config);
+    d.params = cost.params;
+    d.flops_per_token = cost.flops_per_token;
+    d.dense_width = cost.dense_width;
+    d.dense_flops_per_token = cost.dense_flops_per_token;
+    out.push_back(std::move(d));
+  }
+  return out;
+}
+
+std::vector<TensorDescription> Model::tensor_descriptions() const {
+  std::vector<TensorDescription> out;
+  for (const format::TensorInfo& t : impl_->file->tensors()) {
+    TensorDescription d;
+    d.name = t.name;
+    d.shape = t.shape;
+    d.dtype = t.dtype;
+    d.layer = t.layer;
+    d.hot_rows = t.hot_rows;
+    d.record_set = t.record_set;
+    d.bytes = ElementCount(t.shape) * DTypeSize(t.dtype);
+    // One row of scales per row along axis 0 (a 0-d tensor has no scales).
+    d.scale_bytes = t.shape.empty() ? 0 : t.shape[0] * t.scale_row_bytes;
+    d.error_max_abs = t.error_max_abs;
+    d.error_rel_rms = t.error_rel_rms;
+    out.push_back(std::move(d));
+  }
+  return out;
+}
+
 Status Model::verify_checksums() const {
   return impl_->file->VerifyChecksums();
 }
@@ -59,11 +139,27 @@ Residency Model::residency() const {
   return r;
 }
 
-const format::ModelFile& Model::file() const {
-  return *impl_->file;
-}
-const std::vector<std::unique_ptr<layers::FeedForward>>& Model::layers() const {
-  return impl_->network->layers();
+uint64_t Model::process_resident_bytes() const {
+  FILE* f = std::fopen("/proc/self/smaps", "r");
+  if (!f) return 0;
+  const uintptr_t want = reinterpret_cast<uintptr_t>(impl_->file->base());
+  char line[512];
+  bool in_mapping = false;
+  uint64_t rss = 0;
+  while (std::fgets(line, sizeof(line), f)) {
+    uintptr_t start = 0, end = 0;
+    // A mapping's first line is "start-end perms offset dev inode path"; its fields follow.
+    if (std::sscanf(line, "%" SCNxPTR "-%" SCNxPTR " ", &start, &end) == 2 &&
+        std::strchr(line, ' ') > std::strchr(line, '-')) {
+      if (in_mapping) break;
+      in_mapping = start == want;
+      continue;
+    }
+    unsigned long long kb = 0;
+    if (in_mapping && std::sscanf(line, "Rss: %llu kB", &kb) == 1) rss = kb * 1024;
+  }
+  std::fclose(f);
+  return rss;
 }
 
 }  // namespace sprig
