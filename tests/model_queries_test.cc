@@ -1,7 +1,7 @@
 // Model's public queries (sprig/model.h) against the file as the format reader indexes it
 // (format::ModelFile, the loader the runtime itself opens files with) and the config: the
-// sections, one description per layer, one per tensor, and this process's resident bytes of
-// the mapping.
+// sections, one description per layer, one per tensor, the output shape for an input, the
+// decoding rule and this process's resident bytes of the mapping.
 #include <gtest/gtest.h>
 
 #include <string>
@@ -131,6 +131,42 @@ TEST(ModelQueries, DescribeWhatTheFileHolds) {
     }
     EXPECT_EQ(any_i8, dtype == "i8");
   }
+}
+
+TEST(ModelQueries, OutputShapeFollowsTheInputRules) {
+  testing::TempDir dir;
+  auto stack = Model::open(testing::PackSynthesized(dir, "stack", kStack));
+  auto lm = Model::open(testing::PackSynthesized(dir, "lm", kLm));
+  ASSERT_TRUE(stack.ok() && lm.ok());
+  using Shape = std::vector<uint64_t>;
+  EXPECT_EQ(*(*stack)->output_shape(InputKind::kRows, {3, 16}), (Shape{3, 7}));
+  EXPECT_EQ(*(*stack)->output_shape(InputKind::kRows, {16}), (Shape{1, 7}));
+  EXPECT_EQ(*(*stack)->output_shape(InputKind::kRows, {0, 16}), (Shape{0, 7}));
+  EXPECT_FALSE((*stack)->output_shape(InputKind::kRows, {3, 15}).ok());
+  EXPECT_FALSE((*stack)->output_shape(InputKind::kRows, {2, 3, 16}).ok());
+  EXPECT_FALSE((*stack)->output_shape(InputKind::kRows, {}).ok());
+  EXPECT_FALSE((*stack)->output_shape(InputKind::kTokens, {2, 3}).ok());
+  EXPECT_EQ(*(*lm)->output_shape(InputKind::kTokens, {2, 5}), (Shape{2, 5, 64}));
+  EXPECT_EQ(*(*lm)->output_shape(InputKind::kTokens, {5}), (Shape{1, 5, 64}));
+  EXPECT_EQ(*(*lm)->output_shape(InputKind::kTokens, {2, 12}), (Shape{2, 12, 64}));
+  EXPECT_FALSE((*lm)->output_shape(InputKind::kTokens, {2, 13}).ok());
+  EXPECT_FALSE((*lm)->output_shape(InputKind::kTokens, {1, 2, 3}).ok());
+  EXPECT_FALSE((*lm)->output_shape(InputKind::kRows, {2, 8}).ok());
+
+  // The shape it gives is the one the session fills.
+  auto session = Session::create(*lm);
+  ASSERT_TRUE(session.ok());
+  std::vector<int32_t> tokens(10, 1);
+  std::vector<float> out(2 * 5 * 64 + 1, -7.0f);
+  ASSERT_TRUE((*session)->forward_tokens(tokens.data(), 2, 5, out.data()).ok());
+  EXPECT_NE(out[2 * 5 * 64 - 1], -7.0f);
+  EXPECT_EQ(out[2 * 5 * 64], -7.0f);
+
+  // Decoding: room for max_seq tokens in all.
+  EXPECT_TRUE((*lm)->check_decoding(0, 12).ok());
+  EXPECT_TRUE((*lm)->check_decoding(11, 1).ok());
+  EXPECT_FALSE((*lm)->check_decoding(11, 2).ok());
+  EXPECT_FALSE((*stack)->check_decoding(0, 1).ok());
 }
 
 TEST(ModelQueries, ProcessResidentBytesCountsTheMappingOnly) {

@@ -138,51 +138,52 @@ struct Computed {
   size_t length = 0;     // transformer: tokens per sequence
 };
 
-Result<Computed> RunStack(Session& session, const Reference& ref, const ModelConfig& c) {
+// The output shape for the reference's inputs under the model's input rules; a broken rule's
+// message names the array.
+Result<std::vector<uint64_t>> OutputShape(const Model& model, const Reference& ref, InputKind kind,
+                                          const io::NdArray& inputs) {
+  auto shape = model.output_shape(kind, inputs.shape);
+  if (!shape.ok()) return shape.status().WithContext(ref.path() + ": array 'inputs'");
+  return shape;
+}
+
+Result<Computed> RunStack(Session& session, const Reference& ref) {
+  const Model& model = session.model();
   const io::NdArray* in = ref.Find("inputs");
   if (in == nullptr) return Status::InvalidArgument(ref.path() + " has no array 'inputs'");
-  if (in->shape.empty() || in->shape.back() != c.input_dim || in->shape.size() > 2) {
-    return Status::InvalidArgument(ref.path() + ": array 'inputs' has shape " +
-                                   ShapeText(in->shape) + "; this model takes rows [N, " +
-                                   std::to_string(c.input_dim) + "]");
-  }
   Computed r;
-  r.rows = in->shape.size() == 1 ? 1 : in->shape[0];
-  SPRIG_ASSIGN_OR_RETURN(std::vector<double> x, ref.Floats("inputs", r.rows * c.input_dim, 0));
+  SPRIG_ASSIGN_OR_RETURN(r.shape, OutputShape(model, ref, InputKind::kRows, *in));
+  r.rows = r.shape[0];
+  const size_t in_dim = model.config().input_dim;
+  SPRIG_ASSIGN_OR_RETURN(std::vector<double> x, ref.Floats("inputs", r.rows * in_dim, 0));
   std::vector<float> xf(x.begin(), x.end());
-  r.output.resize(r.rows * c.output_dim());
-  r.shape = {r.rows, c.output_dim()};
-  SPRIG_RETURN_IF_ERROR(session.forward(xf.data(), r.rows, r.output.data(), &r.routes, &r.trace));
+  r.output.resize(r.rows * r.shape[1]);
+  SPRIG_RETURN_IF_ERROR(session.forward(xf.data(), r.rows, r.output.data(), &r.routes, &r.trace)
+                            .WithContext(ref.path() + ": array 'inputs'"));
   return r;
 }
 
-Result<Computed> RunTokens(Session& session, const Reference& ref, const ModelConfig& c) {
+Result<Computed> RunTokens(Session& session, const Reference& ref) {
+  const Model& model = session.model();
   const io::NdArray* in = ref.Find("inputs");
   if (in == nullptr) return Status::InvalidArgument(ref.path() + " has no array 'inputs'");
-  if ((in->type != io::ElementType::kI32 && in->type != io::ElementType::kI64) ||
-      in->shape.empty() || in->shape.size() > 2) {
+  if (in->type != io::ElementType::kI32 && in->type != io::ElementType::kI64) {
     return Status::InvalidArgument(ref.path() + ": array 'inputs' is " +
                                    io::ElementTypeName(in->type) + " " + ShapeText(in->shape) +
                                    "; this transformer takes int32/int64 tokens [T] or [B, T]");
   }
   Computed r;
-  r.sequences = in->shape.size() == 1 ? 1 : in->shape[0];
+  SPRIG_ASSIGN_OR_RETURN(r.shape, OutputShape(model, ref, InputKind::kTokens, *in));
+  r.sequences = r.shape[0];
   r.length = in->shape.back();
   r.rows = r.sequences * r.length;
   SPRIG_ASSIGN_OR_RETURN(std::vector<int64_t> t, ref.Ints("inputs", r.sequences, r.length));
-  std::vector<int32_t> tokens(r.rows);
-  for (size_t i = 0; i < r.rows; ++i) {
-    if (t[i] < 0 || t[i] >= static_cast<int64_t>(c.vocab_size)) {
-      return Status::InvalidArgument(ref.path() + ": inputs[" + std::to_string(i) + "] is token " +
-                                     std::to_string(t[i]) + ", outside the vocabulary [0, " +
-                                     std::to_string(c.vocab_size) + ")");
-    }
-    tokens[i] = static_cast<int32_t>(t[i]);
-  }
-  const bool per_token = c.head.kind != HeadKind::kClassifier;
-  r.shape = per_token ? std::vector<uint64_t>{r.sequences, r.length, c.output_dim()}
-                      : std::vector<uint64_t>{r.sequences, c.output_dim()};
-  r.output.resize((per_token ? r.rows : r.sequences) * c.output_dim());
+  SPRIG_RETURN_IF_ERROR(model.check_tokens(t.data(), r.sequences, r.length)
+                            .WithContext(ref.path() + ": array 'inputs'"));
+  const std::vector<int32_t> tokens(t.begin(), t.end());  // in range, so exact
+  uint64_t size = 1;
+  for (uint64_t d : r.shape) size *= d;
+  r.output.resize(size);
   SPRIG_RETURN_IF_ERROR(session.forward_tokens(tokens.data(), r.sequences, r.length,
                                                r.output.data(), &r.routes, &r.trace));
   return r;
@@ -430,9 +431,8 @@ int RunVerify(const VerifyArgs& a) {
   options.threads = a.threads;
   auto session = Session::create(*model, options);
   if (!session.ok()) return Fail("verify", session.status());
-  const ModelConfig& c = (*model)->config();
-  auto got =
-      c.family == Family::kStack ? RunStack(**session, ref, c) : RunTokens(**session, ref, c);
+  auto got = (*model)->config().family == Family::kStack ? RunStack(**session, ref)
+                                                         : RunTokens(**session, ref);
   if (!got.ok()) return Fail("verify", got.status());
   auto inputs = Gather(**model, ref, *got);
   if (!inputs.ok()) return Fail("verify", inputs.status());

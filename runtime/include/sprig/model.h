@@ -103,6 +103,10 @@ struct TensorDescription {
   float error_rel_rms = 0;
 };
 
+// Which Session call an input is for: float rows (Session::forward, stack models) or token
+// sequences (Session::forward_tokens, transformer models).
+enum class InputKind : uint8_t { kRows, kTokens };
+
 class Model {
  public:
   // Opens `path`. On failure the Status names the file and what is wrong with it.
@@ -129,6 +133,34 @@ class Model {
   std::vector<LayerDescription> layer_descriptions() const;
   // Every stored tensor, in file order.
   std::vector<TensorDescription> tensor_descriptions() const;
+
+  // ---- the input rules ----
+  //
+  // The Session calls apply these rules to every input, and so do these queries, with the same
+  // messages: a front end (the C API, the command line, a language binding) asks them before
+  // it allocates an output or when it holds its input in another form, and passes their
+  // message on. Each returns InvalidArgument with one sentence naming the rule broken.
+
+  // The shape of the output for an input of `input_shape` given to the call `kind` names:
+  // rows [N, input_dim] or [input_dim] (one row) give [N, output_dim]; tokens [B, T] or [T]
+  // (one sequence) give [B, T, vocab_size] (lm head), [B, classes] (classifier) or
+  // [B, T, d_model] (no head). Checks the family (rows for a stack, tokens for a transformer),
+  // the rank, a row's width, T against max_seq and, for a classifier, T >= 1.
+  Result<std::vector<uint64_t>> output_shape(InputKind kind,
+                                             const std::vector<uint64_t>& input_shape) const;
+  // The rules of Session::forward for `count` rows of input_dim floats: the family, and every
+  // value finite (the message names the first row and column that is not).
+  Status check_rows(const float* rows, size_t count) const;
+  // The rules of Session::forward_tokens for `batch` sequences of `length` tokens (row-major),
+  // given as int64 as NumPy and many tokenizers hold them, so that a caller can check before it
+  // narrows them to int32: the family, length against max_seq, a classifier's length >= 1, and
+  // every token in [0, vocab_size) (the message names the first that is not, as
+  // [sequence, position]).
+  Status check_tokens(const int64_t* tokens, size_t batch, size_t length) const;
+  // The rules of decoding (Session::append_tokens, Session::generate): a transformer with an lm
+  // head and causal attention, and room in a KV cache that holds `cached` tokens for `count`
+  // more (max_seq in all).
+  Status check_decoding(size_t cached, size_t count) const;
 
   // Reads every weight and compares it with its stored checksum. Returns CheckFailed naming
   // the damaged tensors and records. May take a while on large files.

@@ -4,7 +4,9 @@
 #include <cstdio>
 #include <cstring>
 
+#include "api/input_rules.h"
 #include "api/model_impl.h"
+#include "kernels/kernels.h"
 #include "model/flops.h"
 #include "model/tensor_spec.h"
 #include "network/stack_network.h"
@@ -113,6 +115,27 @@ std::vector<TensorDescription> Model::tensor_descriptions() const {
     out.push_back(std::move(d));
   }
   return out;
+}
+
+Result<std::vector<uint64_t>> Model::output_shape(InputKind kind,
+                                                  const std::vector<uint64_t>& input_shape) const {
+  return input_rules::OutputShape(config(), path(), kind, input_shape);
+}
+
+Status Model::check_rows(const float* rows, size_t count) const {
+  SPRIG_RETURN_IF_ERROR(input_rules::RowsCall(config(), path()));
+  return input_rules::FiniteRows(config(), rows, count, &kernels::ActiveKernels());
+}
+
+Status Model::check_tokens(const int64_t* tokens, size_t batch, size_t length) const {
+  SPRIG_RETURN_IF_ERROR(input_rules::TokensCall(config(), path()));
+  SPRIG_RETURN_IF_ERROR(input_rules::Sequences(config(), batch, length));
+  return input_rules::TokenRange(config(), tokens, batch, length);
+}
+
+Status Model::check_decoding(size_t cached, size_t count) const {
+  SPRIG_RETURN_IF_ERROR(input_rules::Decoding(config(), path()));
+  return input_rules::DecodingRoom(config(), cached, count);
 }
 
 Status Model::verify_checksums() const {

@@ -3,10 +3,9 @@
 #include <algorithm>
 #include <bit>
 #include <chrono>
-#include <cmath>
-#include <cstdio>
 #include <thread>
 
+#include "api/input_rules.h"
 #include "api/model_impl.h"
 #include "kernels/kernels.h"
 #include "layers/feed_forward.h"
@@ -20,25 +19,6 @@ namespace {
 
 double SecondsSince(std::chrono::steady_clock::time_point start) {
   return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-}
-
-// A float as printf's %g writes it ("0.5", "1e-06").
-std::string Number(float v) {
-  char buf[32];
-  std::snprintf(buf, sizeof(buf), "%g", static_cast<double>(v));
-  return buf;
-}
-
-// The first token outside [0, vocab), as an error naming it; Ok when all are in range.
-Status CheckTokens(const int32_t* tokens, size_t n, uint32_t vocab) {
-  for (size_t i = 0; i < n; ++i) {
-    if (tokens[i] < 0 || static_cast<uint32_t>(tokens[i]) >= vocab) {
-      return Status::InvalidArgument("token " + std::to_string(tokens[i]) + " at index " +
-                                     std::to_string(i) + " is outside the vocabulary [0, " +
-                                     std::to_string(vocab) + ")");
-    }
-  }
-  return Status::Ok();
 }
 
 }  // namespace
@@ -105,18 +85,8 @@ size_t Session::threads() const {
 Status Session::forward(const float* input, size_t rows, float* output, Routes* routes,
                         std::vector<LayerTrace>* trace) {
   const ModelConfig& c = model_->config();
-  if (c.family != Family::kStack) {
-    return Status::InvalidArgument(model_->path() +
-                                   " is a transformer model; it takes tokens, not float rows");
-  }
-  const size_t in = c.input_dim;
-  if (!state_->kernels->all_finite(input, rows * in)) {
-    for (size_t i = 0;; ++i) {
-      if (std::isfinite(input[i])) continue;
-      return Status::InvalidArgument("input row " + std::to_string(i / in) + ", column " +
-                                     std::to_string(i % in) + " is not a finite number");
-    }
-  }
+  SPRIG_RETURN_IF_ERROR(input_rules::RowsCall(c, model_->path()));
+  SPRIG_RETURN_IF_ERROR(input_rules::FiniteRows(c, input, rows, state_->kernels));
   const auto start = std::chrono::steady_clock::now();
   network::Input call;
   call.rows = input;
@@ -132,19 +102,9 @@ Status Session::forward(const float* input, size_t rows, float* output, Routes* 
 Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t length, float* output,
                                Routes* routes, std::vector<LayerTrace>* trace) {
   const ModelConfig& c = model_->config();
-  if (c.family != Family::kTransformer) {
-    return Status::InvalidArgument(model_->path() +
-                                   " is a stack model; it takes float rows, not tokens");
-  }
-  if (length > c.max_seq) {
-    return Status::InvalidArgument("a sequence of " + std::to_string(length) +
-                                   " tokens is longer than the model's max_seq " +
-                                   std::to_string(c.max_seq));
-  }
-  if (c.head.kind == HeadKind::kClassifier && length == 0 && batch > 0) {
-    return Status::InvalidArgument("a classifier needs sequences of at least one token");
-  }
-  SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, batch * length, c.vocab_size));
+  SPRIG_RETURN_IF_ERROR(input_rules::TokensCall(c, model_->path()));
+  SPRIG_RETURN_IF_ERROR(input_rules::Sequences(c, batch, length));
+  SPRIG_RETURN_IF_ERROR(input_rules::TokenRange(c, tokens, batch, length));
   const auto start = std::chrono::steady_clock::now();
   network::Input call;
   call.tokens = tokens;
@@ -161,30 +121,12 @@ Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t lengt
 
 Status Session::append_tokens(const int32_t* tokens, size_t count, float* logits) {
   const ModelConfig& c = model_->config();
-  if (c.family != Family::kTransformer) {
-    return Status::InvalidArgument(model_->path() + " is a stack model; it has no KV cache");
-  }
-  if (c.head.kind != HeadKind::kLm) {
-    return Status::InvalidArgument(model_->path() + " has a " + ToString(c.head.kind) +
-                                   " head; decoding with the KV cache needs an lm head");
-  }
-  if (!c.causal) {
-    // Earlier tokens of a bidirectional model would have to see the new one, which a cache
-    // of their keys and values cannot express.
-    return Status::InvalidArgument(model_->path() +
-                                   " is not causal; decoding with the KV cache needs a causal "
-                                   "model (use forward_tokens on whole sequences)");
-  }
-  const size_t at = state_->cache.length;
-  if (count > c.max_seq - at) {
-    return Status::InvalidArgument("the KV cache holds " + std::to_string(at) + " of max_seq " +
-                                   std::to_string(c.max_seq) + " tokens; " + std::to_string(count) +
-                                   " more do not fit");
-  }
-  SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, count, c.vocab_size));
+  SPRIG_RETURN_IF_ERROR(input_rules::Decoding(c, model_->path()));
+  SPRIG_RETURN_IF_ERROR(input_rules::DecodingRoom(c, state_->cache.length, count));
+  SPRIG_RETURN_IF_ERROR(input_rules::TokenRange(c, tokens, 1, count));
   if (count == 0) return Status::Ok();
   const auto start = std::chrono::steady_clock::now();
-  // The checks passed, so the model is a transformer, whose network decodes.
+  // Decoding passed, so the model is a transformer, whose network decodes.
   state_->network->decoder()->Append(state_->MakeExec(count == 1), *state_->workspace,
                                      state_->cache, tokens, count, logits);
   const double seconds = SecondsSince(start);
@@ -234,15 +176,7 @@ size_t Session::position() const {
 
 Status Session::generate(const std::vector<int32_t>& prompt, const GenerateOptions& options,
                          const std::function<bool(int32_t token)>& on_token) {
-  if (!(options.temperature >= 0.0f) || !std::isfinite(options.temperature)) {
-    return Status::InvalidArgument("temperature must be a finite number >= 0, got " +
-                                   Number(options.temperature));
-  }
-  if (!(options.top_p > 0.0f && options.top_p <= 1.0f)) {
-    return Status::InvalidArgument("top_p must be in (0, 1], got " + Number(options.top_p));
-  }
-  if (prompt.empty())
-    return Status::InvalidArgument("generate needs a prompt of at least one token");
+  SPRIG_RETURN_IF_ERROR(input_rules::Generation(options, prompt.size()));
   const ModelConfig& c = model_->config();
   reset();
   std::vector<float> logits(c.family == Family::kTransformer ? c.vocab_size : 0);
