@@ -1,7 +1,7 @@
 // A small fork-join pool: Run(count, fn) calls fn(task, worker) for task < count on the caller
-// and the pool's workers, and returns when all are done. Tasks are claimed in order from an
-// atomic counter, so which worker runs a task varies, but a task's inputs never depend on it:
-// results are the same for any number of threads.
+// and the pool's workers, and returns when all are done. Tasks are claimed in order from a
+// counter guarded by the pool's mutex, so which worker runs a task varies, but a task's inputs
+// never depend on it: results are the same for any number of threads.
 #pragma once
 
 #include <condition_variable>
