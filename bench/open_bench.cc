@@ -14,7 +14,6 @@
 #include <string>
 #include <vector>
 
-#include "format/model_file.h"
 #include "sprig/model.h"
 
 namespace {
@@ -55,7 +54,7 @@ int main(int argc, char** argv) {
     if (i == 0) {
       rss_growth = after - before;
       file_size = (*model)->file_size();
-      for (const auto& s : (*model)->file().sections()) {
+      for (const sprig::SectionDescription& s : (*model)->sections()) {
         if (!s.records) hot += s.size;
       }
     }

@@ -323,7 +323,7 @@ TEST_F(CApiTest, FailuresGiveTheirCodeAndAMessage) {
   // Bad tokens, bad options, a full cache.
   const int32_t bad[2] = {3, 256};
   EXPECT_EQ(sprig_session_forward_tokens(c.session, bad, 1, 2, y, &c.err), SPRIG_INVALID_ARGUMENT);
-  EXPECT_NE(c.message().find("token 256 at index 1"), std::string::npos) << c.message();
+  EXPECT_NE(c.message().find("token 256 at [0, 1]"), std::string::npos) << c.message();
   sprig_generate_options_t o;
   sprig_generate_options_default(&o);
   o.top_p = 0.0f;

@@ -61,10 +61,21 @@ std::vector<float> RandomRows(size_t rows, size_t in, uint64_t seed) {
   return x;
 }
 
-// Resident bytes of record `i` of the model's first record set.
-uint64_t RecordResident(const Model& m, size_t i) {
-  const format::RecordSetInfo& rs = m.file().record_sets()[0];
-  return format::ResidentBytes(m.file().base() + rs.offsets[i], rs.record_size);
+// The model's file indexed by the format reader, for where its records lie. A second mapping
+// of the same file: mincore reports the page cache, which both mappings share, and opening
+// reads only the header (no warming of the hot section, no read-ahead).
+std::unique_ptr<format::ModelFile> Layout(const Model& m) {
+  format::OpenFileOptions options;
+  options.warm_hot = false;
+  auto file = format::ModelFile::Open(m.path(), options);
+  EXPECT_TRUE(file.ok()) << file.status().message();
+  return file.ok() ? std::move(*file) : nullptr;
+}
+
+// Resident bytes of record `i` of the file's first record set.
+uint64_t RecordResident(const format::ModelFile& f, size_t i) {
+  const format::RecordSetInfo& rs = f.record_sets()[0];
+  return format::ResidentBytes(f.base() + rs.offsets[i], rs.record_size);
 }
 
 // Pages a record of `size` bytes at `offset` spans.
@@ -141,11 +152,13 @@ TEST_F(LargeLeafTree, OneRowPagesInOnlyItsLeaf) {
   Routes routes;
   ASSERT_TRUE((*session)->forward(x.data(), 1, y.data(), &routes).ok());
   const size_t leaf = static_cast<size_t>(routes.layers.at(0).choices.at(0));
-  const format::RecordSetInfo& rs = model->file().record_sets()[0];
-  EXPECT_EQ(RecordResident(*model, leaf), rs.record_size) << "the leaf's record is resident";
+  const auto layout = Layout(*model);
+  ASSERT_NE(layout, nullptr);
+  const format::RecordSetInfo& rs = layout->record_sets()[0];
+  EXPECT_EQ(RecordResident(*layout, leaf), rs.record_size) << "the leaf's record is resident";
   uint64_t others = 0;
   for (size_t i = 0; i < rs.offsets.size(); ++i) {
-    if (i != leaf) others += RecordResident(*model, i);
+    if (i != leaf) others += RecordResident(*layout, i);
   }
   // Neighbours may share the leaf's first and last pages.
   EXPECT_LE(others, 2 * kPage + kSlackPerRecord) << "records of other leaves were read";
@@ -171,14 +184,16 @@ TEST_F(LargeLeafTree, BatchPagesInOnlyRoutedLeaves) {
   const uint64_t k = distinct.size();
   ASSERT_GT(k, 1u);
 
-  const format::RecordSetInfo& rs = model->file().record_sets()[0];
+  const auto layout = Layout(*model);
+  ASSERT_NE(layout, nullptr);
+  const format::RecordSetInfo& rs = layout->record_sets()[0];
   uint64_t routed_pages = 0;
   for (int32_t l : distinct) routed_pages += PagesSpanned(rs.offsets[l], rs.record_size);
   const Residency r = model->residency();
   EXPECT_GE(r.records_resident, k * rs.record_size);
   EXPECT_LE(r.records_resident, routed_pages * kPage + k * kSlackPerRecord + kSlackTotal)
       << k << " leaves routed";
-  for (int32_t l : distinct) EXPECT_EQ(RecordResident(*model, l), rs.record_size);
+  for (int32_t l : distinct) EXPECT_EQ(RecordResident(*layout, l), rs.record_size);
 
   // The process maps the routed records (and fault-around neighbours), never the whole file.
   const ProcessMemory after = ReadProcessMemory();
@@ -261,8 +276,10 @@ TEST(Residency, TouchedCountsPathChunksAndExperts) {
     }
     const std::vector<LayerTouch> touched = (*session)->stats().touched;
     ASSERT_EQ(touched.size(), 2u);
+    const auto layout = Layout(**model);
+    ASSERT_NE(layout, nullptr);
     const format::RecordSetInfo* path_set = nullptr;
-    for (const auto& rs : (*model)->file().record_sets()) {
+    for (const auto& rs : layout->record_sets()) {
       if (rs.layer == 0) path_set = &rs;
     }
     ASSERT_NE(path_set, nullptr);
@@ -302,7 +319,9 @@ TEST(Residency, TouchedCountsTransformerBlocks) {
   Routes routes;
   ASSERT_TRUE(
       (*session)->forward_tokens(tokens.data(), 2, tokens.size() / 2, logits.data(), &routes).ok());
-  const format::RecordSetInfo& rs = (*model)->file().record_sets().at(0);
+  const auto layout = Layout(**model);
+  ASSERT_NE(layout, nullptr);
+  const format::RecordSetInfo& rs = layout->record_sets().at(0);
   const std::vector<LayerTouch> touched = (*session)->stats().touched;
   ASSERT_EQ(touched.size(), 1u);
   EXPECT_EQ(touched[0].touched, PathRecords(rs.map, 9, routes.layers.at(0).choices).size());

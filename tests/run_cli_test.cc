@@ -40,8 +40,8 @@ constexpr size_t kIn = 6;
 constexpr size_t kOut = 3;
 
 // Writes the input files with NumPy (Debian python3-numpy): N(0, 1) rows as float32, the same
-// values as float64, a 1-D single row, rows of the wrong width, int32 rows, rows with a NaN at
-// row 2, column 3, and an .npz holding two arrays.
+// values as float64, a 1-D single row, rows of the wrong width, int32 rows, float16 rows, rows
+// with a NaN at row 2, column 3, and an .npz holding two arrays.
 constexpr const char* kMakeInputs = R"(
 import sys, numpy as np
 d = sys.argv[1]
@@ -52,6 +52,7 @@ np.save(d + '/x64.npy', x.astype(np.float64))
 np.save(d + '/row.npy', x[0])
 np.save(d + '/wide.npy', rng.standard_normal((5, 7)).astype(np.float32))
 np.save(d + '/ints.npy', np.arange(24, dtype=np.int32).reshape(4, 6))
+np.save(d + '/halves.npy', x[:4].astype(np.float16))
 bad = rng.standard_normal((4, 6)).astype(np.float32)
 bad[2, 3] = np.nan
 np.save(d + '/nan.npy', bad)
@@ -265,7 +266,14 @@ TEST_F(RunCli, BadInputsExitTwoWithClearMessages) {
   const std::string m = Quote(Model());
   const std::vector<BadInput> cases = {
       {"wrong width", "run " + m + input("wide.npy"), {File("wide.npy"), "[5, 7]", "[N, 6]"}, {}},
-      {"int32 rows", "run " + m + input("ints.npy"), {File("ints.npy"), "int32", "float32"}, {}},
+      {"int32 rows",
+       "run " + m + input("ints.npy"),
+       {File("ints.npy"), "float rows, not tokens"},
+       {}},
+      {"float16 rows",
+       "run " + m + input("halves.npy"),
+       {File("halves.npy"), "float16", "float32"},
+       {}},
       {"NaN", "run " + m + input("nan.npy"), {File("nan.npy"), "row 2", "column 3", "finite"}, {}},
       {"two arrays", "run " + m + input("two.npz"), {File("two.npz"), "2 arrays", "one array"}, {}},
       {"missing input", "run " + m + input("absent.npy"), {File("absent.npy")}, {}},

@@ -199,7 +199,7 @@ TEST(Verify, RefusesReferencesThatDoNotFitTheModel) {
       {"del a['routes.layer2']", "has no array 'routes.layer2'"},
       {"del a['outputs']", "has no array 'outputs'"},
       {"a['outputs'] = a['outputs'][:, :3]", "array 'outputs' has shape [8, 3]"},
-      {"a['inputs'] = a['inputs'][:, :5]", "array 'inputs' has shape [8, 5]"},
+      {"a['inputs'] = a['inputs'][:, :5]", "array 'inputs': the input has shape [8, 5]"},
       {"a['routes.layer3'] = a['routes.layer3'][:, :1]", "array 'routes.layer3' has shape [8, 1]"},
       {"a['margins.layer1'] = a['margins.layer1'].astype('int32')", "expected floats"},
   };

@@ -2,14 +2,10 @@
 
 #include <algorithm>
 #include <chrono>
-#include <cinttypes>
 #include <cstdio>
-#include <cstring>
 #include <ctime>
 
 #include "bench/kit/models.h"
-#include "format/model_file.h"
-#include "layers/feed_forward.h"
 #include "numeric/random.h"
 
 namespace sprig::bench {
@@ -207,17 +203,17 @@ class Runner {
     if (config_.family == Family::kTransformer) NewTokens(config_, o_, o_.seed, &inputs_);
     for (size_t s = 0; s < kSides; ++s) {
       SideMemory& mem = m->sides[s].memory;
-      const void* base = models_[s]->file().base();
+      const Model& model = *models_[s];
       const size_t steps =
           config_.family == Family::kStack ? CallsFor(o_, o_.batches[0]) : 1 + o_.decode_tokens;
       const size_t stride = std::max<size_t>(1, steps / kCurveSamples);
       auto sample = [&](size_t step, size_t units) {
         if (step % stride != 0 && step + 1 != steps) return;
-        const uint64_t r = MappedResidentBytes(base);
+        const uint64_t r = model.process_resident_bytes();
         mem.curve.push_back({units, r});
         mem.mapped_resident_peak = std::max(mem.mapped_resident_peak, r);
       };
-      mem.curve.push_back({0, MappedResidentBytes(base)});
+      mem.curve.push_back({0, model.process_resident_bytes()});
       RunOut out;
       SPRIG_RETURN_IF_ERROR(RunOnce(*sessions_[0][s], o_.batches[0], &out, sample));
       mem.first_call_ms = out.first_ms;
@@ -278,10 +274,11 @@ class Runner {
       std::vector<float> y(seq.size() * config_.output_dim());
       SPRIG_RETURN_IF_ERROR(session->forward_tokens(seq.data(), 1, seq.size(), y.data(), &routes));
     }
+    const std::vector<LayerDescription> layers = models_[kModel]->layer_descriptions();
     for (const LayerRoutes& lr : routes.layers) {
       LayerUsage u;
       u.layer = lr.layer;
-      u.counts.assign(models_[kModel]->layers()[lr.layer]->unit_count(), 0);
+      u.counts.assign(layers[lr.layer].units, 0);
       for (int32_t c : lr.choices) {
         if (c >= 0 && static_cast<size_t>(c) < u.counts.size()) ++u.counts[c];
       }
@@ -297,7 +294,7 @@ class Runner {
       mem.file_size = models_[s]->file_size();
       mem.residency = models_[s]->residency();
       mem.touched = sessions_[0][s]->stats().touched;
-      mem.mapped_resident = MappedResidentBytes(models_[s]->file().base());
+      mem.mapped_resident = models_[s]->process_resident_bytes();
       mem.mapped_resident_peak = std::max(mem.mapped_resident_peak, mem.mapped_resident);
     }
   }
@@ -385,29 +382,6 @@ void SummarizePoints(Measurement* m) {
 const char* SideName(size_t side) {
   static const char* names[kSides] = {"model", "baseline", "floor"};
   return side < kSides ? names[side] : "?";
-}
-
-uint64_t MappedResidentBytes(const void* base) {
-  FILE* f = std::fopen("/proc/self/smaps", "r");
-  if (!f) return 0;
-  const uintptr_t want = reinterpret_cast<uintptr_t>(base);
-  char line[512];
-  bool in_mapping = false;
-  uint64_t rss = 0;
-  while (std::fgets(line, sizeof(line), f)) {
-    uintptr_t start = 0, end = 0;
-    // A mapping's first line is "start-end perms offset dev inode path"; its fields follow.
-    if (std::sscanf(line, "%" SCNxPTR "-%" SCNxPTR " ", &start, &end) == 2 &&
-        std::strchr(line, ' ') > std::strchr(line, '-')) {
-      if (in_mapping) break;
-      in_mapping = start == want;
-      continue;
-    }
-    unsigned long long kb = 0;
-    if (in_mapping && std::sscanf(line, "Rss: %llu kB", &kb) == 1) rss = kb * 1024;
-  }
-  std::fclose(f);
-  return rss;
 }
 
 Result<Measurement> Measure(const std::shared_ptr<const Model> (&models)[kSides],

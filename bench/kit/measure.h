@@ -112,7 +112,4 @@ struct Measurement {
 Result<Measurement> Measure(const std::shared_ptr<const Model> (&models)[kSides],
                             const std::string (&labels)[kSides], const MeasureOptions& options);
 
-// This process's resident bytes of the mapping that starts at `base` (/proc/self/smaps).
-uint64_t MappedResidentBytes(const void* base);
-
 }  // namespace sprig::bench

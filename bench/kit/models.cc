@@ -101,11 +101,7 @@ ModelConfig FloorConfig(const ModelConfig& routed) {
 
 DType MainStorageType(const Model& model) {
   std::map<DType, uint64_t> bytes;
-  for (const format::TensorInfo& t : model.file().tensors()) {
-    uint64_t n = t.row_bytes;
-    if (!t.shape.empty()) n *= t.shape[0];
-    bytes[t.dtype] += n;
-  }
+  for (const TensorDescription& t : model.tensor_descriptions()) bytes[t.dtype] += t.bytes;
   DType best = DType::kF32;
   uint64_t most = 0;
   for (const auto& [type, n] : bytes) {

@@ -82,11 +82,6 @@ Status CheckArgs(const BenchArgs& a, const ModelConfig& c) {
                                    " is a transformer; --rows and --batch apply to stack models "
                                    "(use --prompt-tokens and --decode-tokens)");
   }
-  if (!c.causal || c.head.kind != HeadKind::kLm) {
-    return Status::InvalidArgument(a.model +
-                                   ": sprig bench measures a transformer by prefill and decode, "
-                                   "which needs a causal model with an lm head");
-  }
   if (a.prompt_tokens == 0) return Status::InvalidArgument("--prompt-tokens must be at least 1");
   return Status::Ok();
 }
@@ -108,22 +103,17 @@ Status CheckBaseline(const BenchArgs& a, const ModelConfig& m, const ModelConfig
                                    std::to_string(b.vocab_size) + " tokens and " + a.model +
                                    " of " + std::to_string(m.vocab_size) + "; they must be equal");
   }
-  if (m.family == Family::kTransformer && (!b.causal || b.head.kind != HeadKind::kLm)) {
-    return Status::InvalidArgument("the baseline " + a.baseline +
-                                   " must be a causal transformer with an lm head");
-  }
   return Status::Ok();
 }
 
-Status CheckSequence(const BenchArgs& a, const std::string& name, const ModelConfig& c) {
-  if (c.family == Family::kTransformer && a.prompt_tokens + a.decode_tokens > c.max_seq) {
-    return Status::InvalidArgument(name + " holds at most " + std::to_string(c.max_seq) +
-                                   " tokens (max_seq); --prompt-tokens " +
-                                   std::to_string(a.prompt_tokens) + " and --decode-tokens " +
-                                   std::to_string(a.decode_tokens) + " need " +
-                                   std::to_string(a.prompt_tokens + a.decode_tokens));
-  }
-  return Status::Ok();
+// A transformer is measured by prefill and decode: the runtime's decoding rules (an lm head,
+// causal attention, room in the KV cache for the prompt and the decoded tokens) decide.
+Status CheckDecoding(const BenchArgs& a, const Model& model) {
+  if (model.config().family != Family::kTransformer) return Status::Ok();
+  return model.check_decoding(0, a.prompt_tokens + a.decode_tokens)
+      .WithContext("measuring " + model.path() + " by prefill and decode (--prompt-tokens " +
+                   std::to_string(a.prompt_tokens) + ", --decode-tokens " +
+                   std::to_string(a.decode_tokens) + ")");
 }
 
 // The command line as run, for the report (from /proc/self/cmdline; empty elsewhere).
@@ -153,9 +143,9 @@ Result<bench::Measurement> Run(const BenchArgs& a, bench::ReportContext* context
     SPRIG_ASSIGN_OR_RETURN(auto probe, Model::open(a.model));
     config = probe->config();
     dtype = bench::MainStorageType(*probe);
+    SPRIG_RETURN_IF_ERROR(CheckArgs(a, config));
+    SPRIG_RETURN_IF_ERROR(CheckDecoding(a, *probe));
   }
-  SPRIG_RETURN_IF_ERROR(CheckArgs(a, config));
-  SPRIG_RETURN_IF_ERROR(CheckSequence(a, a.model, config));
   bench::BuildOptions build;
   build.dtype = dtype;
   build.donor_path = a.model;
@@ -177,7 +167,7 @@ Result<bench::Measurement> Run(const BenchArgs& a, bench::ReportContext* context
   if (!a.baseline.empty()) {
     SPRIG_ASSIGN_OR_RETURN(models[bench::kBaseline], Model::open(a.baseline));
     SPRIG_RETURN_IF_ERROR(CheckBaseline(a, config, models[bench::kBaseline]->config()));
-    SPRIG_RETURN_IF_ERROR(CheckSequence(a, a.baseline, models[bench::kBaseline]->config()));
+    SPRIG_RETURN_IF_ERROR(CheckDecoding(a, *models[bench::kBaseline]));
   }
   bench::MeasureOptions& o = context->options;
   o.threads = a.threads;

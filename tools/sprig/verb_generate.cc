@@ -74,15 +74,14 @@ Verb AddGenerate(CLI::App& app) {
       ->capture_default_str();
   c->add_option("--seed", args->options.seed, "seed of the sampler: the same seed, the same text")
       ->capture_default_str();
+  // Their ranges are the runtime's generation rules, which report a value outside them.
   c->add_option("--temperature", args->options.temperature,
-                "softmax temperature; 0 always picks the most probable byte")
-      ->capture_default_str()
-      ->check(CLI::NonNegativeNumber);
+                "softmax temperature (>= 0); 0 always picks the most probable byte")
+      ->capture_default_str();
   c->add_option("--top-p", args->options.top_p,
                 "sample only from the most probable bytes whose probabilities "
-                "sum to this")
-      ->capture_default_str()
-      ->check(CLI::Range(0.0f, 1.0f));
+                "sum to this (0 < P <= 1)")
+      ->capture_default_str();
   c->add_option("--threads", args->threads, "threads (0: one per CPU)")->capture_default_str();
   c->footer("Generated text can be wrong; do not rely on it.");
   return {c, [args] { return RunGenerate(*args); }};

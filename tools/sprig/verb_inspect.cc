@@ -6,10 +6,8 @@
 #include <string>
 
 #include "cli.h"
-#include "format/model_file.h"
 #include "format/preamble.h"
 #include "model/flops.h"
-#include "model/tensor_spec.h"
 #include "sprig/model.h"
 
 namespace sprig::cli {
@@ -43,26 +41,19 @@ std::string Describe(const LayerConfig& l) {
   return s;
 }
 
-const format::RecordSetInfo* RecordsOf(const format::ModelFile& f, size_t layer) {
-  for (const auto& rs : f.record_sets()) {
-    if (rs.layer == layer) return &rs;
-  }
-  return nullptr;
-}
-
 uint64_t PagesPerRecord(uint64_t size) {
   return (size + format::kPageSize - 1) / format::kPageSize;
 }
 
-nlohmann::json ToJson(const format::ModelFile& f) {
+nlohmann::json ToJson(const Model& m) {
   nlohmann::json j;
-  j["file"] = {{"path", f.path()},
-               {"size", f.file_size()},
-               {"format_version", f.format_version()},
-               {"producer", f.producer()},
-               {"header_size", f.header_size()}};
-  j["config"] = nlohmann::json::parse(f.config_json(), nullptr, false);
-  for (const auto& s : f.sections()) {
+  j["file"] = {{"path", m.path()},
+               {"size", m.file_size()},
+               {"format_version", m.format_version()},
+               {"producer", m.producer()},
+               {"header_size", m.header_size()}};
+  j["config"] = nlohmann::json::parse(m.config_json(), nullptr, false);
+  for (const SectionDescription& s : m.sections()) {
     j["sections"].push_back({{"name", s.name},
                              {"kind", s.records ? "records" : "hot"},
                              {"offset", s.offset},
@@ -70,20 +61,19 @@ nlohmann::json ToJson(const format::ModelFile& f) {
                              {"padding", s.padding},
                              {"layer", s.layer}});
   }
-  const ModelConfig& c = f.config();
-  for (size_t i = 0; i < c.layers.size(); ++i) {
-    const LayerCost cost = CostOf(c.layers[i]);
-    nlohmann::json l = {{"index", i},
-                        {"kind", ToString(c.layers[i].kind)},
-                        {"description", Describe(c.layers[i])},
-                        {"params", cost.params},
-                        {"flops_per_token", cost.flops_per_token},
-                        {"dense_width", cost.dense_width},
-                        {"dense_flops_per_token", cost.dense_flops_per_token}};
-    if (const auto* rs = RecordsOf(f, i)) {
-      l["records"] = {{"count", rs->offsets.size()},
-                      {"record_size", rs->record_size},
-                      {"pages_per_record", PagesPerRecord(rs->record_size)}};
+  const ModelConfig& c = m.config();
+  for (const LayerDescription& layer : m.layer_descriptions()) {
+    nlohmann::json l = {{"index", layer.index},
+                        {"kind", ToString(layer.config.kind)},
+                        {"description", Describe(layer.config)},
+                        {"params", layer.params},
+                        {"flops_per_token", layer.flops_per_token},
+                        {"dense_width", layer.dense_width},
+                        {"dense_flops_per_token", layer.dense_flops_per_token}};
+    if (layer.record_set >= 0) {
+      l["records"] = {{"count", layer.records},
+                      {"record_size", layer.record_size},
+                      {"pages_per_record", PagesPerRecord(layer.record_size)}};
     }
     j["layers"].push_back(l);
   }
@@ -92,7 +82,7 @@ nlohmann::json ToJson(const format::ModelFile& f) {
                  {"ffn_flops_per_token", total.ffn_flops},
                  {"ffn_dense_flops_per_token", total.ffn_dense_flops},
                  {"other_flops_per_token", total.other_flops}};
-  for (const auto& t : f.tensors()) {
+  for (const TensorDescription& t : m.tensor_descriptions()) {
     j["tensors"].push_back({{"name", t.name},
                             {"dtype", ToString(t.dtype)},
                             {"shape", t.shape},
@@ -105,11 +95,11 @@ nlohmann::json ToJson(const format::ModelFile& f) {
 }
 
 // One line on the storage types in use and the largest storage error the packer measured.
-void PrintStorage(const format::ModelFile& f) {
+void PrintStorage(const std::vector<TensorDescription>& tensors) {
   std::map<std::string, uint64_t> bytes_by_type;
-  const format::TensorInfo* worst = nullptr;
-  for (const auto& t : f.tensors()) {
-    bytes_by_type[ToString(t.dtype)] += ElementCount(t.shape) * DTypeSize(t.dtype);
+  const TensorDescription* worst = nullptr;
+  for (const TensorDescription& t : tensors) {
+    bytes_by_type[ToString(t.dtype)] += t.bytes;
     if (worst == nullptr || t.error_rel_rms > worst->error_rel_rms) worst = &t;
   }
   std::printf("  storage     ");
@@ -123,8 +113,9 @@ void PrintStorage(const format::ModelFile& f) {
   std::printf("\n");
 }
 
-void PrintHuman(const format::ModelFile& f, bool list_tensors) {
+void PrintHuman(const Model& f, bool list_tensors) {
   const ModelConfig& c = f.config();
+  const std::vector<TensorDescription> tensors = f.tensor_descriptions();
   std::printf("%s: sprig format %u, written by %s\n", f.path().c_str(), f.format_version(),
               f.producer().c_str());
   if (!c.name.empty()) std::printf("  name         %s\n", c.name.c_str());
@@ -141,11 +132,11 @@ void PrintHuman(const format::ModelFile& f, bool list_tensors) {
   }
   std::printf("  file         %s (header %s)\n", HumanBytes(f.file_size()).c_str(),
               HumanBytes(f.header_size()).c_str());
-  PrintStorage(f);
+  PrintStorage(tensors);
   std::printf("\n");
 
   std::printf("sections\n  %-18s %12s %12s %10s\n", "name", "offset", "size", "padding");
-  for (const auto& s : f.sections()) {
+  for (const SectionDescription& s : f.sections()) {
     const double pct = s.size ? 100.0 * static_cast<double>(s.padding) / s.size : 0.0;
     std::printf("  %-18s %12llu %12s %9.2f%%\n", s.name.c_str(),
                 static_cast<unsigned long long>(s.offset), HumanBytes(s.size).c_str(), pct);
@@ -154,18 +145,19 @@ void PrintHuman(const format::ModelFile& f, bool list_tensors) {
   std::printf("\nlayers (FLOPs per token; a multiply-add is 2)\n");
   std::printf("  %-3s %-44s %10s %10s %12s %9s\n", "#", "kind", "params", "FLOPs", "dense FLOPs",
               "saving");
-  for (size_t i = 0; i < c.layers.size(); ++i) {
-    const LayerCost cost = CostOf(c.layers[i]);
-    const double ratio = cost.flops_per_token ? static_cast<double>(cost.dense_flops_per_token) /
-                                                    static_cast<double>(cost.flops_per_token)
-                                              : 0.0;
-    std::printf("  %-3zu %-44s %10s %10s %12s %8.1fx\n", i, Describe(c.layers[i]).c_str(),
-                HumanCount(cost.params).c_str(), HumanCount(cost.flops_per_token).c_str(),
-                HumanCount(cost.dense_flops_per_token).c_str(), ratio);
-    if (const auto* rs = RecordsOf(f, i)) {
-      std::printf("      %zu records of %s (%llu pages each)\n", rs->offsets.size(),
-                  HumanBytes(rs->record_size).c_str(),
-                  static_cast<unsigned long long>(PagesPerRecord(rs->record_size)));
+  for (const LayerDescription& layer : f.layer_descriptions()) {
+    const double ratio = layer.flops_per_token ? static_cast<double>(layer.dense_flops_per_token) /
+                                                     static_cast<double>(layer.flops_per_token)
+                                               : 0.0;
+    std::printf("  %-3zu %-44s %10s %10s %12s %8.1fx\n", layer.index,
+                Describe(layer.config).c_str(), HumanCount(layer.params).c_str(),
+                HumanCount(layer.flops_per_token).c_str(),
+                HumanCount(layer.dense_flops_per_token).c_str(), ratio);
+    if (layer.record_set >= 0) {
+      std::printf("      %llu records of %s (%llu pages each)\n",
+                  static_cast<unsigned long long>(layer.records),
+                  HumanBytes(layer.record_size).c_str(),
+                  static_cast<unsigned long long>(PagesPerRecord(layer.record_size)));
     }
   }
   const ModelCost total = CostOf(c, c.family == Family::kTransformer ? c.max_seq / 2 : 0);
@@ -179,10 +171,10 @@ void PrintHuman(const format::ModelFile& f, bool list_tensors) {
   std::printf("\n");
   if (list_tensors) {
     std::printf("\ntensors (storage error against the packed source: max abs, relative RMS)\n");
-    for (const auto& t : f.tensors()) {
+    for (const TensorDescription& t : tensors) {
       const char* where = t.record_set < 0 ? "hot" : (t.hot_rows ? "hot+records" : "records");
       std::printf("  %-40s %-5s %-20s %-12s %10.3g %10.3g\n", t.name.c_str(), ToString(t.dtype),
-                  ShapeToString(t.shape).c_str(), where, t.error_max_abs, t.error_rel_rms);
+                  ShapeText(t.shape).c_str(), where, t.error_max_abs, t.error_rel_rms);
     }
   }
 }
@@ -190,9 +182,9 @@ void PrintHuman(const format::ModelFile& f, bool list_tensors) {
 int RunInspect(const InspectArgs& a) {
   auto model = Model::open(a.model);
   if (!model.ok()) return Fail("inspect", model.status());
-  const format::ModelFile& f = (*model)->file();
+  const Model& f = **model;
   Status check;
-  if (a.check) check = f.VerifyChecksums();
+  if (a.check) check = f.verify_checksums();
   if (a.json) {
     nlohmann::json j = ToJson(f);
     if (a.check) j["check"] = {{"ok", check.ok()}, {"message", check.message()}};
@@ -201,8 +193,12 @@ int RunInspect(const InspectArgs& a) {
     PrintHuman(f, a.tensors);
     if (a.check) {
       if (check.ok()) {
+        size_t record_sets = 0;
+        for (const LayerDescription& layer : f.layer_descriptions()) {
+          record_sets += layer.record_set >= 0 ? 1 : 0;
+        }
         std::printf("\ncheck: every checksum matches (%zu tensors, %zu record sets)\n",
-                    f.tensors().size(), f.record_sets().size());
+                    f.tensor_descriptions().size(), record_sets);
       }
     }
   }

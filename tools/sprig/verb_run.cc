@@ -14,7 +14,6 @@
 
 #include "cli.h"
 #include "io/tensor_archive.h"
-#include "layers/feed_forward.h"
 #include "sprig/memory.h"
 #include "sprig/session.h"
 
@@ -30,26 +29,27 @@ struct RunArgs {
   bool cold = false;   // run: drop the model file from the page cache first
 };
 
-// Reads float rows [N, in] (or one row [in]) from a .npy file as float32.
-Result<std::vector<float>> ReadRows(const std::string& path, size_t in, size_t* rows) {
+// The --input array: one array, of floats (rows, for a stack) or integers (tokens, for a
+// transformer). Whether it fits the model is the runtime's input rules' to say.
+Result<io::TensorArchive> ReadInput(const std::string& path) {
   SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, io::TensorArchive::Open(path));
   if (archive.arrays().size() != 1) {
     return Status::InvalidArgument(path + " holds " + std::to_string(archive.arrays().size()) +
-                                   " arrays; --input takes one array of rows");
+                                   " arrays; --input takes one array of rows or tokens");
   }
-  const io::NdArray& a = archive.arrays()[0];
-  if (a.type != io::ElementType::kF32 && a.type != io::ElementType::kF64) {
-    return Status::InvalidArgument(path + " holds " + std::string(io::ElementTypeName(a.type)) +
-                                   " values; this model takes float32 or float64 rows");
-  }
-  const bool one_row = a.shape.size() == 1;
-  if ((a.shape.size() != 2 && !one_row) || a.shape.back() != in) {
-    return Status::InvalidArgument(path + " has shape " + ShapeText(a.shape) +
-                                   "; the model takes rows of " + std::to_string(in) +
-                                   " values, shape [N, " + std::to_string(in) + "]");
-  }
-  *rows = one_row ? 1 : a.shape[0];
-  std::vector<float> out(*rows * in);
+  return archive;
+}
+
+bool IsRows(const io::NdArray& a) {
+  return a.type == io::ElementType::kF32 || a.type == io::ElementType::kF64;
+}
+bool IsTokens(const io::NdArray& a) {
+  return a.type == io::ElementType::kI32 || a.type == io::ElementType::kI64;
+}
+
+// The array's values as float32 (rows) or int64 (tokens), in order.
+std::vector<float> RowValues(const io::NdArray& a) {
+  std::vector<float> out(a.elements());
   for (size_t i = 0; i < out.size(); ++i) {
     if (a.type == io::ElementType::kF32) {
       std::memcpy(&out[i], a.data + 4 * i, 4);
@@ -58,50 +58,20 @@ Result<std::vector<float>> ReadRows(const std::string& path, size_t in, size_t* 
       std::memcpy(&d, a.data + 8 * i, 8);
       out[i] = static_cast<float>(d);
     }
-    if (!std::isfinite(out[i])) {
-      return Status::InvalidArgument(path + ": row " + std::to_string(i / in) + ", column " +
-                                     std::to_string(i % in) + " is not a finite number");
-    }
   }
   return out;
 }
 
-// Reads int32/int64 tokens [T] (one sequence) or [B, T] from a .npy file, each in [0, vocab).
-Result<std::vector<int32_t>> ReadTokens(const std::string& path, uint32_t vocab, size_t* batch,
-                                        size_t* length) {
-  SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, io::TensorArchive::Open(path));
-  if (archive.arrays().size() != 1) {
-    return Status::InvalidArgument(path + " holds " + std::to_string(archive.arrays().size()) +
-                                   " arrays; --input takes one array of tokens");
-  }
-  const io::NdArray& a = archive.arrays()[0];
-  if (a.type != io::ElementType::kI32 && a.type != io::ElementType::kI64) {
-    return Status::InvalidArgument(path + " holds " + std::string(io::ElementTypeName(a.type)) +
-                                   " values; this transformer model takes int32 or int64 tokens");
-  }
-  if (a.shape.size() != 1 && a.shape.size() != 2) {
-    return Status::InvalidArgument(path + " has shape " + ShapeText(a.shape) +
-                                   "; tokens must be [T] or [B, T]");
-  }
-  *batch = a.shape.size() == 1 ? 1 : a.shape[0];
-  *length = a.shape.back();
-  std::vector<int32_t> out(*batch * *length);
+std::vector<int64_t> TokenValues(const io::NdArray& a) {
+  std::vector<int64_t> out(a.elements());
   for (size_t i = 0; i < out.size(); ++i) {
-    int64_t v;
     if (a.type == io::ElementType::kI32) {
-      int32_t v32;
-      std::memcpy(&v32, a.data + 4 * i, 4);
-      v = v32;
+      int32_t v;
+      std::memcpy(&v, a.data + 4 * i, 4);
+      out[i] = v;
     } else {
-      std::memcpy(&v, a.data + 8 * i, 8);
+      std::memcpy(&out[i], a.data + 8 * i, 8);
     }
-    if (v < 0 || v >= static_cast<int64_t>(vocab)) {
-      return Status::InvalidArgument(
-          path + ": token " + std::to_string(v) + " at [" + std::to_string(i / *length) + ", " +
-          std::to_string(i % *length) + "] is outside the vocabulary [0, " + std::to_string(vocab) +
-          ")");
-    }
-    out[i] = static_cast<int32_t>(v);
   }
   return out;
 }
@@ -130,30 +100,31 @@ void AppendRoutes(Routes& all, Routes&& part) {
   }
 }
 
-// Transformer models: --batch sequences per forward_tokens call.
-Result<RunResult> RunTransformer(const RunArgs& a, std::shared_ptr<const Model> model,
-                                 bool want_routes) {
-  const ModelConfig& c = model->config();
-  size_t batch = 0, length = 0;
-  SPRIG_ASSIGN_OR_RETURN(std::vector<int32_t> tokens,
-                         ReadTokens(a.input, c.vocab_size, &batch, &length));
-  if (length > c.max_seq) {
-    return Status::InvalidArgument(a.input + " holds sequences of " + std::to_string(length) +
-                                   " tokens; the model's max_seq is " + std::to_string(c.max_seq));
-  }
-  if (length == 0 && c.head.kind == HeadKind::kClassifier) {
-    return Status::InvalidArgument(a.input + " holds empty sequences; a classifier needs tokens");
-  }
+// The output shape for `input` under the model's input rules; a broken rule's message names the
+// input file.
+Result<std::vector<uint64_t>> OutputShape(const RunArgs& a, const Model& model, InputKind kind,
+                                          const io::NdArray& input) {
+  auto shape = model.output_shape(kind, input.shape);
+  if (!shape.ok()) return shape.status().WithContext(a.input);
+  return shape;
+}
+
+// Tokens: --batch sequences per forward_tokens call.
+Result<RunResult> RunTokens(const RunArgs& a, std::shared_ptr<const Model> model,
+                            const io::NdArray& input, bool want_routes) {
+  RunResult r;
+  SPRIG_ASSIGN_OR_RETURN(r.shape, OutputShape(a, *model, InputKind::kTokens, input));
+  const size_t batch = r.shape[0];
+  const size_t length = input.shape.back();
+  const std::vector<int64_t> wide = TokenValues(input);
+  SPRIG_RETURN_IF_ERROR(model->check_tokens(wide.data(), batch, length).WithContext(a.input));
+  const std::vector<int32_t> tokens(wide.begin(), wide.end());  // in range, so exact
   SessionOptions options;
   options.threads = a.threads;
   SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model, options));
-  RunResult r;
   r.rows = batch * length;
-  const bool per_token = c.head.kind != HeadKind::kClassifier;
-  const size_t width = c.output_dim();
-  const size_t per_sequence = per_token ? length * width : width;
-  r.shape =
-      per_token ? std::vector<uint64_t>{batch, length, width} : std::vector<uint64_t>{batch, width};
+  uint64_t per_sequence = 1;
+  for (size_t i = 1; i < r.shape.size(); ++i) per_sequence *= r.shape[i];
   r.output.resize(batch * per_sequence);
   r.model = model;
   Progress progress("running " + a.model);
@@ -173,42 +144,57 @@ Result<RunResult> RunTransformer(const RunArgs& a, std::shared_ptr<const Model> 
   return r;
 }
 
+// Rows: --batch rows per forward call.
+Result<RunResult> RunRows(const RunArgs& a, std::shared_ptr<const Model> model,
+                          const io::NdArray& input, bool want_routes) {
+  RunResult r;
+  SPRIG_ASSIGN_OR_RETURN(r.shape, OutputShape(a, *model, InputKind::kRows, input));
+  r.rows = r.shape[0];
+  const size_t in = model->config().input_dim, out = r.shape[1];
+  const std::vector<float> x = RowValues(input);
+  // The whole input is checked before the first call, so that a message's row is the file's.
+  SPRIG_RETURN_IF_ERROR(model->check_rows(x.data(), r.rows).WithContext(a.input));
+  SessionOptions options;
+  options.threads = a.threads;
+  SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model, options));
+  r.output.resize(r.rows * out);
+  r.model = model;
+  Progress progress("running " + a.model);
+  for (size_t r0 = 0; r0 < r.rows; r0 += a.batch) {
+    const size_t n = std::min(a.batch, r.rows - r0);
+    Routes batch_routes;
+    SPRIG_RETURN_IF_ERROR(session->forward(x.data() + r0 * in, n, r.output.data() + r0 * out,
+                                           want_routes ? &batch_routes : nullptr));
+    if (want_routes) AppendRoutes(r.routes, std::move(batch_routes));
+    if (r0 == 0) r.first_call_seconds = session->stats().forward_seconds;
+    progress.Update((r0 + n) * in * 4, r.rows * in * 4);
+  }
+  progress.Finish();
+  r.stats = session->stats();
+  r.summary = std::to_string(r.rows) + " rows";
+  return r;
+}
+
+// Float arrays go to the rows call and integer arrays to the tokens call; the runtime says
+// when the model takes the other.
 Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
   const auto start = std::chrono::steady_clock::now();
   SPRIG_ASSIGN_OR_RETURN(auto model, Model::open(a.model));
   const double open_seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-  const ModelConfig& c = model->config();
   if (a.batch == 0) return Status::InvalidArgument("--batch must be at least 1");
-  if (c.family == Family::kTransformer) {
-    SPRIG_ASSIGN_OR_RETURN(RunResult r, RunTransformer(a, model, want_routes));
-    r.open_seconds = open_seconds;
-    return r;
+  SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, ReadInput(a.input));
+  const io::NdArray& input = archive.arrays()[0];
+  if (!IsRows(input) && !IsTokens(input)) {
+    const bool stack = model->config().family == Family::kStack;
+    return Status::InvalidArgument(a.input + " holds " + io::ElementTypeName(input.type) +
+                                   (stack ? " values; this model takes float32 or float64 rows"
+                                          : " values; this transformer model takes int32 or "
+                                            "int64 tokens"));
   }
-  RunResult r;
+  SPRIG_ASSIGN_OR_RETURN(RunResult r, IsRows(input) ? RunRows(a, model, input, want_routes)
+                                                    : RunTokens(a, model, input, want_routes));
   r.open_seconds = open_seconds;
-  r.model = model;
-  SPRIG_ASSIGN_OR_RETURN(std::vector<float> x, ReadRows(a.input, c.input_dim, &r.rows));
-  SessionOptions options;
-  options.threads = a.threads;
-  SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model, options));
-  const size_t out = c.output_dim();
-  r.output.resize(r.rows * out);
-  Progress progress("running " + a.model);
-  for (size_t r0 = 0; r0 < r.rows; r0 += a.batch) {
-    const size_t n = std::min(a.batch, r.rows - r0);
-    Routes batch_routes;
-    SPRIG_RETURN_IF_ERROR(session->forward(x.data() + r0 * c.input_dim, n,
-                                           r.output.data() + r0 * out,
-                                           want_routes ? &batch_routes : nullptr));
-    if (want_routes) AppendRoutes(r.routes, std::move(batch_routes));
-    if (r0 == 0) r.first_call_seconds = session->stats().forward_seconds;
-    progress.Update((r0 + n) * c.input_dim * 4, r.rows * c.input_dim * 4);
-  }
-  progress.Finish();
-  r.stats = session->stats();
-  r.shape = {r.rows, out};
-  r.summary = std::to_string(r.rows) + " rows";
   return r;
 }
 
@@ -344,11 +330,10 @@ void PrintHistogram(const Usage& u) {
 int RunRoutes(const RunArgs& a) {
   auto r = RunModel(a, true);
   if (!r.ok()) return Fail("routes", r.status());
-  auto model = Model::open(a.model);
-  if (!model.ok()) return Fail("routes", model.status());
+  const std::vector<LayerDescription> layers = r->model->layer_descriptions();
   std::vector<Usage> usage;
   for (const LayerRoutes& lr : r->routes.layers) {
-    usage.push_back(Summarise(lr, (*model)->layers()[lr.layer]->unit_count()));
+    usage.push_back(Summarise(lr, layers[lr.layer].units));
   }
   if (a.json) {
     nlohmann::json j;
@@ -371,7 +356,7 @@ int RunRoutes(const RunArgs& a) {
   std::printf("%s: routes of %zu rows\n", a.model.c_str(), r->rows);
   if (usage.empty()) std::printf("  the model has no routed layers\n");
   for (const Usage& u : usage) {
-    const LayerConfig& lc = (*model)->config().layers[u.layer];
+    const LayerConfig& lc = r->model->config().layers[u.layer];
     std::printf("\nlayer %zu (%s, %zu %s)\n", u.layer, ToString(lc.kind), u.counts.size(),
                 lc.kind == LayerKind::kExperts ? "experts" : "leaves");
     std::printf("  entropy      %.2f bits of %.2f possible (%.0f%%)\n", u.entropy_bits,

@@ -10,9 +10,9 @@
 #include <cstring>
 #include <nlohmann/json.hpp>
 
+#include "api/model_internals.h"
 #include "cli.h"
 #include "io/tensor_archive.h"
-#include "layers/feed_forward.h"
 #include "numeric/half.h"
 #include "sprig/session.h"
 #include "verify_check.h"
@@ -138,51 +138,52 @@ struct Computed {
   size_t length = 0;     // transformer: tokens per sequence
 };
 
-Result<Computed> RunStack(Session& session, const Reference& ref, const ModelConfig& c) {
+// The output shape for the reference's inputs under the model's input rules; a broken rule's
+// message names the array.
+Result<std::vector<uint64_t>> OutputShape(const Model& model, const Reference& ref, InputKind kind,
+                                          const io::NdArray& inputs) {
+  auto shape = model.output_shape(kind, inputs.shape);
+  if (!shape.ok()) return shape.status().WithContext(ref.path() + ": array 'inputs'");
+  return shape;
+}
+
+Result<Computed> RunStack(Session& session, const Reference& ref) {
+  const Model& model = session.model();
   const io::NdArray* in = ref.Find("inputs");
   if (in == nullptr) return Status::InvalidArgument(ref.path() + " has no array 'inputs'");
-  if (in->shape.empty() || in->shape.back() != c.input_dim || in->shape.size() > 2) {
-    return Status::InvalidArgument(ref.path() + ": array 'inputs' has shape " +
-                                   ShapeText(in->shape) + "; this model takes rows [N, " +
-                                   std::to_string(c.input_dim) + "]");
-  }
   Computed r;
-  r.rows = in->shape.size() == 1 ? 1 : in->shape[0];
-  SPRIG_ASSIGN_OR_RETURN(std::vector<double> x, ref.Floats("inputs", r.rows * c.input_dim, 0));
+  SPRIG_ASSIGN_OR_RETURN(r.shape, OutputShape(model, ref, InputKind::kRows, *in));
+  r.rows = r.shape[0];
+  const size_t in_dim = model.config().input_dim;
+  SPRIG_ASSIGN_OR_RETURN(std::vector<double> x, ref.Floats("inputs", r.rows * in_dim, 0));
   std::vector<float> xf(x.begin(), x.end());
-  r.output.resize(r.rows * c.output_dim());
-  r.shape = {r.rows, c.output_dim()};
-  SPRIG_RETURN_IF_ERROR(session.forward(xf.data(), r.rows, r.output.data(), &r.routes, &r.trace));
+  r.output.resize(r.rows * r.shape[1]);
+  SPRIG_RETURN_IF_ERROR(session.forward(xf.data(), r.rows, r.output.data(), &r.routes, &r.trace)
+                            .WithContext(ref.path() + ": array 'inputs'"));
   return r;
 }
 
-Result<Computed> RunTokens(Session& session, const Reference& ref, const ModelConfig& c) {
+Result<Computed> RunTokens(Session& session, const Reference& ref) {
+  const Model& model = session.model();
   const io::NdArray* in = ref.Find("inputs");
   if (in == nullptr) return Status::InvalidArgument(ref.path() + " has no array 'inputs'");
-  if ((in->type != io::ElementType::kI32 && in->type != io::ElementType::kI64) ||
-      in->shape.empty() || in->shape.size() > 2) {
+  if (in->type != io::ElementType::kI32 && in->type != io::ElementType::kI64) {
     return Status::InvalidArgument(ref.path() + ": array 'inputs' is " +
                                    io::ElementTypeName(in->type) + " " + ShapeText(in->shape) +
                                    "; this transformer takes int32/int64 tokens [T] or [B, T]");
   }
   Computed r;
-  r.sequences = in->shape.size() == 1 ? 1 : in->shape[0];
+  SPRIG_ASSIGN_OR_RETURN(r.shape, OutputShape(model, ref, InputKind::kTokens, *in));
+  r.sequences = r.shape[0];
   r.length = in->shape.back();
   r.rows = r.sequences * r.length;
   SPRIG_ASSIGN_OR_RETURN(std::vector<int64_t> t, ref.Ints("inputs", r.sequences, r.length));
-  std::vector<int32_t> tokens(r.rows);
-  for (size_t i = 0; i < r.rows; ++i) {
-    if (t[i] < 0 || t[i] >= static_cast<int64_t>(c.vocab_size)) {
-      return Status::InvalidArgument(ref.path() + ": inputs[" + std::to_string(i) + "] is token " +
-                                     std::to_string(t[i]) + ", outside the vocabulary [0, " +
-                                     std::to_string(c.vocab_size) + ")");
-    }
-    tokens[i] = static_cast<int32_t>(t[i]);
-  }
-  const bool per_token = c.head.kind != HeadKind::kClassifier;
-  r.shape = per_token ? std::vector<uint64_t>{r.sequences, r.length, c.output_dim()}
-                      : std::vector<uint64_t>{r.sequences, c.output_dim()};
-  r.output.resize((per_token ? r.rows : r.sequences) * c.output_dim());
+  SPRIG_RETURN_IF_ERROR(model.check_tokens(t.data(), r.sequences, r.length)
+                            .WithContext(ref.path() + ": array 'inputs'"));
+  const std::vector<int32_t> tokens(t.begin(), t.end());  // in range, so exact
+  uint64_t size = 1;
+  for (uint64_t d : r.shape) size *= d;
+  r.output.resize(size);
   SPRIG_RETURN_IF_ERROR(session.forward_tokens(tokens.data(), r.sequences, r.length,
                                                r.output.data(), &r.routes, &r.trace));
   return r;
@@ -193,14 +194,10 @@ std::string TensorPrefix(const ModelConfig& c, size_t layer) {
          (c.family == Family::kStack ? "." : ".ffn.");
 }
 
-// The storage type of the tensor that makes a routed layer's decisions.
-DType DecidingType(const Model& model, size_t layer) {
-  const ModelConfig& c = model.config();
-  const std::string name =
-      TensorPrefix(c, layer) +
-      (c.layers[layer].kind == LayerKind::kExperts ? "router.weight" : "nodes.weight");
-  const format::TensorInfo* t = model.file().Find(name);
-  return t ? t->dtype : DType::kF32;
+// The tensor that makes a routed layer's decisions.
+std::string DecidingTensor(const ModelConfig& c, size_t layer) {
+  return TensorPrefix(c, layer) +
+         (c.layers[layer].kind == LayerKind::kExperts ? "router.weight" : "nodes.weight");
 }
 
 // For int8 deciding weights, an absolute bound per row on how far storage rounding moved the
@@ -215,14 +212,13 @@ std::vector<double> Int8MarginBounds(const Model& model, const RoutedLayer& r,
   const ModelConfig& c = model.config();
   const LayerConfig& layer = c.layers[r.layer];
   const bool experts = layer.kind == LayerKind::kExperts;
-  const format::TensorInfo* t =
-      model.file().Find(TensorPrefix(c, r.layer) + (experts ? "router.weight" : "nodes.weight"));
+  const std::vector<float> scales = internal::RowScales(model, DecidingTensor(c, r.layer));
+  if (scales.empty()) return {};
   std::vector<double> bounds(rows, 0.0);
-  if (t == nullptr || t->dtype != DType::kI8) return {};
-  auto scale = [&](uint64_t n) { return static_cast<double>(*model.file().RowScales(*t, n)); };
+  auto scale = [&](uint64_t n) { return static_cast<double>(scales[n]); };
   double router_max = 0;
   if (experts) {
-    for (uint64_t j = 0; j < t->shape[0]; ++j) router_max = std::max(router_max, scale(j));
+    for (uint64_t j = 0; j < scales.size(); ++j) router_max = std::max(router_max, scale(j));
   }
   const uint64_t first_leaf = (uint64_t{1} << layer.depth) - 1;
   for (uint64_t row = 0; row < rows; ++row) {
@@ -254,9 +250,11 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
   v.length = got.length;
   v.rows = got.rows;
   v.storage = DType::kF32;
-  for (const auto& t : model.file().tensors()) {
+  const std::vector<TensorDescription> tensors = model.tensor_descriptions();
+  for (const TensorDescription& t : tensors) {
     if (StorageRoundoff(t.dtype) > StorageRoundoff(v.storage)) v.storage = t.dtype;
   }
+  const std::vector<LayerDescription> layers = model.layer_descriptions();
   const uint64_t out_rows = got.shape[0] * (got.shape.size() == 3 ? got.shape[1] : 1);
   v.output.name = "outputs";
   v.output.rows = out_rows;
@@ -281,10 +279,13 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
     RoutedLayer r;
     r.layer = lr.layer;
     r.width = lr.width;
-    r.units = model.layers()[lr.layer]->unit_count();
+    r.units = layers[lr.layer].units;
     r.kind = c.layers[lr.layer].kind;
-    r.storage = DecidingType(model, lr.layer);
-    r.in = model.layers()[lr.layer]->in();
+    r.storage = DType::kF32;
+    for (const TensorDescription& t : tensors) {
+      if (t.name == DecidingTensor(c, lr.layer)) r.storage = t.dtype;
+    }
+    r.in = layers[lr.layer].in;
     r.got.assign(lr.choices.begin(), lr.choices.end());
     SPRIG_ASSIGN_OR_RETURN(r.want, ref.Ints("routes" + suffix, got.rows, lr.width));
     SPRIG_ASSIGN_OR_RETURN(r.margins, ref.Floats("margins" + suffix, got.rows, 0));
@@ -430,9 +431,8 @@ int RunVerify(const VerifyArgs& a) {
   options.threads = a.threads;
   auto session = Session::create(*model, options);
   if (!session.ok()) return Fail("verify", session.status());
-  const ModelConfig& c = (*model)->config();
-  auto got =
-      c.family == Family::kStack ? RunStack(**session, ref, c) : RunTokens(**session, ref, c);
+  auto got = (*model)->config().family == Family::kStack ? RunStack(**session, ref)
+                                                         : RunTokens(**session, ref);
   if (!got.ok()) return Fail("verify", got.status());
   auto inputs = Gather(**model, ref, *got);
   if (!inputs.ok()) return Fail("verify", inputs.status());

@@ -12,7 +12,9 @@ source tree built with `make build`), or the system's library path (an installed
               sprig_native.process_memory())
 
 A Model is immutable and may be shared by threads; use one Session per thread. Errors raise
-SprigError with the C API's code and message. Outputs are whatever the model computes; a
+SprigError with the C API's code and message; an input the model does not take (its shape,
+family, length, tokens or values) is judged by the runtime's input rules, whose message comes
+through unchanged. Outputs are whatever the model computes; a
 model's predictions and generated text can be wrong.
 """
 
@@ -25,6 +27,7 @@ import numpy as np
 __all__ = ["Model", "Session", "SprigError", "process_memory", "library_path", "version"]
 
 FAMILY_STACK, FAMILY_TRANSFORMER = 1, 2
+_INPUT_ROWS, _INPUT_TOKENS = 1, 2
 
 
 class SprigError(Exception):
@@ -91,6 +94,10 @@ def _declare(lib):
         "sprig_model_max_seq": (sz, [p]),
         "sprig_model_output_dim": (sz, [p]),
         "sprig_model_tokens_output_size": (sz, [p, sz, sz]),
+        "sprig_model_output_shape": (ctypes.c_int, [p, ctypes.c_int, ctypes.POINTER(u64), sz,
+                                                    ctypes.POINTER(u64), ctypes.POINTER(sz),
+                                                    err]),
+        "sprig_model_check_tokens": (ctypes.c_int, [p, p, sz, sz, err]),
         "sprig_model_verify_checksums": (ctypes.c_int, [p, err]),
         "sprig_model_residency": (None, [p, ctypes.POINTER(_Residency)]),
         "sprig_session_create": (ctypes.c_int, [p, sz, ctypes.POINTER(p), err]),
@@ -169,6 +176,18 @@ class Model:
         self.vocab_size = lib.sprig_model_vocab_size(self._handle)
         self.max_seq = lib.sprig_model_max_seq(self._handle)
 
+    def _output_shape(self, kind, input_shape):
+        """The output's shape for an input of `input_shape` under the runtime's input rules
+        (sprig_model_output_shape); raises SprigError naming a rule the input breaks."""
+        dims = (ctypes.c_uint64 * max(1, len(input_shape)))(*input_shape)
+        out = (ctypes.c_uint64 * 3)()
+        rank = ctypes.c_size_t()
+        err = ctypes.c_void_p()
+        _check(_library().sprig_model_output_shape(self._handle, kind, dims, len(input_shape),
+                                                   out, ctypes.byref(rank), ctypes.byref(err)),
+               err)
+        return tuple(out[i] for i in range(rank.value))
+
     def residency(self):
         """Bytes of the hot and record sections in the page cache now, and their sizes."""
         r = _Residency()
@@ -212,36 +231,36 @@ class Session:
         self.kernel_path = lib.sprig_session_kernel_path(self._handle).decode()
 
     def forward(self, rows, out=None):
-        """Stack models: float rows [N, input_dim] -> float32 [N, output_dim]. `out`, when
-        given, is a C-contiguous float32 array of that shape to write into (no allocation)."""
+        """Stack models: float rows [N, input_dim] (or one row [input_dim]) -> float32
+        [N, output_dim]. `out`, when given, is a C-contiguous float32 array of that shape to
+        write into (no allocation)."""
         x = np.ascontiguousarray(rows, dtype=np.float32)
-        if x.ndim == 1:
-            x = x[None, :]
-        if x.ndim != 2 or x.shape[1] != self.model.input_dim:
-            raise ValueError(f"rows must be [N, {self.model.input_dim}], got {list(x.shape)}")
-        y = _output(out, (x.shape[0], self.model.output_dim))
+        shape = self.model._output_shape(_INPUT_ROWS, x.shape)
+        y = _output(out, shape)
         err = ctypes.c_void_p()
-        _check(_library().sprig_session_forward(self._handle, x.ctypes.data, x.shape[0],
+        _check(_library().sprig_session_forward(self._handle, x.ctypes.data, shape[0],
                                                 y.ctypes.data, ctypes.byref(err)), err)
         return y
 
     def forward_tokens(self, tokens, out=None):
-        """Transformer models: int tokens [B, T] (or [T]) -> logits [B, T, V], class scores
-        [B, C] or hidden states [B, T, D], as float32. `out` as in forward, of as many
-        values."""
-        t = np.ascontiguousarray(tokens, dtype=np.int32)
-        if t.ndim == 1:
-            t = t[None, :]
-        if t.ndim != 2:
-            raise ValueError(f"tokens must be [B, T] or [T], got {list(t.shape)}")
-        b, n = t.shape
-        size = _library().sprig_model_tokens_output_size(self.model._handle, b, n)
-        y = _output(out, (size,)).reshape(-1)
+        """Transformer models: int tokens [B, T] (or one sequence [T]) -> logits [B, T, V],
+        class scores [B, C] or hidden states [B, T, D], as float32. `out` as in forward, of as
+        many values."""
+        t = np.asarray(tokens)
+        shape = self.model._output_shape(_INPUT_TOKENS, t.shape)
+        b, n = shape[0], t.shape[-1]
+        if t.dtype != np.int32:
+            # Checked as int64 first: a token outside int32 would change in the narrowing.
+            wide = np.ascontiguousarray(t, dtype=np.int64)
+            err = ctypes.c_void_p()
+            _check(_library().sprig_model_check_tokens(self.model._handle, wide.ctypes.data, b, n,
+                                                       ctypes.byref(err)), err)
+        t = np.ascontiguousarray(t, dtype=np.int32)
+        y = _output(out, shape)
         err = ctypes.c_void_p()
         _check(_library().sprig_session_forward_tokens(self._handle, t.ctypes.data, b, n,
                                                        y.ctypes.data, ctypes.byref(err)), err)
-        per_row = self.model.output_dim
-        return y.reshape(b, n, per_row) if size == b * n * per_row else y.reshape(b, per_row)
+        return y
 
     def generate(self, prompt, count=64, temperature=1.0, top_p=1.0, seed=1):
         """Continues `prompt` (bytes, str as UTF-8, or token ids); returns the new token ids."""

@@ -1,9 +1,12 @@
 // sprig::Model: an opened .sprig file.
 //
 // A Model is immutable once open and safe to share between any number of threads; each thread
-// runs it through its own Session. Opening maps the file read-only and verifies its preamble
-// and header (every offset and size against the file); it reads no weights, which are paged in
-// from the mapping as inference touches them.
+// runs it through its own Session. Opening maps the file read-only, verifies its preamble and
+// header (every offset and size against the file) and binds the network (pointers into the
+// mapping); it reads no weights, which are paged in from the mapping as inference touches them.
+//
+// Every query below is const and thread-safe. Queries that return a value (a vector, a Status)
+// return a copy the caller owns; references stay valid while the Model lives.
 #pragma once
 
 #include <cstdint>
@@ -16,13 +19,6 @@
 #include "sprig/status.h"
 
 namespace sprig {
-
-namespace format {
-class ModelFile;
-}
-namespace layers {
-class FeedForward;
-}
 
 // How open maps the file. Open reads only the header whatever these say; they are hints to
 // the kernel, and none of them failing makes open fail.
@@ -57,6 +53,61 @@ struct Residency {
   uint64_t records_size = 0, records_resident = 0;
 };
 
+// One section of the file (schema/README.md, "Sections"): the hot section (dense data, routing
+// nodes, the top levels of path trees) or one routed layer's records, each page-aligned.
+struct SectionDescription {
+  std::string name;
+  bool records = false;  // false: the hot section
+  int layer = -1;        // the layer a record section belongs to; -1 for the hot section
+  uint64_t offset = 0;   // bytes from the start of the file
+  uint64_t size = 0;     // bytes, padding included
+  uint64_t padding = 0;  // bytes of alignment padding inside the section
+};
+
+// One feed-forward layer as the model runs it: a stack layer, or the feed-forward part of a
+// transformer block (its index is the block's).
+struct LayerDescription {
+  size_t index = 0;
+  LayerConfig config;      // kind, mode, widths and activation, as the file stores them
+  size_t in = 0;           // values per input row
+  size_t out = 0;          // values per output row
+  size_t route_width = 0;  // ints per row in Routes: 0 dense, 1 tree (a leaf), top_k experts
+  uint64_t units = 0;      // what a route picks among: 2^depth leaves, or the experts; 0 dense
+  // The layer's record set in the file (one record per leaf, expert or path-tree chunk), or -1
+  // when all its weights are in the hot section. Record sets are numbered in file order, as
+  // TensorDescription::record_set numbers them.
+  int record_set = -1;
+  uint64_t records = 0;      // records in that set
+  uint64_t record_size = 0;  // bytes of one record
+  // Counts from the config; a multiply-add is 2 FLOPs, activations, norms and softmax are not
+  // counted.
+  uint64_t params = 0;                 // weights and biases
+  uint64_t flops_per_token = 0;        // what one token costs
+  uint64_t dense_width = 0;            // hidden units of the dense layer with as many units
+  uint64_t dense_flops_per_token = 0;  // what one token costs that dense layer
+};
+
+// One stored tensor (names and shapes: the input contract in the project's README).
+struct TensorDescription {
+  std::string name;
+  std::vector<uint64_t> shape;
+  DType dtype = DType::kF32;  // storage type (compute is float32)
+  int layer = -1;             // the layer it belongs to; -1 for model-level tensors
+  uint64_t hot_rows = 0;      // rows (along axis 0) stored in the hot section, the first ones
+  int record_set = -1;        // the record set holding the other rows; -1 when all are hot
+  uint64_t bytes = 0;         // stored values: elements × DTypeSize(dtype)
+  uint64_t scale_bytes = 0;   // i8 only: the float32 scales stored beside the values
+  // The storage error the packer measured against the source weights: the largest absolute
+  // difference and the RMS of the differences relative to the RMS of the source. 0 for f32,
+  // and in files packed before the packer measured it.
+  float error_max_abs = 0;
+  float error_rel_rms = 0;
+};
+
+// Which Session call an input is for: float rows (Session::forward, stack models) or token
+// sequences (Session::forward_tokens, transformer models).
+enum class InputKind : uint8_t { kRows, kTokens };
+
 class SPRIG_API Model {
  public:
   // Opens `path`. On failure the Status names the file and what is wrong with it.
@@ -70,24 +121,69 @@ class SPRIG_API Model {
   const std::string& path() const;
   uint64_t file_size() const;
 
+  // What the file says of itself: its format version, the program that wrote it, the size of
+  // its header, and its config as the JSON text it stores.
+  uint32_t format_version() const;
+  const std::string& producer() const;
+  uint64_t header_size() const;
+  const std::string& config_json() const;
+
+  // The file's sections, in file order.
+  std::vector<SectionDescription> sections() const;
+  // Every feed-forward layer, in model order (one per entry of config().layers).
+  std::vector<LayerDescription> layer_descriptions() const;
+  // Every stored tensor, in file order.
+  std::vector<TensorDescription> tensor_descriptions() const;
+
+  // ---- the input rules ----
+  //
+  // The Session calls apply these rules to every input, and so do these queries, with the same
+  // messages: a front end (the C API, the command line, a language binding) asks them before
+  // it allocates an output or when it holds its input in another form, and passes their
+  // message on. Each returns InvalidArgument with one sentence naming the rule broken.
+
+  // The shape of the output for an input of `input_shape` given to the call `kind` names:
+  // rows [N, input_dim] or [input_dim] (one row) give [N, output_dim]; tokens [B, T] or [T]
+  // (one sequence) give [B, T, vocab_size] (lm head), [B, classes] (classifier) or
+  // [B, T, d_model] (no head). Checks the family (rows for a stack, tokens for a transformer),
+  // the rank, a row's width, T against max_seq and, for a classifier, T >= 1.
+  Result<std::vector<uint64_t>> output_shape(InputKind kind,
+                                             const std::vector<uint64_t>& input_shape) const;
+  // The rules of Session::forward for `count` rows of input_dim floats: the family, and every
+  // value finite (the message names the first row and column that is not).
+  Status check_rows(const float* rows, size_t count) const;
+  // The rules of Session::forward_tokens for `batch` sequences of `length` tokens (row-major),
+  // given as int64 as NumPy and many tokenizers hold them, so that a caller can check before it
+  // narrows them to int32: the family, length against max_seq, a classifier's length >= 1, and
+  // every token in [0, vocab_size) (the message names the first that is not, as
+  // [sequence, position]).
+  Status check_tokens(const int64_t* tokens, size_t batch, size_t length) const;
+  // The rules of decoding (Session::append_tokens, Session::generate): a transformer with an lm
+  // head and causal attention, and room in a KV cache that holds `cached` tokens for `count`
+  // more (max_seq in all).
+  Status check_decoding(size_t cached, size_t count) const;
+
   // Reads every weight and compares it with its stored checksum. Returns CheckFailed naming
-  // the damaged tensors and records. Thread-safe; may take a while on large files.
+  // the damaged tensors and records. May take a while on large files.
   Status verify_checksums() const;
 
-  // Which parts of the file are in memory now (see Residency). Thread-safe; costs one mincore
-  // call per section and a byte per page.
+  // Which parts of the file are in memory now (see Residency). Costs one mincore call per
+  // section and a byte per page.
   Residency residency() const;
+  // Bytes of the model's mapping in this process's resident set now (the mapping's Rss in
+  // /proc/self/smaps): pages this process has read and still maps, unlike residency(), which
+  // counts the page cache whoever read it. 0 where the system does not tell (outside Linux).
+  // Each call reads all of /proc/self/smaps, so it is not for inner loops.
+  uint64_t process_resident_bytes() const;
   // True when OpenOptions::lock_hot was set and the hot section is locked in memory.
   bool hot_locked() const;
 
-  // The underlying file and bound layers, for sprig's own tools. Not part of the stable API.
-  const format::ModelFile& file() const { return *file_; }
-  const std::vector<std::unique_ptr<layers::FeedForward>>& layers() const { return layers_; }
+  // The model's private state: the mapped file and the network bound to it.
+  struct Impl;
 
  private:
-  explicit Model(std::unique_ptr<format::ModelFile> file);
-  std::unique_ptr<format::ModelFile> file_;
-  std::vector<std::unique_ptr<layers::FeedForward>> layers_;
+  explicit Model(std::unique_ptr<Impl> impl);
+  std::unique_ptr<Impl> impl_;
 };
 
 }  // namespace sprig

@@ -102,7 +102,8 @@ class SPRIG_API Session {
   // Stack models: `input` holds rows × input_dim floats, `output` receives rows × output_dim.
   // When `routes` is not null it receives every routed layer's decisions for these rows; when
   // `trace` is not null it receives every layer's inputs and outputs (one entry per layer).
-  // Returns InvalidArgument for a transformer model or a non-finite input value.
+  // Returns InvalidArgument for a transformer model or a non-finite input value (the input
+  // rules; see Model::check_rows).
   Status forward(const float* input, size_t rows, float* output, Routes* routes = nullptr,
                  std::vector<LayerTrace>* trace = nullptr);
 
@@ -113,14 +114,15 @@ class SPRIG_API Session {
   // `routes` is not null it receives each routed block's choices for the batch·length tokens in
   // batch-major order; `trace`, when not null, receives each block's feed-forward input and
   // output residual stream in the same order. InvalidArgument for a stack model,
-  // length > max_seq or a token outside [0, vocab_size).
+  // length > max_seq, length 0 for a classifier or a token outside [0, vocab_size) (the input
+  // rules; see Model::check_tokens).
   Status forward_tokens(const int32_t* tokens, size_t batch, size_t length, float* output,
                         Routes* routes = nullptr, std::vector<LayerTrace>* trace = nullptr);
 
   // Causal transformer models with an lm head: runs `token` at the KV cache's next position
   // (position()), keeps its keys and values, and writes the vocab_size logits of the next token
   // to `logits` (may be null). InvalidArgument when the cache already holds max_seq tokens, the
-  // token is out of range, or the model is not a causal lm.
+  // token is out of range, or the model is not a causal lm (see Model::check_decoding).
   Status append_token(int32_t token, float* logits);
   // As append_token for `count` tokens at once (one batched pass); `logits` receives the logits
   // after the last of them.

@@ -89,6 +89,34 @@ SPRIG_API size_t sprig_model_output_dim(const sprig_model_t* model);
  * 0 for a stack model or a NULL model. */
 SPRIG_API size_t sprig_model_tokens_output_size(const sprig_model_t* model, size_t batch, size_t length);
 
+/* ---- input rules ----
+ *
+ * The session calls below apply the model's input rules and report a broken one as
+ * SPRIG_INVALID_ARGUMENT with a message naming it. These two apply the same rules, with the same
+ * messages, before a call: to size its output, or to check tokens held in another form. */
+
+#define SPRIG_INPUT_ROWS 1   /* float rows for sprig_session_forward */
+#define SPRIG_INPUT_TOKENS 2 /* token sequences for sprig_session_forward_tokens */
+
+/* The shape of the output for an input of shape input_shape[0 .. input_rank) given to the call
+ * `input_kind` names: rows [N, input_dim] or [input_dim] (one row) give [N, output_dim]; tokens
+ * [B, T] or [T] (one sequence) give [B, T, vocab_size] (lm head), [B, classes] (classifier) or
+ * [B, T, d_model] (no head). `output_shape` must have room for 3 values; *output_rank receives
+ * 2 or 3. SPRIG_INVALID_ARGUMENT, and nothing written, when the input does not fit: rows for a
+ * transformer or tokens for a stack, another rank, rows of another width, T > max_seq, or T = 0
+ * for a classifier. */
+int sprig_model_output_shape(const sprig_model_t* model, int input_kind,
+                             const uint64_t* input_shape, size_t input_rank, uint64_t* output_shape,
+                             size_t* output_rank, char** errptr);
+
+/* The rules sprig_session_forward_tokens applies to `batch` sequences of `length` tokens
+ * (row-major), for tokens held as int64 (as NumPy and many tokenizers hold them) before the
+ * caller narrows them to int32: a transformer model, length <= max_seq, length >= 1 for a
+ * classifier, and every token in [0, vocab_size) (the message names the first that is not as
+ * [sequence, position]). SPRIG_OK or SPRIG_INVALID_ARGUMENT. */
+int sprig_model_check_tokens(const sprig_model_t* model, const int64_t* tokens, size_t batch,
+                             size_t length, char** errptr);
+
 /* Reads every weight and compares it with its stored checksum: SPRIG_OK, or SPRIG_CHECK_FAILED
  * with a message naming the damaged tensors. May take a while on large files. */
 SPRIG_API int sprig_model_verify_checksums(const sprig_model_t* model, char** errptr);
@@ -114,14 +142,16 @@ SPRIG_API const char* sprig_session_kernel_path(const sprig_session_t* session);
 
 /* Stack models: `input` holds rows × input_dim floats (row-major); `output` receives
  * rows × output_dim. A row's result does not depend on the thread count or on how rows are
- * split into calls. SPRIG_INVALID_ARGUMENT for a transformer model or a non-finite input. */
+ * split into calls. SPRIG_INVALID_ARGUMENT for a transformer model or a non-finite input (the
+ * message names its row and column). */
 SPRIG_API int sprig_session_forward(sprig_session_t* session, const float* input, size_t rows, float* output,
                           char** errptr);
 
 /* Transformer models: runs `batch` sequences of `length` tokens (row-major [batch, length]),
  * each independently from position 0; the KV cache is neither used nor changed. `output`
  * receives sprig_model_tokens_output_size(model, batch, length) floats. SPRIG_INVALID_ARGUMENT
- * for a stack model, length > max_seq or a token outside [0, vocab_size). */
+ * for a stack model, length > max_seq, length 0 for a classifier or a token outside
+ * [0, vocab_size). */
 SPRIG_API int sprig_session_forward_tokens(sprig_session_t* session, const int32_t* tokens, size_t batch,
                                  size_t length, float* output, char** errptr);
 

@@ -4,6 +4,7 @@
 // and message and any C++ exception into SPRIG_INTERNAL, so nothing but an int crosses into C.
 #include "sprig/sprig.h"
 
+#include <algorithm>
 #include <cstdlib>
 #include <cstring>
 #include <exception>
@@ -12,6 +13,7 @@
 #include <string>
 #include <vector>
 
+#include "api/input_rules.h"
 #include "sprig/memory.h"
 #include "sprig/model.h"
 #include "sprig/session.h"
@@ -84,12 +86,6 @@ Status Null(const char* function, const char* what) {
 // A NULL data pointer is only acceptable when the array it stands for is empty.
 bool MissingArray(const void* data, size_t count) {
   return data == nullptr && count > 0;
-}
-
-// Floats forward_tokens writes; a classifier pools each sequence into one row of scores.
-size_t TokensOutputSize(const ModelConfig& c, size_t batch, size_t length) {
-  const size_t rows = c.head.kind == HeadKind::kClassifier ? batch : batch * length;
-  return rows * c.output_dim();
 }
 
 }  // namespace
@@ -185,7 +181,44 @@ size_t sprig_model_output_dim(const sprig_model_t* model) {
 size_t sprig_model_tokens_output_size(const sprig_model_t* model, size_t batch, size_t length) {
   if (model == nullptr) return 0;
   const sprig::ModelConfig& c = model->model->config();
-  return c.family == sprig::Family::kTransformer ? sprig::TokensOutputSize(c, batch, length) : 0;
+  return c.family == sprig::Family::kTransformer
+             ? sprig::input_rules::TokensOutputSize(c, batch, length)
+             : 0;
+}
+
+int sprig_model_output_shape(const sprig_model_t* model, int input_kind,
+                             const uint64_t* input_shape, size_t input_rank, uint64_t* output_shape,
+                             size_t* output_rank, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_model_output_shape";
+    if (model == nullptr) return Null(f, "model");
+    if (sprig::MissingArray(input_shape, input_rank)) return Null(f, "input_shape");
+    if (output_shape == nullptr) return Null(f, "output_shape");
+    if (output_rank == nullptr) return Null(f, "output_rank");
+    if (input_kind != SPRIG_INPUT_ROWS && input_kind != SPRIG_INPUT_TOKENS) {
+      return Status::InvalidArgument(std::string(f) + " was given input kind " +
+                                     std::to_string(input_kind) +
+                                     ", expected SPRIG_INPUT_ROWS or SPRIG_INPUT_TOKENS");
+    }
+    const sprig::InputKind kind =
+        input_kind == SPRIG_INPUT_ROWS ? sprig::InputKind::kRows : sprig::InputKind::kTokens;
+    auto shape = model->model->output_shape(
+        kind, std::vector<uint64_t>(input_shape, input_shape + input_rank));
+    if (!shape.ok()) return shape.status();
+    std::copy(shape->begin(), shape->end(), output_shape);
+    *output_rank = shape->size();
+    return Status::Ok();
+  });
+}
+
+int sprig_model_check_tokens(const sprig_model_t* model, const int64_t* tokens, size_t batch,
+                             size_t length, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_model_check_tokens";
+    if (model == nullptr) return Null(f, "model");
+    if (sprig::MissingArray(tokens, batch * length)) return Null(f, "tokens");
+    return model->model->check_tokens(tokens, batch, length);
+  });
 }
 
 int sprig_model_verify_checksums(const sprig_model_t* model, char** errptr) {
@@ -248,7 +281,7 @@ int sprig_session_forward_tokens(sprig_session_t* session, const int32_t* tokens
     const sprig::ModelConfig& c = session->session->model().config();
     if (c.family == sprig::Family::kTransformer) {
       if (sprig::MissingArray(tokens, batch * length)) return Null(f, "tokens");
-      const size_t n = sprig::TokensOutputSize(c, batch, length);
+      const size_t n = sprig::input_rules::TokensOutputSize(c, batch, length);
       if (sprig::MissingArray(output, n)) return Null(f, "output");
     }
     return session->session->forward_tokens(tokens, batch, length, output);

@@ -1,12 +1,29 @@
 #include "sprig/model.h"
 
-#include "format/model_file.h"
-#include "layers/feed_forward.h"
+#include <cinttypes>
+#include <cstdio>
+#include <cstring>
+
+#include "api/input_rules.h"
+#include "api/model_impl.h"
+#include "kernels/kernels.h"
+#include "model/flops.h"
 #include "model/tensor_spec.h"
+#include "network/stack_network.h"
+#include "transformer/transformer.h"
 
 namespace sprig {
+namespace {
 
-Model::Model(std::unique_ptr<format::ModelFile> file) : file_(std::move(file)) {}
+// The record set `records` points into, as an index into the file's list; -1 for null.
+int RecordSetIndex(const format::ModelFile& file, const format::RecordSetInfo* records) {
+  if (records == nullptr) return -1;
+  return static_cast<int>(records - file.record_sets().data());
+}
+
+}  // namespace
+
+Model::Model(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
 Model::~Model() = default;
 
 Result<std::shared_ptr<const Model>> Model::open(const std::string& path,
@@ -15,47 +32,157 @@ Result<std::shared_ptr<const Model>> Model::open(const std::string& path,
   file_options.advise_random_records = options.advise_random_records;
   file_options.warm_hot = options.warm_hot;
   file_options.lock_hot = options.lock_hot;
-  SPRIG_ASSIGN_OR_RETURN(auto file, format::ModelFile::Open(path, file_options));
-  std::shared_ptr<Model> model(new Model(std::move(file)));
+  auto impl = std::make_unique<Impl>();
+  SPRIG_ASSIGN_OR_RETURN(impl->file, format::ModelFile::Open(path, file_options));
   // Binding only records pointers into the mapping; no weight is read.
-  const format::ModelFile& f = *model->file_;
-  for (size_t i = 0; i < f.config().layers.size(); ++i) {
-    SPRIG_ASSIGN_OR_RETURN(auto layer, layers::BindLayer(f, i, LayerPrefix(f.config(), i)));
-    model->layers_.push_back(std::move(layer));
+  if (impl->file->config().family == Family::kStack) {
+    SPRIG_ASSIGN_OR_RETURN(impl->network, network::StackNetwork::Bind(*impl->file));
+  } else {
+    SPRIG_ASSIGN_OR_RETURN(impl->network, transformer::TransformerNetwork::Bind(*impl->file));
   }
-  return std::shared_ptr<const Model>(std::move(model));
+  return std::shared_ptr<const Model>(new Model(std::move(impl)));
 }
 
 const ModelConfig& Model::config() const {
-  return file_->config();
+  return impl_->file->config();
 }
 const std::string& Model::path() const {
-  return file_->path();
+  return impl_->file->path();
 }
 uint64_t Model::file_size() const {
-  return file_->file_size();
+  return impl_->file->file_size();
 }
+uint32_t Model::format_version() const {
+  return impl_->file->format_version();
+}
+const std::string& Model::producer() const {
+  return impl_->file->producer();
+}
+uint64_t Model::header_size() const {
+  return impl_->file->header_size();
+}
+const std::string& Model::config_json() const {
+  return impl_->file->config_json();
+}
+
+std::vector<SectionDescription> Model::sections() const {
+  std::vector<SectionDescription> out;
+  for (const format::SectionInfo& s : impl_->file->sections()) {
+    out.push_back({s.name, s.records, s.layer, s.offset, s.size, s.padding});
+  }
+  return out;
+}
+
+std::vector<LayerDescription> Model::layer_descriptions() const {
+  const format::ModelFile& file = *impl_->file;
+  std::vector<LayerDescription> out;
+  for (const auto& layer : impl_->network->layers()) {
+    LayerDescription d;
+    d.index = layer->index();
+    d.config = file.config().layers[d.index];
+    d.in = layer->in();
+    d.out = layer->out();
+    d.route_width = layer->route_width();
+    d.units = layer->unit_count();
+    d.record_set = RecordSetIndex(file, layer->records());
+    d.records = layer->record_count();
+    d.record_size = layer->records() ? layer->records()->record_size : 0;
+    const LayerCost cost = CostOf(d.config);
+    d.params = cost.params;
+    d.flops_per_token = cost.flops_per_token;
+    d.dense_width = cost.dense_width;
+    d.dense_flops_per_token = cost.dense_flops_per_token;
+    out.push_back(std::move(d));
+  }
+  return out;
+}
+
+std::vector<TensorDescription> Model::tensor_descriptions() const {
+  std::vector<TensorDescription> out;
+  for (const format::TensorInfo& t : impl_->file->tensors()) {
+    TensorDescription d;
+    d.name = t.name;
+    d.shape = t.shape;
+    d.dtype = t.dtype;
+    d.layer = t.layer;
+    d.hot_rows = t.hot_rows;
+    d.record_set = t.record_set;
+    d.bytes = ElementCount(t.shape) * DTypeSize(t.dtype);
+    // One row of scales per row along axis 0 (a 0-d tensor has no scales).
+    d.scale_bytes = t.shape.empty() ? 0 : t.shape[0] * t.scale_row_bytes;
+    d.error_max_abs = t.error_max_abs;
+    d.error_rel_rms = t.error_rel_rms;
+    out.push_back(std::move(d));
+  }
+  return out;
+}
+
+Result<std::vector<uint64_t>> Model::output_shape(InputKind kind,
+                                                  const std::vector<uint64_t>& input_shape) const {
+  return input_rules::OutputShape(config(), path(), kind, input_shape);
+}
+
+Status Model::check_rows(const float* rows, size_t count) const {
+  SPRIG_RETURN_IF_ERROR(input_rules::RowsCall(config(), path()));
+  return input_rules::FiniteRows(config(), rows, count, &kernels::ActiveKernels());
+}
+
+Status Model::check_tokens(const int64_t* tokens, size_t batch, size_t length) const {
+  SPRIG_RETURN_IF_ERROR(input_rules::TokensCall(config(), path()));
+  SPRIG_RETURN_IF_ERROR(input_rules::Sequences(config(), batch, length));
+  return input_rules::TokenRange(config(), tokens, batch, length);
+}
+
+Status Model::check_decoding(size_t cached, size_t count) const {
+  SPRIG_RETURN_IF_ERROR(input_rules::Decoding(config(), path()));
+  return input_rules::DecodingRoom(config(), cached, count);
+}
+
 Status Model::verify_checksums() const {
-  return file_->VerifyChecksums();
+  return impl_->file->VerifyChecksums();
 }
 bool Model::hot_locked() const {
-  return file_->hot_locked();
+  return impl_->file->hot_locked();
 }
 
 Residency Model::residency() const {
+  const format::ModelFile& file = *impl_->file;
   Residency r;
-  for (const format::SectionInfo& s : file_->sections()) {
+  for (const format::SectionInfo& s : file.sections()) {
     SectionResidency sr;
     sr.name = s.name;
     sr.records = s.records;
     sr.layer = s.records ? s.layer : -1;
     sr.size = s.size;
-    sr.resident_bytes = format::ResidentBytes(file_->base() + s.offset, s.size);
+    sr.resident_bytes = format::ResidentBytes(file.base() + s.offset, s.size);
     (s.records ? r.records_size : r.hot_size) += sr.size;
     (s.records ? r.records_resident : r.hot_resident) += sr.resident_bytes;
     r.sections.push_back(std::move(sr));
   }
   return r;
+}
+
+uint64_t Model::process_resident_bytes() const {
+  FILE* f = std::fopen("/proc/self/smaps", "r");
+  if (!f) return 0;
+  const uintptr_t want = reinterpret_cast<uintptr_t>(impl_->file->base());
+  char line[512];
+  bool in_mapping = false;
+  uint64_t rss = 0;
+  while (std::fgets(line, sizeof(line), f)) {
+    uintptr_t start = 0, end = 0;
+    // A mapping's first line is "start-end perms offset dev inode path"; its fields follow.
+    if (std::sscanf(line, "%" SCNxPTR "-%" SCNxPTR " ", &start, &end) == 2 &&
+        std::strchr(line, ' ') > std::strchr(line, '-')) {
+      if (in_mapping) break;
+      in_mapping = start == want;
+      continue;
+    }
+    unsigned long long kb = 0;
+    if (in_mapping && std::sscanf(line, "Rss: %llu kB", &kb) == 1) rss = kb * 1024;
+  }
+  std::fclose(f);
+  return rss;
 }
 
 }  // namespace sprig

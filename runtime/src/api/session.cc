@@ -3,18 +3,16 @@
 #include <algorithm>
 #include <bit>
 #include <chrono>
-#include <cmath>
-#include <cstdio>
-#include <cstring>
-#include <optional>
 #include <thread>
 
-#include "format/model_file.h"
+#include "api/input_rules.h"
+#include "api/model_impl.h"
 #include "kernels/kernels.h"
 #include "layers/feed_forward.h"
 #include "layers/thread_pool.h"
+#include "network/network.h"
+#include "network/recorder.h"
 #include "transformer/sampler.h"
-#include "transformer/transformer.h"
 
 namespace sprig {
 namespace {
@@ -23,36 +21,16 @@ double SecondsSince(std::chrono::steady_clock::time_point start) {
   return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
 }
 
-// A float as printf's %g writes it ("0.5", "1e-06").
-std::string Number(float v) {
-  char buf[32];
-  std::snprintf(buf, sizeof(buf), "%g", static_cast<double>(v));
-  return buf;
-}
-
-// The first token outside [0, vocab), as an error naming it; Ok when all are in range.
-Status CheckTokens(const int32_t* tokens, size_t n, uint32_t vocab) {
-  for (size_t i = 0; i < n; ++i) {
-    if (tokens[i] < 0 || static_cast<uint32_t>(tokens[i]) >= vocab) {
-      return Status::InvalidArgument("token " + std::to_string(tokens[i]) + " at index " +
-                                     std::to_string(i) + " is outside the vocabulary [0, " +
-                                     std::to_string(vocab) + ")");
-    }
-  }
-  return Status::Ok();
-}
-
 }  // namespace
 
+// Everything a session's calls change; the model's network is shared and never changes.
 struct Session::State {
+  const network::Network* network = nullptr;
   const kernels::KernelTable* kernels = nullptr;
   std::unique_ptr<layers::ThreadPool> pool;
   std::vector<layers::Scratch> scratch;
-  std::vector<float> ping, pong;  // activations between layers
-  // Transformer models only.
-  std::optional<transformer::Transformer> transformer;
-  transformer::Workspace workspace;
-  transformer::KvCache cache;
+  std::unique_ptr<network::Workspace> workspace;
+  network::KvCache cache;  // transformer models only
   SessionStats stats;
   layers::TouchLog touched;  // one bitset per model layer, sized at creation
 
@@ -75,6 +53,7 @@ Result<std::unique_ptr<Session>> Session::create(std::shared_ptr<const Model> mo
                                                  const SessionOptions& options) {
   if (!model) return Status::InvalidArgument("Session::create needs an open model");
   auto state = std::make_unique<State>();
+  state->network = Model::Impl::Of(*model).network.get();
   kernels::KernelPath path;
   if (options.kernel_path.empty()) {
     path = kernels::BestAvailablePath();
@@ -89,13 +68,10 @@ Result<std::unique_ptr<Session>> Session::create(std::shared_ptr<const Model> mo
   }
   if (threads > 1) state->pool = std::make_unique<layers::ThreadPool>(threads);
   state->scratch.resize(threads);
-  for (const auto& layer : model->layers()) {
+  for (const auto& layer : state->network->layers()) {
     state->touched.bits.emplace_back((layer->record_count() + 63) / 64, 0);
   }
-  if (model->config().family == Family::kTransformer) {
-    SPRIG_ASSIGN_OR_RETURN(auto bound, transformer::Transformer::Bind(*model));
-    state->transformer.emplace(std::move(bound));
-  }
+  state->workspace = state->network->NewWorkspace();
   return std::unique_ptr<Session>(new Session(std::move(model), std::move(state)));
 }
 
@@ -109,78 +85,34 @@ size_t Session::threads() const {
 Status Session::forward(const float* input, size_t rows, float* output, Routes* routes,
                         std::vector<LayerTrace>* trace) {
   const ModelConfig& c = model_->config();
-  if (c.family != Family::kStack) {
-    return Status::InvalidArgument(model_->path() +
-                                   " is a transformer model; it takes tokens, not float rows");
-  }
-  const size_t in = c.input_dim;
-  if (!state_->kernels->all_finite(input, rows * in)) {
-    for (size_t i = 0;; ++i) {
-      if (std::isfinite(input[i])) continue;
-      return Status::InvalidArgument("input row " + std::to_string(i / in) + ", column " +
-                                     std::to_string(i % in) + " is not a finite number");
-    }
-  }
+  SPRIG_RETURN_IF_ERROR(input_rules::RowsCall(c, model_->path()));
+  SPRIG_RETURN_IF_ERROR(input_rules::FiniteRows(c, input, rows, state_->kernels));
   const auto start = std::chrono::steady_clock::now();
-  const layers::Exec exec = state_->MakeExec(rows == 1);
-  if (routes) routes->layers.clear();
-  if (trace) trace->clear();
-  const auto& net = model_->layers();
-  const float* x = input;
-  for (size_t i = 0; i < net.size(); ++i) {
-    const layers::FeedForward& layer = *net[i];
-    float* y = output;
-    if (i + 1 < net.size()) {
-      std::vector<float>& buf = (i % 2 == 0) ? state_->ping : state_->pong;
-      if (buf.size() < rows * layer.out()) buf.resize(rows * layer.out());
-      y = buf.data();
-    }
-    int32_t* route_out = nullptr;
-    if (routes && layer.route_width() > 0) {
-      LayerRoutes lr;
-      lr.layer = i;
-      lr.width = layer.route_width();
-      lr.choices.resize(rows * lr.width);
-      routes->layers.push_back(std::move(lr));
-      route_out = routes->layers.back().choices.data();
-    }
-    layer.Forward(exec, x, rows, y, route_out);
-    if (trace) {
-      trace->push_back({i, layer.in(), layer.out(), std::vector<float>(x, x + rows * layer.in()),
-                        std::vector<float>(y, y + rows * layer.out())});
-    }
-    x = y;
-  }
+  network::Input call;
+  call.rows = input;
+  call.sequences = rows;
+  network::Recorder recorder(routes, trace);
+  state_->network->Forward(state_->MakeExec(rows == 1), *state_->workspace, call, output, recorder);
   state_->stats.forward_calls += 1;
   state_->stats.rows += rows;
   state_->stats.forward_seconds += SecondsSince(start);
   return Status::Ok();
 }
 
-}  // namespace sprig
-
-namespace sprig {
-
 Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t length, float* output,
                                Routes* routes, std::vector<LayerTrace>* trace) {
   const ModelConfig& c = model_->config();
-  if (!state_->transformer) {
-    return Status::InvalidArgument(model_->path() +
-                                   " is a stack model; it takes float rows, not tokens");
-  }
-  if (length > c.max_seq) {
-    return Status::InvalidArgument("a sequence of " + std::to_string(length) +
-                                   " tokens is longer than the model's max_seq " +
-                                   std::to_string(c.max_seq));
-  }
-  if (c.head.kind == HeadKind::kClassifier && length == 0 && batch > 0) {
-    return Status::InvalidArgument("a classifier needs sequences of at least one token");
-  }
-  SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, batch * length, c.vocab_size));
+  SPRIG_RETURN_IF_ERROR(input_rules::TokensCall(c, model_->path()));
+  SPRIG_RETURN_IF_ERROR(input_rules::Sequences(c, batch, length));
+  SPRIG_RETURN_IF_ERROR(input_rules::TokenRange(c, tokens, batch, length));
   const auto start = std::chrono::steady_clock::now();
-  const layers::Exec exec = state_->MakeExec(batch * length == 1);
-  state_->transformer->Forward(exec, state_->workspace, tokens, batch, length, output, routes,
-                               trace);
+  network::Input call;
+  call.tokens = tokens;
+  call.sequences = batch;
+  call.length = length;
+  network::Recorder recorder(routes, trace);
+  state_->network->Forward(state_->MakeExec(batch * length == 1), *state_->workspace, call, output,
+                           recorder);
   state_->stats.forward_calls += 1;
   state_->stats.sequence_tokens += batch * length;
   state_->stats.forward_seconds += SecondsSince(start);
@@ -189,31 +121,14 @@ Status Session::forward_tokens(const int32_t* tokens, size_t batch, size_t lengt
 
 Status Session::append_tokens(const int32_t* tokens, size_t count, float* logits) {
   const ModelConfig& c = model_->config();
-  if (!state_->transformer) {
-    return Status::InvalidArgument(model_->path() + " is a stack model; it has no KV cache");
-  }
-  if (c.head.kind != HeadKind::kLm) {
-    return Status::InvalidArgument(model_->path() + " has a " + ToString(c.head.kind) +
-                                   " head; decoding with the KV cache needs an lm head");
-  }
-  if (!c.causal) {
-    // Earlier tokens of a bidirectional model would have to see the new one, which a cache
-    // of their keys and values cannot express.
-    return Status::InvalidArgument(model_->path() +
-                                   " is not causal; decoding with the KV cache needs a causal "
-                                   "model (use forward_tokens on whole sequences)");
-  }
-  const size_t at = state_->cache.length;
-  if (count > c.max_seq - at) {
-    return Status::InvalidArgument("the KV cache holds " + std::to_string(at) + " of max_seq " +
-                                   std::to_string(c.max_seq) + " tokens; " + std::to_string(count) +
-                                   " more do not fit");
-  }
-  SPRIG_RETURN_IF_ERROR(CheckTokens(tokens, count, c.vocab_size));
+  SPRIG_RETURN_IF_ERROR(input_rules::Decoding(c, model_->path()));
+  SPRIG_RETURN_IF_ERROR(input_rules::DecodingRoom(c, state_->cache.length, count));
+  SPRIG_RETURN_IF_ERROR(input_rules::TokenRange(c, tokens, 1, count));
   if (count == 0) return Status::Ok();
   const auto start = std::chrono::steady_clock::now();
-  const layers::Exec exec = state_->MakeExec(count == 1);
-  state_->transformer->Append(exec, state_->workspace, state_->cache, tokens, count, logits);
+  // Decoding passed, so the model is a transformer, whose network decodes.
+  state_->network->decoder()->Append(state_->MakeExec(count == 1), *state_->workspace,
+                                     state_->cache, tokens, count, logits);
   const double seconds = SecondsSince(start);
   if (count == 1) {
     state_->stats.decode_tokens += 1;
@@ -237,13 +152,13 @@ const SessionStats& Session::stats() const {
   // Counted from the bitsets on demand, so forward calls only set bits.
   SessionStats& s = state_->stats;
   s.touched.clear();
-  const auto& net = model_->layers();
-  for (size_t i = 0; i < net.size(); ++i) {
-    if (net[i]->records() == nullptr) continue;
+  const auto& layers = state_->network->layers();
+  for (size_t i = 0; i < layers.size(); ++i) {
+    if (layers[i]->records() == nullptr) continue;
     LayerTouch t;
     t.layer = i;
-    t.records = net[i]->record_count();
-    t.record_size = net[i]->records()->record_size;
+    t.records = layers[i]->record_count();
+    t.record_size = layers[i]->records()->record_size;
     for (uint64_t word : state_->touched.bits[i]) t.touched += std::popcount(word);
     s.touched.push_back(t);
   }
@@ -261,18 +176,10 @@ size_t Session::position() const {
 
 Status Session::generate(const std::vector<int32_t>& prompt, const GenerateOptions& options,
                          const std::function<bool(int32_t token)>& on_token) {
-  if (!(options.temperature >= 0.0f) || !std::isfinite(options.temperature)) {
-    return Status::InvalidArgument("temperature must be a finite number >= 0, got " +
-                                   Number(options.temperature));
-  }
-  if (!(options.top_p > 0.0f && options.top_p <= 1.0f)) {
-    return Status::InvalidArgument("top_p must be in (0, 1], got " + Number(options.top_p));
-  }
-  if (prompt.empty())
-    return Status::InvalidArgument("generate needs a prompt of at least one token");
+  SPRIG_RETURN_IF_ERROR(input_rules::Generation(options, prompt.size()));
   const ModelConfig& c = model_->config();
   reset();
-  std::vector<float> logits(state_->transformer ? c.vocab_size : 0);
+  std::vector<float> logits(c.family == Family::kTransformer ? c.vocab_size : 0);
   // The prompt in one batched pass; its last token's logits predict the first new token.
   SPRIG_RETURN_IF_ERROR(append_tokens(prompt.data(), prompt.size(), logits.data()));
   transformer::Random rng(options.seed);

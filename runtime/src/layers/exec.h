@@ -23,11 +23,11 @@ inline constexpr size_t kRowChunk = 16;
 struct Scratch {
   std::vector<float> hidden;  // MlpForward: act(fc1 x + b1), [rows, width]
   std::vector<float> gate;    // MlpForward, gated: gate x + b, [rows, width]
-  // RunGroups: one group's input rows, gathered, [rows, in]. The transformer's attention also
-  // keeps one (sequence, head)'s scores here; it never runs inside a layer.
-  std::vector<float> c;
+  std::vector<float> group_input;  // RunGroups: one group's input rows, gathered, [rows, in]
   std::vector<float> group_output;   // RunGroups: one group's output rows, [rows, out]
   std::vector<float> expert_output;  // ExpertsLayer, single row: one expert's output, [out]
+  // The transformer's attention: one (sequence, head)'s scores over the positions it sees.
+  std::vector<float> attention_scores;
 };
 
 class ThreadPool;

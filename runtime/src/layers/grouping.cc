@@ -26,11 +26,11 @@ void RunGroups(const Exec& exec, const std::vector<RowGroup>& groups,
   exec.ParallelFor(groups.size(), [&](size_t task, Scratch& scratch) {
     const RowGroup& group = groups[task];
     const size_t count = group.end - group.begin;
-    if (scratch.c.size() < count * in) scratch.c.resize(count * in);
+    if (scratch.group_input.size() < count * in) scratch.group_input.resize(count * in);
     if (scratch.group_output.size() < count * out_width) {
       scratch.group_output.resize(count * out_width);
     }
-    float* input = scratch.c.data();
+    float* input = scratch.group_input.data();
     float* output = scratch.group_output.data();
     for (size_t i = 0; i < count; ++i) {
       const size_t row = order[group.begin + i] / per_row;

@@ -32,9 +32,9 @@ void ApplyRope(float* x, size_t head_dim, const float* cos, const float* sin) {
 // ws.q holds [sequences · length, d] queries whose token t has position start + t. keys and
 // values hold, for sequence s at s · sequence_stride, rows of kv_dim for positions
 // 0 .. start + length − 1 (already rotated). Writes the concatenated head outputs to ws.attn.
-void Transformer::Attend(const layers::Exec& exec, Workspace& ws, size_t sequences, size_t length,
-                         size_t start, const float* keys, const float* values,
-                         size_t sequence_stride) const {
+void TransformerNetwork::Attend(const layers::Exec& exec, TransformerWorkspace& ws,
+                                size_t sequences, size_t length, size_t start, const float* keys,
+                                const float* values, size_t sequence_stride) const {
   const kernels::KernelTable& k = *exec.k;
   const size_t heads = config_->n_heads, hd = head_dim_, d = d_, kv_dim = kv_dim_;
   const size_t total = start + length;
@@ -46,8 +46,8 @@ void Transformer::Attend(const layers::Exec& exec, Workspace& ws, size_t sequenc
     const size_t seq = task / heads, h = task % heads, g = h / group_;
     const float* kseq = keys + seq * sequence_stride + g * hd;
     const float* vseq = values + seq * sequence_stride + g * hd;
-    if (s.c.size() < total) s.c.resize(total);
-    float* scores = s.c.data();
+    if (s.attention_scores.size() < total) s.attention_scores.resize(total);
+    float* scores = s.attention_scores.data();
     for (size_t t = 0; t < length; ++t) {
       const size_t row = seq * length + t;
       const float* q = ws.q.data() + row * d + h * hd;

@@ -131,23 +131,20 @@ class Tensors {
 
 }  // namespace
 
-Result<Transformer> Transformer::Bind(const Model& model) {
-  const ModelConfig& c = model.config();
-  if (c.family != Family::kTransformer) {
-    return Status::InvalidArgument(model.path() + " is not a transformer model");
-  }
-  Transformer t;
-  t.config_ = &c;
-  t.d_ = c.d_model;
-  t.head_dim_ = c.d_model / c.n_heads;
+Result<std::unique_ptr<network::Network>> TransformerNetwork::Bind(const format::ModelFile& file) {
+  const ModelConfig& c = file.config();
+  std::unique_ptr<TransformerNetwork> t(new TransformerNetwork(c));
+  SPRIG_RETURN_IF_ERROR(t->BindLayers(file));
+  t->d_ = c.d_model;
+  t->head_dim_ = c.d_model / c.n_heads;
   const size_t kv_heads = c.n_kv_heads ? c.n_kv_heads : c.n_heads;
-  t.kv_dim_ = kv_heads * t.head_dim_;
-  t.group_ = c.n_heads / kv_heads;
+  t->kv_dim_ = kv_heads * t->head_dim_;
+  t->group_ = c.n_heads / kv_heads;
   const bool layer_norm = c.norm == NormKind::kLayerNorm;
-  Tensors f(model.file());
-  SPRIG_RETURN_IF_ERROR(f.Matrix("embed.weight", &t.embed_));
-  t.has_pos_ = c.positions == Positions::kLearned;
-  if (t.has_pos_) SPRIG_RETURN_IF_ERROR(f.Matrix("pos.weight", &t.pos_));
+  Tensors f(file);
+  SPRIG_RETURN_IF_ERROR(f.Matrix("embed.weight", &t->embed_));
+  t->has_pos_ = c.positions == Positions::kLearned;
+  if (t->has_pos_) SPRIG_RETURN_IF_ERROR(f.Matrix("pos.weight", &t->pos_));
   for (size_t i = 0; i < c.layers.size(); ++i) {
     const std::string p = "blocks." + std::to_string(i) + ".";
     Block b;
@@ -157,28 +154,28 @@ Result<Transformer> Transformer::Bind(const Model& model) {
     SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.k", c.attn_bias, &b.k));
     SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.v", c.attn_bias, &b.v));
     SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.o", c.attn_bias, &b.o));
-    if (i >= model.layers().size()) {
-      return Status::Corruption(model.path() + ": block " + std::to_string(i) +
-                                " has no bound feed-forward layer");
-    }
-    b.ffn = model.layers()[i].get();
-    t.blocks_.push_back(b);
+    b.ffn = t->layers_[i].get();
+    t->blocks_.push_back(b);
   }
-  SPRIG_RETURN_IF_ERROR(f.Norm("norm", layer_norm, &t.final_norm_));
+  SPRIG_RETURN_IF_ERROR(f.Norm("norm", layer_norm, &t->final_norm_));
   if (c.head.kind == HeadKind::kLm) {
     if (c.tie_embeddings) {
-      t.lm_head_ = t.embed_;
+      t->lm_head_ = t->embed_;
     } else {
-      SPRIG_RETURN_IF_ERROR(f.Matrix("head.weight", &t.lm_head_));
+      SPRIG_RETURN_IF_ERROR(f.Matrix("head.weight", &t->lm_head_));
     }
   } else if (c.head.kind == HeadKind::kClassifier) {
-    SPRIG_RETURN_IF_ERROR(f.Linear("head", true, &t.classifier_));
+    SPRIG_RETURN_IF_ERROR(f.Linear("head", true, &t->classifier_));
   }
-  return t;
+  return std::unique_ptr<network::Network>(std::move(t));
 }
 
-void Transformer::Embed(const Exec& e, const int32_t* tokens, size_t rows, size_t length,
-                        size_t start, float* x) const {
+std::unique_ptr<network::Workspace> TransformerNetwork::NewWorkspace() const {
+  return std::make_unique<TransformerWorkspace>();
+}
+
+void TransformerNetwork::Embed(const Exec& e, const int32_t* tokens, size_t rows, size_t length,
+                               size_t start, float* x) const {
   std::vector<float> pos(has_pos_ ? d_ : 0);
   for (size_t r = 0; r < rows; ++r) {
     float* row = x + r * d_;
@@ -190,8 +187,8 @@ void Transformer::Embed(const Exec& e, const int32_t* tokens, size_t rows, size_
   }
 }
 
-void Transformer::NormRows(const Exec& e, const Norm& n, const float* x, size_t rows,
-                           float* y) const {
+void TransformerNetwork::NormRows(const Exec& e, const Norm& n, const float* x, size_t rows,
+                                  float* y) const {
   const float eps = config_->norm_eps;
   for (size_t r = 0; r < rows; ++r) {
     if (config_->norm == NormKind::kLayerNorm) {
@@ -202,9 +199,9 @@ void Transformer::NormRows(const Exec& e, const Norm& n, const float* x, size_t 
   }
 }
 
-void Transformer::RunBlocks(const Exec& e, Workspace& ws, const int32_t* tokens, size_t sequences,
-                            size_t length, size_t start, KvCache* cache, Routes* routes,
-                            std::vector<LayerTrace>* trace) const {
+void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, const int32_t* tokens,
+                                   size_t sequences, size_t length, size_t start,
+                                   network::KvCache* cache, network::Recorder& recorder) const {
   const size_t rows = sequences * length, d = d_, hd = head_dim_;
   const size_t total = start + length;
   Grow(ws.x, rows * d);
@@ -229,8 +226,7 @@ void Transformer::RunBlocks(const Exec& e, Workspace& ws, const int32_t* tokens,
     cache->keys.resize(blocks_.size());
     cache->values.resize(blocks_.size());
   }
-  if (routes) routes->layers.clear();
-  if (trace) trace->clear();
+  recorder.Begin();
   for (size_t i = 0; i < blocks_.size(); ++i) {
     const Block& b = blocks_[i];
     float* x = ws.x.data();
@@ -265,27 +261,15 @@ void Transformer::RunBlocks(const Exec& e, Workspace& ws, const int32_t* tokens,
     Project(e, b.o, ws.attn.data(), rows, ws.proj.data());
     AddInPlace(x, ws.proj.data(), rows * d);
     NormRows(e, b.norm2, x, rows, ws.normed.data());
-    int32_t* route_out = nullptr;
-    if (routes && b.ffn->route_width() > 0) {
-      LayerRoutes lr;
-      lr.layer = i;
-      lr.width = b.ffn->route_width();
-      lr.choices.resize(rows * lr.width);
-      routes->layers.push_back(std::move(lr));
-      route_out = routes->layers.back().choices.data();
-    }
-    b.ffn->Forward(e, ws.normed.data(), rows, ws.ffn.data(), route_out);
+    b.ffn->Forward(e, ws.normed.data(), rows, ws.ffn.data(),
+                   recorder.RoutesOf(i, b.ffn->route_width(), rows));
     AddInPlace(x, ws.ffn.data(), rows * d);
-    if (trace) {
-      trace->push_back({i, d, d,
-                        std::vector<float>(ws.normed.begin(), ws.normed.begin() + rows * d),
-                        std::vector<float>(x, x + rows * d)});
-    }
+    recorder.Trace(i, ws.normed.data(), d, x, d, rows);
   }
 }
 
-void Transformer::Head(const Exec& e, Workspace& ws, size_t sequences, size_t length,
-                       float* output) const {
+void TransformerNetwork::Head(const Exec& e, TransformerWorkspace& ws, size_t sequences,
+                              size_t length, float* output) const {
   const size_t rows = sequences * length, d = d_;
   NormRows(e, final_norm_, ws.x.data(), rows, ws.normed.data());
   const float* h = ws.normed.data();
@@ -323,22 +307,25 @@ void Transformer::Head(const Exec& e, Workspace& ws, size_t sequences, size_t le
   Project(e, classifier_, ws.out.data(), sequences, output);
 }
 
-void Transformer::Forward(const Exec& e, Workspace& ws, const int32_t* tokens, size_t sequences,
-                          size_t length, float* output, Routes* routes,
-                          std::vector<LayerTrace>* trace) const {
-  if (sequences == 0 || length == 0) {
-    if (routes) routes->layers.clear();
-    if (trace) trace->clear();
+void TransformerNetwork::Forward(const Exec& e, network::Workspace& workspace,
+                                 const network::Input& input, float* output,
+                                 network::Recorder& recorder) const {
+  TransformerWorkspace& ws = static_cast<TransformerWorkspace&>(workspace);
+  if (input.sequences == 0 || input.length == 0) {
+    recorder.Begin();
     return;
   }
-  RunBlocks(e, ws, tokens, sequences, length, 0, nullptr, routes, trace);
-  Head(e, ws, sequences, length, output);
+  RunBlocks(e, ws, input.tokens, input.sequences, input.length, 0, nullptr, recorder);
+  Head(e, ws, input.sequences, input.length, output);
 }
 
-void Transformer::Append(const Exec& e, Workspace& ws, KvCache& cache, const int32_t* tokens,
-                         size_t count, float* logits) const {
+void TransformerNetwork::Append(const Exec& e, network::Workspace& workspace,
+                                network::KvCache& cache, const int32_t* tokens, size_t count,
+                                float* logits) const {
+  TransformerWorkspace& ws = static_cast<TransformerWorkspace&>(workspace);
   if (count == 0) return;
-  RunBlocks(e, ws, tokens, 1, count, cache.length, &cache, nullptr);
+  network::Recorder nothing(nullptr, nullptr);
+  RunBlocks(e, ws, tokens, 1, count, cache.length, &cache, nothing);
   cache.length += count;
   if (logits == nullptr) return;
   // Only the last token's logits are wanted: normalise and project that row alone.

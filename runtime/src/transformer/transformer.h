@@ -2,19 +2,21 @@
 // reference is converter/python/sprig_torch/models.py): token embedding, optional learned
 // positions, pre-norm blocks of attention and a feed-forward layer, the final norm and a head.
 //
-// A Transformer holds pointers into a Model's mapping and its bound feed-forward layers; it is
-// immutable and may be shared by any number of threads. Per-call memory (activations, keys and
-// values) belongs to the caller's Workspace and KvCache.
+// A TransformerNetwork holds pointers into a model's mapping and its bound feed-forward layers;
+// it is bound once when the model opens, immutable, and shared by any number of threads.
+// Per-call memory (activations, keys and values) belongs to the session's TransformerWorkspace
+// and KvCache.
 #pragma once
 
 #include <cstddef>
 #include <cstdint>
+#include <memory>
 #include <vector>
 
 #include "layers/feed_forward.h"
 #include "layers/matrix_view.h"
-#include "sprig/model.h"
-#include "sprig/session.h"
+#include "network/network.h"
+#include "sprig/config.h"
 #include "sprig/status.h"
 
 namespace sprig::transformer {
@@ -37,19 +39,8 @@ struct Block {
   const layers::FeedForward* ffn = nullptr;
 };
 
-// Keys and values of one sequence, per block: [positions, kv_dim] each, grown as tokens come.
-struct KvCache {
-  std::vector<std::vector<float>> keys, values;
-  size_t length = 0;  // positions held
-  void Clear() {
-    for (auto& k : keys) k.clear();
-    for (auto& v : values) v.clear();
-    length = 0;
-  }
-};
-
 // Growable activations for one call; reused between calls.
-struct Workspace {
+struct TransformerWorkspace final : network::Workspace {
   std::vector<float> x, normed, q, k, v, attn, proj, ffn, out;
   std::vector<float> rope_cos, rope_sin;
 };
@@ -63,46 +54,47 @@ void RopeTable(size_t position, size_t head_dim, double base, float* cos, float*
 // x'_i = x_i cos − x_{i+h} sin, x'_{i+h} = x_{i+h} cos + x_i sin.
 void ApplyRope(float* x, size_t head_dim, const float* cos, const float* sin);
 
-class Transformer {
+class TransformerNetwork final : public network::Network, public network::Decoder {
  public:
-  // Binds a transformer model's tensors (no weight is read). NotSupported for storage types
-  // the attention kernels cannot read (i8).
-  static Result<Transformer> Bind(const Model& model);
+  // Binds a transformer model's tensors and feed-forward layers (no weight is read). Every
+  // storage type is read: hot matrices through the kernels, embedding rows converted to
+  // float32. Corruption when a tensor the attention or head reads is not stored whole in the
+  // hot section, or a bias or norm weight is not float32. `file` must outlive the network.
+  static Result<std::unique_ptr<network::Network>> Bind(const format::ModelFile& file);
 
-  const ModelConfig& config() const { return *config_; }
-  size_t head_dim() const { return head_dim_; }
-  size_t kv_dim() const { return kv_dim_; }
-  size_t blocks() const { return blocks_.size(); }
+  std::unique_ptr<network::Workspace> NewWorkspace() const override;
 
-  // Runs `sequences` sequences of `length` tokens each, independently and from position 0
-  // (no cache). `output` receives [sequences, length, V] (lm), [sequences, C] (classifier) or
-  // [sequences, length, D] (none). When `routes` is not null, routes->layers gets one entry per
-  // routed block with [sequences·length, width] choices; `trace`, when not null, one entry per
-  // block (see LayerTrace). Tokens must already be checked.
-  void Forward(const layers::Exec& exec, Workspace& ws, const int32_t* tokens, size_t sequences,
-               size_t length, float* output, Routes* routes,
-               std::vector<LayerTrace>* trace = nullptr) const;
+  // Runs input.sequences sequences of input.length tokens each, independently and from
+  // position 0 (no cache). `output` receives [sequences, length, V] (lm), [sequences, C]
+  // (classifier) or [sequences, length, D] (none). The recorder gets one routes entry per
+  // routed block with [sequences·length, width] choices and one trace entry per block (see
+  // LayerTrace).
+  void Forward(const layers::Exec& exec, network::Workspace& ws, const network::Input& input,
+               float* output, network::Recorder& recorder) const override;
+
+  const network::Decoder* decoder() const override { return this; }
 
   // Appends `count` tokens of one sequence to `cache` at positions cache.length onwards and
   // writes the lm logits of the last of them to `logits` (V floats) when it is not null. The
-  // caller checks that the tokens fit in max_seq and that the model is causal with an lm head.
-  void Append(const layers::Exec& exec, Workspace& ws, KvCache& cache, const int32_t* tokens,
-              size_t count, float* logits) const;
+  // session has checked that the tokens fit in max_seq and that the model is causal with an
+  // lm head.
+  void Append(const layers::Exec& exec, network::Workspace& ws, network::KvCache& cache,
+              const int32_t* tokens, size_t count, float* logits) const override;
 
  private:
-  Transformer() = default;
+  explicit TransformerNetwork(const ModelConfig& config) : config_(&config) {}
   // Embeds and runs every block over rows = sequences · length tokens whose positions start at
   // `start`; leaves the hidden states (before the final norm) in ws.x.
-  void RunBlocks(const layers::Exec& exec, Workspace& ws, const int32_t* tokens, size_t sequences,
-                 size_t length, size_t start, KvCache* cache, Routes* routes,
-                 std::vector<LayerTrace>* trace = nullptr) const;
+  void RunBlocks(const layers::Exec& exec, TransformerWorkspace& ws, const int32_t* tokens,
+                 size_t sequences, size_t length, size_t start, network::KvCache* cache,
+                 network::Recorder& recorder) const;
   void Embed(const layers::Exec& exec, const int32_t* tokens, size_t rows, size_t length,
              size_t start, float* x) const;
-  void Attend(const layers::Exec& exec, Workspace& ws, size_t sequences, size_t length,
+  void Attend(const layers::Exec& exec, TransformerWorkspace& ws, size_t sequences, size_t length,
               size_t start, const float* keys, const float* values, size_t sequence_stride) const;
   void NormRows(const layers::Exec& exec, const Norm& n, const float* x, size_t rows,
                 float* y) const;
-  void Head(const layers::Exec& exec, Workspace& ws, size_t sequences, size_t length,
+  void Head(const layers::Exec& exec, TransformerWorkspace& ws, size_t sequences, size_t length,
             float* output) const;
 
   const ModelConfig* config_ = nullptr;
