@@ -105,7 +105,7 @@ SPRIG_API size_t sprig_model_tokens_output_size(const sprig_model_t* model, size
  * 2 or 3. SPRIG_INVALID_ARGUMENT, and nothing written, when the input does not fit: rows for a
  * transformer or tokens for a stack, another rank, rows of another width, T > max_seq, or T = 0
  * for a classifier. */
-int sprig_model_output_shape(const sprig_model_t* model, int input_kind,
+SPRIG_API int sprig_model_output_shape(const sprig_model_t* model, int input_kind,
                              const uint64_t* input_shape, size_t input_rank, uint64_t* output_shape,
                              size_t* output_rank, char** errptr);
 
@@ -114,7 +114,7 @@ int sprig_model_output_shape(const sprig_model_t* model, int input_kind,
  * caller narrows them to int32: a transformer model, length <= max_seq, length >= 1 for a
  * classifier, and every token in [0, vocab_size) (the message names the first that is not as
  * [sequence, position]). SPRIG_OK or SPRIG_INVALID_ARGUMENT. */
-int sprig_model_check_tokens(const sprig_model_t* model, const int64_t* tokens, size_t batch,
+SPRIG_API int sprig_model_check_tokens(const sprig_model_t* model, const int64_t* tokens, size_t batch,
                              size_t length, char** errptr);
 
 /* Reads every weight and compares it with its stored checksum: SPRIG_OK, or SPRIG_CHECK_FAILED
