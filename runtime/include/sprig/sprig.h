@@ -76,18 +76,23 @@ SPRIG_API int sprig_model_open(const char* path, sprig_model_t** model, char** e
 SPRIG_API void sprig_model_close(sprig_model_t* model);
 
 /* What the model's config says. Each returns 0 for a NULL model. */
-SPRIG_API int sprig_model_family(const sprig_model_t* model);         /* SPRIG_FAMILY_STACK or _TRANSFORMER */
-SPRIG_API size_t sprig_model_layer_count(const sprig_model_t* model); /* feed-forward layers/blocks */
-SPRIG_API size_t sprig_model_input_dim(const sprig_model_t* model);   /* stack: floats per row */
-SPRIG_API size_t sprig_model_vocab_size(const sprig_model_t* model);  /* transformer: tokens 0..n-1 */
-SPRIG_API size_t sprig_model_max_seq(const sprig_model_t* model);     /* transformer: longest sequence */
+SPRIG_API int sprig_model_family(
+    const sprig_model_t* model); /* SPRIG_FAMILY_STACK or _TRANSFORMER */
+SPRIG_API size_t
+sprig_model_layer_count(const sprig_model_t* model);                /* feed-forward layers/blocks */
+SPRIG_API size_t sprig_model_input_dim(const sprig_model_t* model); /* stack: floats per row */
+SPRIG_API size_t
+sprig_model_vocab_size(const sprig_model_t* model); /* transformer: tokens 0..n-1 */
+SPRIG_API size_t
+sprig_model_max_seq(const sprig_model_t* model); /* transformer: longest sequence */
 /* Floats per output row (stack), or per token or sequence (transformer: vocab_size logits for
  * an lm head, one score per class for a classifier, d_model for no head). */
 SPRIG_API size_t sprig_model_output_dim(const sprig_model_t* model);
 /* Floats sprig_session_forward_tokens writes for `batch` sequences of `length` tokens:
  * batch × length × output_dim, or batch × output_dim for a classifier (one row per sequence).
  * 0 for a stack model or a NULL model. */
-SPRIG_API size_t sprig_model_tokens_output_size(const sprig_model_t* model, size_t batch, size_t length);
+SPRIG_API size_t sprig_model_tokens_output_size(const sprig_model_t* model, size_t batch,
+                                                size_t length);
 
 /* ---- input rules ----
  *
@@ -106,16 +111,16 @@ SPRIG_API size_t sprig_model_tokens_output_size(const sprig_model_t* model, size
  * transformer or tokens for a stack, another rank, rows of another width, T > max_seq, or T = 0
  * for a classifier. */
 SPRIG_API int sprig_model_output_shape(const sprig_model_t* model, int input_kind,
-                             const uint64_t* input_shape, size_t input_rank, uint64_t* output_shape,
-                             size_t* output_rank, char** errptr);
+                                       const uint64_t* input_shape, size_t input_rank,
+                                       uint64_t* output_shape, size_t* output_rank, char** errptr);
 
 /* The rules sprig_session_forward_tokens applies to `batch` sequences of `length` tokens
  * (row-major), for tokens held as int64 (as NumPy and many tokenizers hold them) before the
  * caller narrows them to int32: a transformer model, length <= max_seq, length >= 1 for a
  * classifier, and every token in [0, vocab_size) (the message names the first that is not as
  * [sequence, position]). SPRIG_OK or SPRIG_INVALID_ARGUMENT. */
-SPRIG_API int sprig_model_check_tokens(const sprig_model_t* model, const int64_t* tokens, size_t batch,
-                             size_t length, char** errptr);
+SPRIG_API int sprig_model_check_tokens(const sprig_model_t* model, const int64_t* tokens,
+                                       size_t batch, size_t length, char** errptr);
 
 /* Reads every weight and compares it with its stored checksum: SPRIG_OK, or SPRIG_CHECK_FAILED
  * with a message naming the damaged tensors. May take a while on large files. */
@@ -129,8 +134,8 @@ typedef struct sprig_session_t sprig_session_t;
  * included (0 means one per CPU; at most 256). The kernel instruction set is the fastest the
  * CPU supports, or the one the SPRIG_KERNEL_PATH environment variable names. On failure
  * *session is set to NULL. */
-SPRIG_API int sprig_session_create(const sprig_model_t* model, size_t threads, sprig_session_t** session,
-                         char** errptr);
+SPRIG_API int sprig_session_create(const sprig_model_t* model, size_t threads,
+                                   sprig_session_t** session, char** errptr);
 
 /* Releases the session (and its reference to the model). NULL is allowed. */
 SPRIG_API void sprig_session_destroy(sprig_session_t* session);
@@ -144,27 +149,28 @@ SPRIG_API const char* sprig_session_kernel_path(const sprig_session_t* session);
  * rows × output_dim. A row's result does not depend on the thread count or on how rows are
  * split into calls. SPRIG_INVALID_ARGUMENT for a transformer model or a non-finite input (the
  * message names its row and column). */
-SPRIG_API int sprig_session_forward(sprig_session_t* session, const float* input, size_t rows, float* output,
-                          char** errptr);
+SPRIG_API int sprig_session_forward(sprig_session_t* session, const float* input, size_t rows,
+                                    float* output, char** errptr);
 
 /* Transformer models: runs `batch` sequences of `length` tokens (row-major [batch, length]),
  * each independently from position 0; the KV cache is neither used nor changed. `output`
  * receives sprig_model_tokens_output_size(model, batch, length) floats. SPRIG_INVALID_ARGUMENT
  * for a stack model, length > max_seq, length 0 for a classifier or a token outside
  * [0, vocab_size). */
-SPRIG_API int sprig_session_forward_tokens(sprig_session_t* session, const int32_t* tokens, size_t batch,
-                                 size_t length, float* output, char** errptr);
+SPRIG_API int sprig_session_forward_tokens(sprig_session_t* session, const int32_t* tokens,
+                                           size_t batch, size_t length, float* output,
+                                           char** errptr);
 
 /* Causal transformer models with an lm head: runs `token` at the KV cache's next position
  * (sprig_session_position), keeps its keys and values, and writes the vocab_size logits of the
  * next token to `logits` (which may be NULL). SPRIG_INVALID_ARGUMENT when the cache is full
  * (max_seq tokens), the token is out of range or the model is not a causal lm. */
 SPRIG_API int sprig_session_append_token(sprig_session_t* session, int32_t token, float* logits,
-                               char** errptr);
+                                         char** errptr);
 /* As sprig_session_append_token for `count` tokens in one batched pass; `logits` (may be NULL)
  * receives the logits after the last of them. */
-SPRIG_API int sprig_session_append_tokens(sprig_session_t* session, const int32_t* tokens, size_t count,
-                                float* logits, char** errptr);
+SPRIG_API int sprig_session_append_tokens(sprig_session_t* session, const int32_t* tokens,
+                                          size_t count, float* logits, char** errptr);
 
 /* Empties the KV cache: the next token goes to position 0. NULL is allowed. */
 SPRIG_API void sprig_session_reset(sprig_session_t* session);
@@ -194,9 +200,9 @@ typedef int (*sprig_token_callback)(int32_t token, void* user);
  * token chosen is still passed; sprig_session_position then equals max_seq). Returns SPRIG_OK
  * in all these cases; SPRIG_INVALID_ARGUMENT for an empty prompt, bad options, a NULL
  * callback, or a model that cannot generate. */
-SPRIG_API int sprig_session_generate(sprig_session_t* session, const int32_t* prompt, size_t prompt_len,
-                           const sprig_generate_options_t* options, sprig_token_callback callback,
-                           void* user, char** errptr);
+SPRIG_API int sprig_session_generate(sprig_session_t* session, const int32_t* prompt,
+                                     size_t prompt_len, const sprig_generate_options_t* options,
+                                     sprig_token_callback callback, void* user, char** errptr);
 
 /* ---- statistics ---- */
 
@@ -223,8 +229,8 @@ SPRIG_API void sprig_session_reset_stats(sprig_session_t* session);
  * with records: the model layer it is, how many distinct records were read, of how many, and
  * the bytes of one record. SPRIG_INVALID_ARGUMENT when index >= routed_layers. */
 SPRIG_API int sprig_session_touched(const sprig_session_t* session, size_t index, size_t* layer,
-                          uint64_t* touched, uint64_t* records, uint64_t* record_size,
-                          char** errptr);
+                                    uint64_t* touched, uint64_t* records, uint64_t* record_size,
+                                    char** errptr);
 
 /* How much of the model's file is in the page cache now (mincore(2)): the hot section and the
  * record sections, each as bytes resident of bytes in all. */

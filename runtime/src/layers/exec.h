@@ -21,9 +21,9 @@ inline constexpr size_t kRowChunk = 16;
 // calls another while holding a buffer uses buffers the callee does not (RunGroups calls
 // MlpForward).
 struct Scratch {
-  std::vector<float> hidden;  // MlpForward: act(fc1 x + b1), [rows, width]
-  std::vector<float> gate;    // MlpForward, gated: gate x + b, [rows, width]
-  std::vector<float> group_input;  // RunGroups: one group's input rows, gathered, [rows, in]
+  std::vector<float> hidden;         // MlpForward: act(fc1 x + b1), [rows, width]
+  std::vector<float> gate;           // MlpForward, gated: gate x + b, [rows, width]
+  std::vector<float> group_input;    // RunGroups: one group's input rows, gathered, [rows, in]
   std::vector<float> group_output;   // RunGroups: one group's output rows, [rows, out]
   std::vector<float> expert_output;  // ExpertsLayer, single row: one expert's output, [out]
   // The transformer's attention: one (sequence, head)'s scores over the positions it sees.
