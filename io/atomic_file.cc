@@ -1,4 +1,5 @@
 #include "io/atomic_file.h"
+#include "base/status_macros.h"
 
 #include <fcntl.h>
 #include <sys/stat.h>

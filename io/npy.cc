@@ -6,6 +6,7 @@
 #include <string_view>
 #include <utility>
 
+#include "base/status_macros.h"
 #include "io/bytes.h"
 
 namespace sprig::io {

@@ -9,6 +9,7 @@
 #include <unordered_set>
 #include <utility>
 
+#include "base/status_macros.h"
 #include "io/atomic_file.h"
 #include "io/bytes.h"
 #include "io/npy.h"

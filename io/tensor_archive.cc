@@ -5,6 +5,7 @@
 #include <optional>
 #include <utility>
 
+#include "base/status_macros.h"
 #include "io/atomic_file.h"
 #include "io/bytes.h"
 #include "io/mapped_file.h"

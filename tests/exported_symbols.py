@@ -1,14 +1,14 @@
 #!/usr/bin/env python3
 """Checks that a shared libsprig exports exactly the public C and C++ API.
 
-Usage: exported_symbols.py LIBRARY INCLUDE_DIR
+Usage: exported_symbols.py LIBRARY INCLUDE_DIR [NM]
 
 The public API is read from the installed headers in INCLUDE_DIR (runtime/include/sprig):
 - C: every function declared in sprig.h (a name `sprig_...` followed by `(`);
 - C++: every class, struct or free function declared with SPRIG_API, in namespace sprig.
 
 The library's dynamic symbol table is read with binutils' `nm -D --defined-only` (demangled
-with `-C`). The check fails, listing the offenders, when the library exports anything outside
+with `-C`); NM names the toolchain's own nm in a cross build (default: nm). The check fails, listing the offenders, when the library exports anything outside
 that API (an internal namespace, a standard-library template instantiated by our code, a helper
 without SPRIG_API) or when a declared C function is not exported.
 """
@@ -48,8 +48,8 @@ def public_api(include_dir):
     return c_functions, cpp_names
 
 
-def exported_symbols(library):
-    out = subprocess.run(["nm", "-D", "--defined-only", "-C", library], check=True,
+def exported_symbols(library, nm):
+    out = subprocess.run([nm, "-D", "--defined-only", "-C", library], check=True,
                          capture_output=True, text=True).stdout
     symbols = []
     for line in out.splitlines():
@@ -71,16 +71,17 @@ def is_public_cpp(symbol, cpp_names):
 
 
 def main(argv):
-    if len(argv) != 3:
+    if len(argv) not in (3, 4):
         print(__doc__.strip(), file=sys.stderr)
         return 2
     library, include_dir = argv[1], argv[2]
+    nm = argv[3] if len(argv) == 4 else "nm"
     c_functions, cpp_names = public_api(include_dir)
     if not c_functions or not cpp_names:
         print(f"no public API found in {include_dir}", file=sys.stderr)
         return 2
     unexpected, exported_c = [], set()
-    for symbol in exported_symbols(library):
+    for symbol in exported_symbols(library, nm):
         # Version nodes of a version script show as absolute symbols named after the node.
         if symbol in TOOLCHAIN_SYMBOLS or re.fullmatch(r"SPRIG_[0-9_.A-Z]+", symbol):
             continue

@@ -25,11 +25,12 @@
 #include <string>
 #include <vector>
 
+#include "base/status_macros.h"
 #include "converter/config/config_json.h"
 #include "converter/config/tensor_match.h"
-#include "io/ndarray.h"
 #include "converter/pack/packer.h"
 #include "converter/synth/synth.h"
+#include "io/ndarray.h"
 #include "kernels/kernels.h"
 #include "model/tensor_spec.h"
 #include "sprig/model.h"

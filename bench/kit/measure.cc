@@ -5,6 +5,7 @@
 #include <cstdio>
 #include <ctime>
 
+#include "base/status_macros.h"
 #include "bench/kit/models.h"
 #include "numeric/random.h"
 

@@ -9,6 +9,7 @@
 #include <optional>
 #include <vector>
 
+#include "base/status_macros.h"
 #include "converter/config/tensor_match.h"
 #include "converter/pack/packer.h"
 #include "converter/synth/synth.h"

@@ -5,6 +5,7 @@
 #include <string>
 #include <vector>
 
+#include "base/status_macros.h"
 #include "converter/config/config_limits.h"
 #include "converter/config/field_reader.h"
 #include "converter/config/json_util.h"

@@ -11,6 +11,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "base/status_macros.h"
 #include "sprig/status.h"
 
 namespace sprig::convert::internal {

@@ -2,6 +2,7 @@
 #include <map>
 #include <string>
 
+#include "base/status_macros.h"
 #include "converter/config/config_json.h"
 #include "converter/config/config_limits.h"
 #include "converter/config/json_util.h"

@@ -10,12 +10,13 @@
 #include <mutex>
 #include <thread>
 
-#include "io/atomic_file.h"
-#include "io/tensor_archive.h"
+#include "base/status_macros.h"
 #include "converter/pack/convert.h"
 #include "converter/pack/layout.h"
 #include "format/header_config.h"
 #include "format/preamble.h"
+#include "io/atomic_file.h"
+#include "io/tensor_archive.h"
 #include "sprig_schema/model_generated.h"
 
 namespace sprig::convert {

@@ -1,4 +1,4 @@
-// What `sprig bench` writes: the JSON document (its schema is in the README) and a
+// What `sprig bench` writes: the JSON document (its keys are in docs/benchmarking.md) and a
 // self-contained HTML report drawn from that document (inline SVG; no scripts, fonts or
 // network).
 #pragma once

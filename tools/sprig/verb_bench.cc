@@ -14,6 +14,7 @@
 #include <memory>
 #include <string>
 
+#include "base/status_macros.h"
 #include "bench/kit/measure.h"
 #include "bench/kit/models.h"
 #include "cli.h"

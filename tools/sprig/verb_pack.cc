@@ -5,6 +5,7 @@
 #include <cstdio>
 #include <memory>
 
+#include "base/status_macros.h"
 #include "cli.h"
 #include "converter/pack/packer.h"
 

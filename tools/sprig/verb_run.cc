@@ -12,6 +12,7 @@
 #include <memory>
 #include <nlohmann/json.hpp>
 
+#include "base/status_macros.h"
 #include "cli.h"
 #include "io/tensor_archive.h"
 #include "sprig/memory.h"

@@ -11,6 +11,7 @@
 #include <nlohmann/json.hpp>
 
 #include "api/model_internals.h"
+#include "base/status_macros.h"
 #include "cli.h"
 #include "io/tensor_archive.h"
 #include "numeric/half.h"

@@ -1,7 +1,7 @@
 // The configuration of a sprig model: the families, layer kinds and fields that a config.json
 // describes and a .sprig header stores. These are plain values (copyable, thread-safe to read).
-// The meaning of each field is the model semantics documented in the project's README and
-// schema/README.md.
+// The meaning of each field is the model semantics (docs/model-semantics.md), the input
+// contract (docs/input-contract.md) and the file format (schema/README.md).
 #pragma once
 
 #include <cstdint>

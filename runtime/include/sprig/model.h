@@ -87,7 +87,7 @@ struct LayerDescription {
   uint64_t dense_flops_per_token = 0;  // what one token costs that dense layer
 };
 
-// One stored tensor (names and shapes: the input contract in the project's README).
+// One stored tensor (names and shapes: the input contract, docs/input-contract.md).
 struct TensorDescription {
   std::string name;
   std::vector<uint64_t> shape;

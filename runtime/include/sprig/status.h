@@ -76,19 +76,3 @@ class Result {
 };
 
 }  // namespace sprig
-
-// Internal helpers for propagating failures; not part of the stable API.
-#define SPRIG_RETURN_IF_ERROR(expr)                \
-  do {                                             \
-    ::sprig::Status sprig_status_ = (expr);        \
-    if (!sprig_status_.ok()) return sprig_status_; \
-  } while (0)
-
-#define SPRIG_CONCAT_INNER_(a, b) a##b
-#define SPRIG_CONCAT_(a, b) SPRIG_CONCAT_INNER_(a, b)
-#define SPRIG_ASSIGN_OR_RETURN(lhs, expr) \
-  SPRIG_ASSIGN_OR_RETURN_IMPL_(SPRIG_CONCAT_(sprig_result_, __LINE__), lhs, expr)
-#define SPRIG_ASSIGN_OR_RETURN_IMPL_(tmp, lhs, expr) \
-  auto tmp = (expr);                                 \
-  if (!tmp.ok()) return tmp.status();                \
-  lhs = std::move(tmp).value()

@@ -1,4 +1,5 @@
 #include "api/input_rules.h"
+#include "base/status_macros.h"
 
 #include <cmath>
 #include <cstdio>

@@ -6,6 +6,7 @@
 
 #include "api/input_rules.h"
 #include "api/model_impl.h"
+#include "base/status_macros.h"
 #include "kernels/kernels.h"
 #include "model/flops.h"
 #include "model/tensor_spec.h"

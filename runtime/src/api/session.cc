@@ -7,6 +7,7 @@
 
 #include "api/input_rules.h"
 #include "api/model_impl.h"
+#include "base/status_macros.h"
 #include "kernels/kernels.h"
 #include "layers/feed_forward.h"
 #include "layers/thread_pool.h"

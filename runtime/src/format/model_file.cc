@@ -11,6 +11,7 @@
 #include <map>
 #include <set>
 
+#include "base/status_macros.h"
 #include "format/header_config.h"
 #include "format/preamble.h"
 #include "model/config_check.h"

@@ -1,6 +1,7 @@
 #include <memory>
 #include <string>
 
+#include "base/status_macros.h"
 #include "format/model_file.h"
 #include "layers/binder.h"
 #include "layers/dense.h"

@@ -1,5 +1,5 @@
 // Top-k experts: a softmax router, the k most probable experts, their outputs mixed.
-// Semantics: README.md ("Model semantics"); the PyTorch reference in
+// Semantics: docs/model-semantics.md; the PyTorch reference in
 // converter/python/sprig_torch/layers.py is the executable form the tests compare against.
 #pragma once
 

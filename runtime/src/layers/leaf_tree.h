@@ -1,5 +1,5 @@
 // A tree in leaf mode: d node decisions, then one leaf MLP.
-// Semantics: README.md ("Model semantics"); the PyTorch reference in
+// Semantics: docs/model-semantics.md; the PyTorch reference in
 // converter/python/sprig_torch/layers.py is the executable form the tests compare against.
 #pragma once
 

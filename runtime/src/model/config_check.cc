@@ -1,5 +1,6 @@
 #include "model/config_check.h"
 
+#include "base/status_macros.h"
 #include "model/tensor_spec.h"
 
 namespace sprig {

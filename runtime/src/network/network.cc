@@ -1,5 +1,6 @@
 #include "network/network.h"
 
+#include "base/status_macros.h"
 #include "model/tensor_spec.h"
 
 namespace sprig::network {

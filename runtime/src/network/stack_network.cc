@@ -1,4 +1,5 @@
 #include "network/stack_network.h"
+#include "base/status_macros.h"
 
 namespace sprig::network {
 namespace {

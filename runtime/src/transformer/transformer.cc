@@ -4,6 +4,7 @@
 #include <algorithm>
 #include <cstring>
 
+#include "base/status_macros.h"
 #include "layers/binder.h"
 
 namespace sprig::transformer {

@@ -1,4 +1,4 @@
-// The transformer family (model semantics: README.md "Model semantics"; the executable
+// The transformer family (model semantics: docs/model-semantics.md; the executable
 // reference is converter/python/sprig_torch/models.py): token embedding, optional learned
 // positions, pre-norm blocks of attention and a feed-forward layer, the final norm and a head.
 //
