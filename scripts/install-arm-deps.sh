@@ -13,7 +13,7 @@ HOST_PACKAGES=(g++-aarch64-linux-gnu qemu-user flatbuffers-compiler)
 # Header-only libraries (nlohmann-json, CLI11) are architecture-independent packages that the
 # native install already provides. xsimd is header-only too, but its CMake package files live
 # in the architecture's library folder, so the arm64 copy is needed for find_package.
-ARM64_PACKAGES=(zlib1g-dev libflatbuffers-dev libspdlog-dev libfmt-dev libgtest-dev
+ARM64_PACKAGES=(zlib1g-dev libflatbuffers-dev libgtest-dev
   libgmock-dev libxsimd-dev)
 
 SUDO=""

@@ -6,7 +6,7 @@ set -euo pipefail
 PACKAGES=(
   build-essential cmake pkg-config git
   libxsimd-dev libflatbuffers-dev flatbuffers-compiler
-  libspdlog-dev libfmt-dev nlohmann-json3-dev libcli11-dev zlib1g-dev
+  nlohmann-json3-dev libcli11-dev zlib1g-dev
   libgtest-dev libgmock-dev googletest libbenchmark-dev libopenblas-dev
   python3-numpy python3-torch python3-sklearn python3-flatbuffers
   clang clang-format libclang-rt-14-dev

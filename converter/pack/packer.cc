@@ -1,6 +1,5 @@
 #include "converter/pack/packer.h"
 
-#include <spdlog/spdlog.h>
 #include <sys/stat.h>
 
 #include <chrono>
@@ -266,6 +265,25 @@ bool SameFile(const std::string& a, const std::string& b) {
   return sa.st_dev == sb.st_dev && sa.st_ino == sb.st_ino;
 }
 
+// One line per layout decision, for options.describe_layout.
+void DescribeLayout(const std::string& out_path, size_t header_size, uint64_t data_start,
+                    const LayoutPlan& plan, const PackOptions& options) {
+  options.describe_layout("pack " + out_path + ": header " + std::to_string(header_size) +
+                          " bytes, data from offset " + std::to_string(data_start) + ", file " +
+                          std::to_string(plan.file_size) + " bytes");
+  for (const PlannedSection& sec : plan.sections) {
+    options.describe_layout("  section " + sec.name + ": offset " + std::to_string(sec.offset) +
+                            ", size " + std::to_string(sec.size) + ", padding " +
+                            std::to_string(sec.padding));
+  }
+  for (const PlannedRecordSet& rs : plan.record_sets) {
+    options.describe_layout("  layer " + std::to_string(rs.layer) + ": " +
+                            std::to_string(rs.offsets.size()) + " records of " +
+                            std::to_string(rs.record_size) + " bytes (" +
+                            (rs.map.subtree ? "subtree" : "contiguous") + " map)");
+  }
+}
+
 }  // namespace
 
 Result<DType> ParseStorageType(const std::string& text, const std::string& option) {
@@ -302,17 +320,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
   const size_t header_size = BuildHeader(config, plan, crc, summary.errors).size();
   const uint64_t data_start = format::AlignUp(format::kPreambleSize + header_size, kPageSize);
   plan = PlanLayout(config, specs, options.storage, data_start);
-  spdlog::debug("pack {}: header {} bytes, data from offset {}, file {} bytes", out_path,
-                header_size, data_start, plan.file_size);
-  for (const PlannedSection& sec : plan.sections) {
-    spdlog::debug("  section {}: offset {}, size {}, padding {}", sec.name, sec.offset, sec.size,
-                  sec.padding);
-  }
-  for (const PlannedRecordSet& rs : plan.record_sets) {
-    spdlog::debug("  layer {}: {} records of {} bytes ({} map)", rs.layer, rs.offsets.size(),
-                  rs.record_size, rs.map.subtree ? "subtree" : "contiguous");
-  }
-
+  if (options.describe_layout) DescribeLayout(out_path, header_size, data_start, plan, options);
   for (const PlannedTensor& t : plan.tensors) {
     summary.tensor_bytes += t.rows * (t.row_bytes + t.scale_row_bytes);
   }

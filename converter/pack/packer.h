@@ -21,6 +21,9 @@ struct PackOptions {
   RenameMap rename;        // their tensor name → ours
   // Called now and then with bytes of tensor data written so far and the total.
   std::function<void(uint64_t done, uint64_t total)> progress;
+  // Called with one line per layout decision (header size, sections, record sets) when set;
+  // `sprig pack` prints them when SPRIG_LOG=debug.
+  std::function<void(const std::string& line)> describe_layout;
 };
 
 // A tensor's storage type and how far its stored values are from the source.

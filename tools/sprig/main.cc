@@ -1,6 +1,4 @@
 // sprig: the command-line program. Each verb is a thin layer over the libraries.
-#include <spdlog/spdlog.h>
-
 #include <cstdio>
 #include <cstdlib>
 #include <vector>
@@ -22,9 +20,6 @@ void PrintLibraryMessage(sprig::LogLevel level, const char* message, void* /*use
 
 int main(int argc, char** argv) {
   sprig::SetLogCallback(PrintLibraryMessage, nullptr);
-  // Diagnostics go to stderr at the level SPRIG_LOG names (e.g. SPRIG_LOG=debug); default off.
-  const char* log_level = std::getenv("SPRIG_LOG");
-  spdlog::set_level(log_level ? spdlog::level::from_str(log_level) : spdlog::level::warn);
   CLI::App app{
       "sprig runs tree-routed and expert-routed feed-forward models on laptop CPUs.\n"
       "Run 'sprig VERB --help' for a verb's options."};

@@ -3,6 +3,7 @@
 #include <unistd.h>
 
 #include <cstdio>
+#include <cstdlib>
 #include <memory>
 
 #include "base/status_macros.h"
@@ -64,6 +65,13 @@ int RunPack(const PackArgs& a) {
   }
   Progress progress("packing " + a.out);
   options.progress = [&](uint64_t done, uint64_t total) { progress.Update(done, total); };
+  // SPRIG_LOG=debug shows the layout decisions on stderr.
+  const char* log_level = std::getenv("SPRIG_LOG");
+  if (log_level != nullptr && std::string(log_level) == "debug") {
+    options.describe_layout = [](const std::string& line) {
+      std::fprintf(stderr, "sprig: debug: %s\n", line.c_str());
+    };
+  }
   auto summary = convert::PackFiles(a.config, a.weights, a.out, options);
   progress.Finish();
   if (!summary.ok()) return Fail("pack", summary.status());
