@@ -9,7 +9,7 @@ PACKAGES=(
   nlohmann-json3-dev libcli11-dev zlib1g-dev
   libgtest-dev libgmock-dev googletest libbenchmark-dev libopenblas-dev
   python3-numpy python3-torch python3-sklearn python3-flatbuffers
-  clang clang-format libclang-rt-14-dev
+  clang clang-format libclang-rt-14-dev ccache
   chromium
 )
 

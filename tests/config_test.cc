@@ -10,12 +10,12 @@
 #include <string>
 #include <vector>
 
-#include <unistd.h>
 #include <nlohmann/json.hpp>
 
 #include "converter/config/config_equal.h"
 #include "converter/config/config_json.h"
 #include "converter/config/config_limits.h"
+#include "support/test_util.h"
 
 namespace sprig::convert {
 namespace {
@@ -68,7 +68,7 @@ class TempDir {
  public:
   TempDir() {
     path_ = std::filesystem::temp_directory_path() /
-            ("sprig_config_test_" + std::to_string(::getpid()) + "_" +
+            ("sprig_config_test_" + std::to_string(sprig::testing::ProcessId()) + "_" +
              ::testing::UnitTest::GetInstance()->current_test_info()->name());
     std::filesystem::create_directories(path_);
   }

@@ -8,8 +8,10 @@ The public API is read from the installed headers in INCLUDE_DIR (runtime/includ
 - C++: every class, struct or free function declared with SPRIG_API, in namespace sprig.
 
 The library's dynamic symbol table is read with binutils' `nm -D --defined-only` (demangled
-with `-C`); NM names the toolchain's own nm in a cross build (default: nm). The check fails, listing the offenders, when the library exports anything outside
-that API (an internal namespace, a standard-library template instantiated by our code, a helper
+with `-C`); NM names the toolchain's own nm in a cross build (default: nm). A Windows DLL has
+no dynamic symbol table: its export table is read with the same toolchain's `objdump -p` and
+demangled with its `c++filt`. The check fails, listing the offenders, when the library exports
+anything outside that API (an internal namespace, a standard-library template instantiated by our code, a helper
 without SPRIG_API) or when a declared C function is not exported.
 """
 
@@ -48,7 +50,29 @@ def public_api(include_dir):
     return c_functions, cpp_names
 
 
+def sibling_tool(nm, name):
+    """The binutils program `name` of the toolchain whose nm is `nm` (x86_64-w64-mingw32-nm ->
+    x86_64-w64-mingw32-objdump)."""
+    return re.sub(r"nm(\.exe)?$", name, nm)
+
+
+def dll_exports(library, nm):
+    """The names in a PE file's export table, demangled."""
+    out = subprocess.run([sibling_tool(nm, "objdump"), "-p", library], check=True,
+                         capture_output=True, text=True).stdout
+    # objdump prints the export names as "[ ordinal] name" lines after this table heading.
+    table = out.split("[Ordinal/Name Pointer] Table", 1)
+    if len(table) != 2:
+        return []
+    names = re.findall(r"^\s*\[\s*\d+\]\s+(\S+)\s*$", table[1], flags=re.M)
+    demangled = subprocess.run([sibling_tool(nm, "c++filt")], input="\n".join(names), check=True,
+                               capture_output=True, text=True).stdout
+    return demangled.splitlines()
+
+
 def exported_symbols(library, nm):
+    if library.lower().endswith(".dll"):
+        return dll_exports(library, nm)
     out = subprocess.run([nm, "-D", "--defined-only", "-C", library], check=True,
                          capture_output=True, text=True).stdout
     symbols = []

@@ -5,7 +5,6 @@
 // tests/python/half_reference.py converts them with numpy.float16 or torch.bfloat16 and writes
 // raw bits back.
 #include <gtest/gtest.h>
-#include <unistd.h>
 
 #include <bit>
 #include <cmath>

@@ -9,7 +9,6 @@
 // a random sum of n <= 4099 terms moves it by about Σ|t_i|/n >= 2.4e-4·Σ|t_i|, so such a bug
 // cannot pass. Elementwise kernels are held to a few float ulps of the double value.
 #include <gtest/gtest.h>
-#include <unistd.h>
 
 #include <algorithm>
 #include <cmath>
@@ -25,6 +24,7 @@
 
 #include "kernels/kernels.h"
 #include "numeric/half.h"
+#include "support/test_util.h"
 
 namespace sprig::kernels {
 namespace {
@@ -215,13 +215,13 @@ class ScopedKernelPathEnv {
     const char* old = std::getenv("SPRIG_KERNEL_PATH");
     if (old != nullptr) old_ = old;
     had_old_ = old != nullptr;
-    setenv("SPRIG_KERNEL_PATH", value, 1);
+    sprig::testing::SetEnv("SPRIG_KERNEL_PATH", value);
   }
   ~ScopedKernelPathEnv() {
     if (had_old_) {
-      setenv("SPRIG_KERNEL_PATH", old_.c_str(), 1);
+      sprig::testing::SetEnv("SPRIG_KERNEL_PATH", old_);
     } else {
-      unsetenv("SPRIG_KERNEL_PATH");
+      sprig::testing::UnsetEnv("SPRIG_KERNEL_PATH");
     }
   }
 

@@ -22,10 +22,10 @@ constexpr const char* kUnknownPath = "fastest";
 // Sets SPRIG_KERNEL_PATH for one scope and removes the callback and the variable afterwards.
 class LogTest : public ::testing::Test {
  protected:
-  void SetUp() override { setenv("SPRIG_KERNEL_PATH", kUnknownPath, 1); }
+  void SetUp() override { testing::SetEnv("SPRIG_KERNEL_PATH", kUnknownPath); }
   void TearDown() override {
     SetLogCallback(nullptr, nullptr);
-    unsetenv("SPRIG_KERNEL_PATH");
+    testing::UnsetEnv("SPRIG_KERNEL_PATH");
   }
 
   // What the warning must say: the refusal, then the path used instead.

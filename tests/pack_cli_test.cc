@@ -1,9 +1,11 @@
 // sprig pack from the command line: refusals that protect the user's files.
 #include <gtest/gtest.h>
+#ifndef _WIN32
 #include <signal.h>
 #include <sys/stat.h>
 #include <sys/wait.h>
 #include <unistd.h>
+#endif
 
 #include <chrono>
 #include <filesystem>
@@ -152,6 +154,8 @@ TEST_F(PackCli, SynthIsDeterministicAndRoutesSpread) {
   EXPECT_LE(layer["dead"].get<int>(), 1) << r.output;
 }
 
+#ifndef _WIN32
+// Windows' counterpart, a pack stopped by TerminateProcess, is in error_paths_test.cc.
 // The file descriptor through which process `pid` writes a file in `folder`, or "" if none is
 // open yet: an O_TMPFILE file shows as "FOLDER/#INODE (deleted)", a named temporary by its name.
 std::string WritingFd(pid_t pid, const std::string& folder) {
@@ -224,6 +228,7 @@ TEST_F(PackCli, KilledMidwayLeavesNoDestination) {
     EXPECT_EQ(files, 2u);
   }
 }
+#endif
 
 }  // namespace
 }  // namespace sprig

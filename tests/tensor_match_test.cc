@@ -11,11 +11,10 @@
 #include <string>
 #include <vector>
 
-#include <unistd.h>
-
 #include "converter/config/config_json.h"
 #include "converter/config/finite_check.h"
 #include "converter/config/tensor_match.h"
+#include "support/test_util.h"
 
 namespace sprig::convert {
 namespace {
@@ -336,7 +335,7 @@ class TempDir {
  public:
   TempDir() {
     path_ = std::filesystem::temp_directory_path() /
-            ("sprig_match_test_" + std::to_string(::getpid()) + "_" +
+            ("sprig_match_test_" + std::to_string(sprig::testing::ProcessId()) + "_" +
              ::testing::UnitTest::GetInstance()->current_test_info()->name());
     std::filesystem::create_directories(path_);
   }

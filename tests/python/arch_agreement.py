@@ -1,17 +1,21 @@
-"""The same .sprig files run by two builds of sprig (x86-64, and aarch64 under user-mode QEMU),
-compared with each other and with the float64 PyTorch reference.
+"""The same .sprig files run by two builds of sprig (x86-64 Linux, and another: aarch64 Linux
+under user-mode QEMU, or x86-64 Windows under Wine), compared with each other and with the
+float64 PyTorch reference.
 
 Usage (PYTHONPATH=converter/python, Debian's /usr/bin/python3 with python3-torch and NumPy):
 
     arch_agreement.py --native SPRIG --foreign "qemu-aarch64 SPRIG_ARM64" --work DIR
+    arch_agreement.py --native SPRIG --foreign "cmake/wine-run.sh SPRIG.EXE" \
+        --foreign-name windows --foreign-vector auto --work DIR
 
 For every case (stacks of every routed layer kind and activation, transformers with either
 norm, RoPE and learned positions, an lm and a classifier head) and every storage type
 (f32, f16, bf16), a random model is built with sprig_torch and its weights are rounded to the
 storage type, so that `sprig pack --dtype` stores them exactly and the float64 reference is the
 exact model of the stored numbers. The NATIVE build packs the model; both builds then run the
-same packed file with the vector path (the native default; neon forced on the foreign build)
-and with the scalar path (SPRIG_KERNEL_PATH=scalar).
+same packed file with the vector path (the native default; on the foreign build the path that
+--foreign-vector names, neon by default, or its own choice with "auto") and with the scalar
+path (SPRIG_KERNEL_PATH=scalar).
 
 Checks, each one failing the script:
 * the foreign build packs the same weights into a byte-identical file (the format has no
@@ -29,9 +33,11 @@ Checks, each one failing the script:
   the same C++ source, built without floating-point contraction (see runtime/CMakeLists.txt),
   so every addition, multiplication and square root is the same IEEE 754 operation in the
   same order on both processors, and the other C library functions used (exp, tanh, ...)
-  give the same results in glibc's aarch64 and x86-64 builds on these inputs. Exact GELU is the exception: glibc's erff/erfcf differ in the last
-  bits between the two, so the case that uses it ("gelu") is held to the vector paths'
-  tolerance instead, and the distance is printed.
+  give the same results in glibc's aarch64 and x86-64 builds on these inputs. Exact GELU is
+  the exception: glibc's erff/erfcf differ in the last bits between the two, so the case
+  that uses it ("gelu") is held to the vector paths' tolerance instead, and the distance is
+  printed. A Windows build takes those functions from the MinGW-w64 C runtime instead of
+  glibc; the same rule is applied to it, and what it shows is printed the same way.
 
 Prints one line per run and a closing 'N passed, N failed' line; exits 1 when a check fails,
 2 for bad arguments.
@@ -206,6 +212,9 @@ def ulps_apart(a, b):
 
 def check_case(args, checks, name, config, rows, seed, exact, dtype):
     native, foreign = shlex.split(args.native), shlex.split(args.foreign)
+    other = args.foreign_name
+    vector_path = None if args.foreign_vector == "auto" else args.foreign_vector
+    vector_label = f"{other}-{args.foreign_vector if vector_path else 'vector'}"
     folder, packed, inputs = make_case(args.work, name, config, rows, seed, dtype, native)
     ref = np.load(os.path.join(folder, "reference.npz"))
     tag = f"{name} {dtype}"
@@ -226,8 +235,9 @@ def check_case(args, checks, name, config, rows, seed, exact, dtype):
     runs = {
         "x86-vector": run_model(native, None, packed, inputs, folder, "x86-vector"),
         "x86-scalar": run_model(native, "scalar", packed, inputs, folder, "x86-scalar"),
-        "arm-neon": run_model(foreign, "neon", packed, inputs, folder, "arm-neon"),
-        "arm-scalar": run_model(foreign, "scalar", packed, inputs, folder, "arm-scalar"),
+        vector_label: run_model(foreign, vector_path, packed, inputs, folder, vector_label),
+        f"{other}-scalar": run_model(foreign, "scalar", packed, inputs, folder,
+                                     f"{other}-scalar"),
     }
     for label, (out, routes, seconds) in runs.items():
         print(f"     {tag} {label}: {seconds:.2f} s", flush=True)
@@ -236,23 +246,24 @@ def check_case(args, checks, name, config, rows, seed, exact, dtype):
         compare_outputs(out, ref["outputs"], REF_RTOL, REF_ATOL, flipped,
                         f"{tag} {label} vs reference", checks)
     out_x, routes_x, _ = runs["x86-vector"]
-    out_a, routes_a, _ = runs["arm-neon"]
-    flipped = compare_routes(routes_a, routes_x, ref, f"{tag} arm-neon vs x86-vector", checks)
+    out_a, routes_a, _ = runs[vector_label]
+    flipped = compare_routes(routes_a, routes_x, ref, f"{tag} {vector_label} vs x86-vector",
+                             checks)
     compare_outputs(out_a, out_x, PAIR_RTOL, PAIR_ATOL, flipped,
-                    f"{tag} arm-neon vs x86-vector", checks)
+                    f"{tag} {vector_label} vs x86-vector", checks)
     out_x, routes_x, _ = runs["x86-scalar"]
-    out_a, routes_a, _ = runs["arm-scalar"]
+    out_a, routes_a, _ = runs[f"{other}-scalar"]
     if not exact:
-        flipped = compare_routes(routes_a, routes_x, ref, f"{tag} arm-scalar vs x86-scalar",
+        flipped = compare_routes(routes_a, routes_x, ref, f"{tag} {other}-scalar vs x86-scalar",
                                  checks)
         compare_outputs(out_a, out_x, PAIR_RTOL, PAIR_ATOL, flipped,
-                        f"{tag} arm-scalar vs x86-scalar", checks)
-        print(f"     {tag} arm-scalar vs x86-scalar: up to {ulps_apart(out_a, out_x)} ulp apart "
-              "(erf from each C library)", flush=True)
+                        f"{tag} {other}-scalar vs x86-scalar", checks)
+        print(f"     {tag} {other}-scalar vs x86-scalar: up to {ulps_apart(out_a, out_x)} ulp "
+              "apart (erf from each C library)", flush=True)
         return
     same = out_x.tobytes() == out_a.tobytes() and all(
         routes_x[k].tobytes() == routes_a[k].tobytes() for k in routes_x)
-    checks.record(same, f"{tag} arm-scalar vs x86-scalar bit-identical",
+    checks.record(same, f"{tag} {other}-scalar vs x86-scalar bit-identical",
                   "identical" if same else
                   f"differ by up to {ulps_apart(out_a, out_x)} ulp")
 
@@ -262,6 +273,11 @@ def main():
     parser.add_argument("--native", required=True, help="command of the native sprig")
     parser.add_argument("--foreign", required=True,
                         help="command of the other build's sprig, e.g. 'qemu-aarch64 PATH'")
+    parser.add_argument("--foreign-name", default="arm",
+                        help="the other build's name in the printed checks (default: arm)")
+    parser.add_argument("--foreign-vector", default="neon",
+                        help="the kernel path the other build runs as its vector path "
+                             "(default: neon; auto: the build's own choice)")
     parser.add_argument("--work", required=True, help="an empty folder for the files")
     args = parser.parse_args()
     if not os.path.isdir(args.work):

@@ -2,13 +2,19 @@
 
 #include <stdio.h>
 #include <stdlib.h>
+#ifdef _WIN32
+#include <process.h>
+#else
 #include <sys/wait.h>
+#include <unistd.h>
+#endif
 
 #include <gtest/gtest.h>
 
 #include <cstring>
 #include <filesystem>
 #include <fstream>
+#include <random>
 #include <sstream>
 #include <stdexcept>
 
@@ -17,9 +23,22 @@
 namespace sprig::testing {
 
 TempDir::TempDir() {
+#ifdef _WIN32
+  // No mkdtemp: a random name, retried until it is new. The generic form keeps the forward
+  // slashes that the tests join names with.
+  std::random_device seed;
+  std::mt19937_64 rng(seed());
+  for (int attempt = 0; attempt < 100 && path_.empty(); ++attempt) {
+    const auto candidate = std::filesystem::temp_directory_path() /
+                           ("sprig-test-" + std::to_string(rng() % 1000000007));
+    if (std::filesystem::create_directory(candidate)) path_ = Utf8(candidate.generic_u8string());
+  }
+  if (path_.empty()) throw std::runtime_error("cannot make a temporary folder");
+#else
   std::string tmpl = (std::filesystem::temp_directory_path() / "sprig-test-XXXXXX").string();
   if (mkdtemp(tmpl.data()) == nullptr) throw std::runtime_error("mkdtemp failed");
   path_ = tmpl;
+#endif
 }
 
 TempDir::~TempDir() {
@@ -27,6 +46,34 @@ TempDir::~TempDir() {
   std::filesystem::remove_all(path_, ec);
 }
 
+#ifdef _WIN32
+// cmd.exe runs the command lines; a program's arguments are split by the C runtime's rules, in
+// which a double-quoted argument may hold spaces and \" is a literal quote.
+std::string Quote(const std::string& s) {
+  std::string out = "\"";
+  for (char c : s) {
+    if (c == '"') out += '\\';
+    out += c;
+  }
+  return out + "\"";
+}
+
+CommandResult Run(const std::string& command_line) {
+  CommandResult r;
+  // cmd /c removes the first and the last quote of a line that starts with one; the outer pair
+  // added here is what it removes, so the line's own quotes reach the program intact.
+  FILE* p = _popen(("\"" + command_line + " 2>&1\"").c_str(), "rb");
+  if (p == nullptr) return r;
+  char buf[4096];
+  size_t n;
+  while ((n = fread(buf, 1, sizeof(buf), p)) > 0) r.output.append(buf, n);
+  r.exit_code = _pclose(p);
+  // Text written by programs through the C runtime's text mode ends lines with \r\n.
+  std::string::size_type at = 0;
+  while ((at = r.output.find("\r\n", at)) != std::string::npos) r.output.erase(at, 1);
+  return r;
+}
+#else
 std::string Quote(const std::string& s) {
   std::string out = "'";
   for (char c : s) {
@@ -50,6 +97,7 @@ CommandResult Run(const std::string& command_line) {
   r.exit_code = WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
   return r;
 }
+#endif
 
 std::string BuiltProgram(const std::string& program) {
 #ifdef SPRIG_TEST_EMULATOR
@@ -100,15 +148,48 @@ std::unique_ptr<Session> OpenSession(const std::string& path, size_t threads) {
   return session.ok() ? std::move(*session) : nullptr;
 }
 
+void SetEnv(const std::string& name, const std::string& value) {
+#ifdef _WIN32
+  _putenv_s(name.c_str(), value.c_str());
+#else
+  setenv(name.c_str(), value.c_str(), 1);
+#endif
+}
+
+void UnsetEnv(const std::string& name) {
+#ifdef _WIN32
+  _putenv_s(name.c_str(), "");  // an empty value removes the variable on Windows
+#else
+  unsetenv(name.c_str());
+#endif
+}
+
+long ProcessId() {
+#ifdef _WIN32
+  return _getpid();
+#else
+  return getpid();
+#endif
+}
+
+std::filesystem::path FsPath(const std::string& utf8) {
+  return std::filesystem::path(std::u8string(utf8.begin(), utf8.end()));
+}
+
+std::string Utf8(const std::filesystem::path& path) {
+  const std::u8string s = path.u8string();
+  return std::string(s.begin(), s.end());
+}
+
 std::string ReadFile(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
+  std::ifstream in(FsPath(path), std::ios::binary);
   std::stringstream ss;
   ss << in.rdbuf();
   return ss.str();
 }
 
 void WriteFile(const std::string& path, const std::string& contents) {
-  std::ofstream out(path, std::ios::binary);
+  std::ofstream out(FsPath(path), std::ios::binary);
   out << contents;
 }
 

@@ -2,6 +2,7 @@
 #pragma once
 
 #include <cstdint>
+#include <filesystem>
 #include <memory>
 #include <string>
 #include <vector>
@@ -53,6 +54,16 @@ std::string PackSynthesized(const TempDir& dir, const std::string& name, const s
 std::unique_ptr<Session> OpenSession(const std::string& path, size_t threads = 1);
 
 std::string Quote(const std::string& s);
+// Sets or removes an environment variable of this process (setenv/unsetenv, or _putenv_s on
+// Windows), for the programs it starts and for the library's own reads.
+void SetEnv(const std::string& name, const std::string& value);
+void UnsetEnv(const std::string& name);
+// This process's id, to make names unique.
+long ProcessId();
+// A UTF-8 path as a std::filesystem::path and back; on Windows the narrow forms would go
+// through the ANSI code page, which cannot hold every name.
+std::filesystem::path FsPath(const std::string& utf8);
+std::string Utf8(const std::filesystem::path& path);
 std::string ReadFile(const std::string& path);
 void WriteFile(const std::string& path, const std::string& contents);
 

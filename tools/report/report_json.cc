@@ -125,9 +125,14 @@ json PointJson(const Point& p) {
 }  // namespace
 
 std::vector<double> LoadAverages() {
+#ifdef _WIN32
+  // Windows keeps no load average; the report then says it is unknown.
+  return {};
+#else
   double l[3];
   if (getloadavg(l, 3) != 3) return {};
   return {l[0], l[1], l[2]};
+#endif
 }
 
 json ToJson(const Measurement& m, const ReportContext& c) {
