@@ -21,6 +21,7 @@
 #include "kernels/convert.h"
 #include "kernels/kernels.h"
 #include "numeric/half.h"
+#include "support/test_util.h"
 
 namespace sprig {
 namespace {
@@ -55,18 +56,10 @@ bool ExactInFloat(double x) {
 // A fresh directory under the system temporary directory, removed with its contents.
 class TempDir {
  public:
-  TempDir() {
-    std::string pattern = (std::filesystem::temp_directory_path() / "sprig_half_XXXXXX").string();
-    if (mkdtemp(pattern.data()) != nullptr) path_ = pattern;
-  }
-  ~TempDir() {
-    std::error_code ignored;
-    if (!path_.empty()) std::filesystem::remove_all(path_, ignored);
-  }
-  const std::filesystem::path& path() const { return path_; }
+  std::filesystem::path path() const { return sprig::testing::FsPath(dir_.path()); }
 
  private:
-  std::filesystem::path path_;
+  sprig::testing::TempDir dir_;
 };
 
 std::string PythonPath() {

@@ -629,12 +629,8 @@ TEST(KernelActivation, GatedMatchesDefinitionAndMayAlias) {
 // the script writes raw float64 results. Returns an empty vector on failure.
 std::vector<double> RunPython(const std::string& script, const std::vector<float>& input,
                               size_t outputs_per_input) {
-  std::string pattern = (std::filesystem::temp_directory_path() / "sprig_kernels_XXXXXX").string();
-  if (mkdtemp(pattern.data()) == nullptr) {
-    ADD_FAILURE() << "cannot create a temporary directory";
-    return {};
-  }
-  const std::filesystem::path dir = pattern;
+  const sprig::testing::TempDir temp;
+  const std::filesystem::path dir = sprig::testing::FsPath(temp.path());
   {
     std::ofstream(dir / "script.py") << script;
     std::ofstream in(dir / "in.bin", std::ios::binary);
@@ -655,8 +651,6 @@ std::vector<double> RunPython(const std::string& script, const std::vector<float
   } else {
     output.clear();
   }
-  std::error_code ignored;
-  std::filesystem::remove_all(dir, ignored);
   if (output.empty()) ADD_FAILURE() << "python reference failed: " << command;
   return output;
 }
