@@ -1,7 +1,14 @@
 #include "fuzz_support.h"
 
+#ifdef _WIN32
+#include <process.h>
+
+#include <filesystem>
+#include <fstream>
+#else
 #include <sys/mman.h>
 #include <unistd.h>
+#endif
 
 #include <cstdio>
 #include <cstdlib>
@@ -11,6 +18,28 @@ namespace sprig::fuzz {
 // Where Touch leaves its sum; volatile, so the reads that produced it are kept.
 volatile uint8_t touch_sink;
 
+#ifdef _WIN32
+// Windows has no anonymous file with a path: a temporary file of this process stands in. Each
+// input is read by a model or reader that is closed before the next is written, so nothing
+// holds the file mapped when it is rewritten.
+MemoryFile::MemoryFile() {
+  path_ = (std::filesystem::temp_directory_path() /
+           ("sprig-fuzz-" + std::to_string(_getpid()) + ".bin"))
+              .string();
+}
+
+MemoryFile::~MemoryFile() {
+  std::error_code ignored;
+  std::filesystem::remove(path_, ignored);
+}
+
+const std::string& MemoryFile::Write(const uint8_t* data, size_t size) {
+  std::ofstream out(path_, std::ios::binary | std::ios::trunc);
+  out.write(reinterpret_cast<const char*>(data), static_cast<std::streamsize>(size));
+  if (!out.flush()) std::abort();
+  return path_;
+}
+#else
 MemoryFile::MemoryFile() {
   fd_ = memfd_create("sprig-fuzz", MFD_CLOEXEC);
   if (fd_ < 0) {
@@ -35,6 +64,7 @@ const std::string& MemoryFile::Write(const uint8_t* data, size_t size) {
   }
   return path_;
 }
+#endif
 
 void Touch(const void* data, size_t size) {
   const auto* p = static_cast<const volatile uint8_t*>(data);

@@ -13,8 +13,9 @@
 
 namespace sprig::fuzz {
 
-// An anonymous in-memory file (memfd_create), reachable through a /proc/self/fd path. One per
-// target, rewritten for every input: readers open it like any file but nothing touches disk.
+// An anonymous in-memory file (memfd_create), reachable through a /proc/self/fd path; on
+// Windows a temporary file. One per target, rewritten for every input: readers open it like
+// any file, and on Linux nothing touches disk.
 class MemoryFile {
  public:
   MemoryFile();
