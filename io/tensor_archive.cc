@@ -15,10 +15,7 @@
 
 namespace sprig::io {
 
-namespace {
-
-// The container kind from the leading bytes, or nullopt when none matches.
-std::optional<ArchiveKind> DetectKind(const uint8_t* d, uint64_t size) {
+std::optional<ArchiveKind> DetectArchiveKind(const uint8_t* d, uint64_t size) {
   if (size >= kNpyMagicSize && std::memcmp(d, kNpyMagic, kNpyMagicSize) == 0) {
     return ArchiveKind::kNpy;
   }
@@ -34,11 +31,15 @@ std::optional<ArchiveKind> DetectKind(const uint8_t* d, uint64_t size) {
   return std::nullopt;
 }
 
-}  // namespace
+Result<std::string> ReadFileBytes(const std::string& path) {
+  SPRIG_ASSIGN_OR_RETURN(std::shared_ptr<const MappedFile> file, MappedFile::Open(path));
+  if (file->size() == 0) return std::string();
+  return std::string(reinterpret_cast<const char*>(file->data()), file->size());
+}
 
 Result<TensorArchive> TensorArchive::Open(const std::string& path) {
   SPRIG_ASSIGN_OR_RETURN(std::shared_ptr<const MappedFile> file, MappedFile::Open(path));
-  const std::optional<ArchiveKind> kind = DetectKind(file->data(), file->size());
+  const std::optional<ArchiveKind> kind = DetectArchiveKind(file->data(), file->size());
   if (!kind) {
     if (file->size() == 0) {
       return Status::InvalidArgument(path +

@@ -5,6 +5,7 @@
 // The container kind is recognised from the file's first bytes, not its name.
 #pragma once
 
+#include <optional>
 #include <string>
 #include <unordered_map>
 #include <vector>
@@ -15,6 +16,14 @@
 namespace sprig::io {
 
 enum class ArchiveKind { kNpy, kNpz, kSafetensors };
+
+// The container kind from a file's leading bytes, or nullopt when none matches (a text file,
+// for instance).
+std::optional<ArchiveKind> DetectArchiveKind(const uint8_t* data, uint64_t size);
+
+// A whole file's bytes, read through the same mapping the readers use (for inputs that are not
+// tensor files, such as text, and for content hashes). Errors name the file.
+Result<std::string> ReadFileBytes(const std::string& path);
 
 class TensorArchive {
  public:

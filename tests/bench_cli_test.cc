@@ -3,9 +3,12 @@
 // formulas; a model benchmarked against itself reports identical FLOPs, records touched and
 // memory sections on both sides; the HTML report is self-contained and renders in a real
 // browser (headless Chromium, Debian's chromium package) to a non-blank screenshot. No timing
-// is asserted beyond "positive and ordered".
+// is asserted beyond "positive and ordered". With --input the figures come from the user's rows,
+// tokens or text, and the report names the file by size and SHA-256 (checked with Python's
+// hashlib); with random input on a routed model it says that is not the model's routing.
 #include <gtest/gtest.h>
 
+#include <cmath>
 #include <cstdlib>
 #include <filesystem>
 #include <nlohmann/json.hpp>
@@ -13,6 +16,7 @@
 #include <sstream>
 #include <string>
 #include <tuple>
+#include <utility>
 #include <vector>
 
 #include "support/test_util.h"
@@ -233,13 +237,16 @@ TEST_F(BenchCli, TransformerReportsPrefillAndDecode) {
   // Attention's context: the prompt's tokens average P / 2, the decoded ones P + G / 2.
   EXPECT_EQ(r["sides"]["model"]["flops"][0]["context"], 6);
   EXPECT_EQ(r["sides"]["model"]["flops"][1]["context"], 17);
-  // Routing of the 22 tokens of one sequence through both routed blocks.
+  // Routing of the 22 tokens of each of the three sequences run (the first pass's and one per
+  // repetition) through both routed blocks.
   ASSERT_EQ(r["usage"].size(), 2u);
   for (const json& u : r["usage"]) {
     uint64_t sum = 0;
     for (uint64_t c : u["counts"]) sum += c;
-    EXPECT_EQ(sum, 22u);
+    EXPECT_EQ(sum, 3 * 22u);
   }
+  EXPECT_EQ(r["input"]["kind"], "random");
+  EXPECT_EQ(r["input"]["prompts"], 3);
 }
 
 // The same file on both sides: the same inputs give the same FLOPs, the same records touched
@@ -370,6 +377,140 @@ TEST_F(BenchCli, CompareTorchRunsBothSidesOnTheSameWeights) {
     }
     EXPECT_EQ(lines, std::string(name) == "stack" ? 2u : 1u) << r.output;
   }
+}
+
+// The SHA-256 of a file by Python's hashlib (FIPS 180-4), and its size.
+std::pair<std::string, uint64_t> HashOf(const std::string& path) {
+  auto r = testing::RunPython(
+      "import sys, hashlib\nb = open(sys.argv[1], 'rb').read()\n"
+      "print(hashlib.sha256(b).hexdigest(), len(b))",
+      {path});
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  std::istringstream in(r.output);
+  std::pair<std::string, uint64_t> out;
+  in >> out.first >> out.second;
+  return out;
+}
+
+// Rows from a file: every figure that depends on routing follows them. 24 copies of one row
+// send every row down one path, so each tree layer's usage has entropy 0 (the experts' top 2,
+// 1 bit) and the leaf tree reads one record of its 16; random rows spread over the leaves and say
+// they are random.
+TEST_F(BenchCli, StackOnRowsFromAFile) {
+  const std::string rows = dir_->File("same.npy");
+  auto w = testing::RunPython(
+      "import sys, numpy as np\n"
+      "row = np.random.default_rng(4).standard_normal(64).astype(np.float32)\n"
+      "np.save(sys.argv[1], np.tile(row, (24, 1)))",
+      {rows});
+  ASSERT_EQ(w.exit_code, 0) << w.output;
+  const std::string html = dir_->File("rows.html");
+  const json r = Bench(Quote(*stack_) + " --input " + Quote(rows) +
+                           " --repeat 2 --batch 1,8 --report " + Quote(html),
+                       "rows");
+  ASSERT_TRUE(r.is_object());
+  for (const std::string& key : DocumentedKeys()) ExpectPath(r, key, "report");
+  const auto [sha, bytes] = HashOf(rows);
+  EXPECT_EQ(r["input"]["kind"], "rows");
+  EXPECT_EQ(r["input"]["path"], rows);
+  EXPECT_EQ(r["input"]["bytes"], bytes);
+  EXPECT_EQ(r["input"]["sha256"], sha);
+  EXPECT_EQ(r["input"]["units"], 24);
+  EXPECT_TRUE(r["input"]["seed"].is_null());
+  EXPECT_EQ(r["input"]["caution"], "");
+  EXPECT_EQ(r["settings"]["rows"], 24);  // by default, the file's rows
+  ExpectSaneResults(r, 2);
+  ASSERT_EQ(r["usage"].size(), 3u);
+  for (const json& u : r["usage"]) {
+    // A tree sends the row to one leaf (0 bits); experts share it between the top 2 (1 bit).
+    EXPECT_EQ(u["entropy_bits"].get<double>(), u["layer"] == 2 ? 1.0 : 0.0) << u.dump();
+    EXPECT_NEAR(u["max_entropy_bits"].get<double>(), std::log2(u["units"].get<double>()), 1e-12);
+  }
+  // Layer 1 is the leaf tree: one leaf, one record, on every side that has it.
+  const json& touched = r["sides"]["model"]["memory"]["touched"];
+  ASSERT_EQ(touched.size(), 3u);
+  EXPECT_EQ(touched[0]["layer"], 1);
+  EXPECT_EQ(touched[0]["touched"], 1);
+  EXPECT_EQ(touched[1]["touched"], 2);  // experts: top 2 of one row
+  const std::string page = testing::ReadFile(html);
+  EXPECT_NE(page.find(sha), std::string::npos);
+  EXPECT_EQ(page.find("Caution"), std::string::npos);
+
+  const json random = Bench(Quote(*stack_) + " --repeat 1 --rows 24 --batch 8", "random");
+  ASSERT_TRUE(random.is_object());
+  EXPECT_EQ(random["input"]["kind"], "random");
+  EXPECT_EQ(random["input"]["seed"], 1);
+  EXPECT_EQ(random["input"]["path"], "");
+  EXPECT_NE(random["input"]["caution"].get<std::string>().find("not the model's routing"),
+            std::string::npos);
+  EXPECT_GT(random["usage"][0]["entropy_bits"].get<double>(), 0.0);
+  EXPECT_GT(random["sides"]["model"]["memory"]["touched"][0]["touched"].get<int>(), 1);
+  // The table says it too.
+  auto t = testing::Run(testing::SprigCli() + " bench " + Quote(*stack_) +
+                        " --repeat 1 --rows 8 --batch 8");
+  ASSERT_EQ(t.exit_code, 0) << t.output;
+  EXPECT_NE(t.output.find("input: random N(0, 1) rows, seed 1"), std::string::npos) << t.output;
+  EXPECT_NE(t.output.find("not the model's routing"), std::string::npos) << t.output;
+  EXPECT_NE(t.output.find("usage entropy"), std::string::npos) << t.output;
+}
+
+// Text for a byte-tokenizer transformer: cut into prompts of --prompt-tokens bytes, each continued
+// by the model's greedy decoding; a .npy of the same bytes as tokens gives the same routing.
+TEST_F(BenchCli, TransformerOnTextAndTokens) {
+  const std::string text = dir_->File("notes.txt");
+  std::string notes;
+  for (int i = 0; i < 6; ++i) notes += "Day " + std::to_string(i) + " at the lower bank: fog.\n";
+  testing::WriteFile(text, notes);
+  const json r = Bench(Quote(*transformer_) + " --input " + Quote(text) +
+                           " --repeat 2 --prompt-tokens 12 --decode-tokens 10",
+                       "text");
+  ASSERT_TRUE(r.is_object());
+  for (const std::string& key : DocumentedKeys()) ExpectPath(r, key, "report");
+  EXPECT_EQ(r["input"]["kind"], "text");
+  EXPECT_EQ(r["input"]["units"], notes.size());
+  EXPECT_EQ(r["input"]["sha256"], HashOf(text).first);
+  EXPECT_EQ(r["input"]["prompts"], 3);
+  EXPECT_EQ(r["input"]["caution"], "");
+  ExpectSaneResults(r, 2);
+  for (const json& u : r["usage"]) {
+    uint64_t sum = 0;
+    for (uint64_t c : u["counts"]) sum += c;
+    EXPECT_EQ(sum, 3 * 22u);
+  }
+  const std::string tokens = dir_->File("notes.npy");
+  auto w = testing::RunPython(
+      "import sys, numpy as np\n"
+      "np.save(sys.argv[2], np.frombuffer(open(sys.argv[1], 'rb').read(), np.uint8)"
+      ".astype(np.int64))",
+      {text, tokens});
+  ASSERT_EQ(w.exit_code, 0) << w.output;
+  const json t = Bench(Quote(*transformer_) + " --input " + Quote(tokens) +
+                           " --repeat 2 --prompt-tokens 12 --decode-tokens 10",
+                       "tokens");
+  ASSERT_TRUE(t.is_object());
+  EXPECT_EQ(t["input"]["kind"], "tokens");
+  EXPECT_EQ(t["usage"], r["usage"]);
+  EXPECT_EQ(t["sides"]["model"]["memory"]["touched"], r["sides"]["model"]["memory"]["touched"]);
+}
+
+TEST_F(BenchCli, RefusesInputsThatDoNotFit) {
+  const std::string cli = testing::SprigCli() + " bench ";
+  const std::string text = dir_->File("short.txt");
+  testing::WriteFile(text, "Day 1: fog.");
+  auto r = testing::Run(cli + Quote(*transformer_) + " --input " + Quote(text) +
+                        " --prompt-tokens 12 --decode-tokens 4");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("fewer than one prompt of --prompt-tokens 12"), std::string::npos)
+      << r.output;
+  const std::string latin1 = dir_->File("latin1.txt");
+  testing::WriteFile(latin1, "caf\xe9 au lait, and more text after it");
+  r = testing::Run(cli + Quote(*transformer_) + " --input " + Quote(latin1) +
+                   " --prompt-tokens 8 --decode-tokens 4");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("byte 3 breaks UTF-8"), std::string::npos) << r.output;
+  r = testing::Run(cli + Quote(*stack_) + " --input " + Quote(text));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("is a stack model"), std::string::npos) << r.output;
 }
 
 }  // namespace

@@ -384,5 +384,45 @@ TEST_F(RunCli, EveryVerbHasHelp) {
   }
 }
 
+// `sprig routes` takes text for a byte-tokenizer transformer: its bytes, in sequences of max_seq
+// tokens (the last shorter), route exactly as the same bytes given as int32 token arrays, which
+// are written here by NumPy.
+TEST(RoutesText, TextRoutesAsItsBytesDo) {
+  testing::TempDir dir;
+  const std::string model = testing::PackSynthesized(dir, "lm", R"({"family":"transformer",
+    "vocab_size":256,"d_model":16,"n_heads":2,"max_seq":16,"head":{"kind":"lm"},
+    "tokenizer":"byte","layers":[{"kind":"tree","mode":"leaf","depth":3,"leaf_width":4,
+    "activation":"gelu"}]})");
+  const std::string text = dir.File("notes.txt");
+  testing::WriteFile(text, "Day 9 at Quill Hill: fog until noon. Marit mended the netting.\n");
+  const size_t bytes = 63;  // four sequences of 16, the last of 15
+  auto r = testing::RunPython(
+      "import sys, numpy as np\n"
+      "t = np.frombuffer(open(sys.argv[1], 'rb').read(), np.uint8).astype(np.int32)\n"
+      "assert t.size == 63\n"
+      "np.save(sys.argv[2], t[:48].reshape(3, 16))\n"
+      "np.save(sys.argv[3], t[48:])",
+      {text, dir.File("whole.npy"), dir.File("rest.npy")});
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  auto routes = [&](const std::string& input) {
+    auto out = testing::Run(testing::SprigCli() + " routes " + Quote(model) + " --input " +
+                            Quote(input) + " --json");
+    EXPECT_EQ(out.exit_code, 0) << out.output;
+    return nlohmann::json::parse(out.output, nullptr, false);
+  };
+  const nlohmann::json from_text = routes(text);
+  const nlohmann::json whole = routes(dir.File("whole.npy")), rest = routes(dir.File("rest.npy"));
+  ASSERT_TRUE(from_text.is_object() && whole.is_object() && rest.is_object());
+  EXPECT_EQ(from_text["rows"], bytes);
+  std::vector<uint64_t> want = whole["layers"][0]["counts"];
+  const std::vector<uint64_t> more = rest["layers"][0]["counts"];
+  for (size_t i = 0; i < want.size(); ++i) want[i] += more[i];
+  EXPECT_EQ(from_text["layers"][0]["counts"].get<std::vector<uint64_t>>(), want);
+  // `run` writes one array, which pieces of text would not make: it keeps to token arrays.
+  r = testing::Run(testing::SprigCli() + " run " + Quote(model) + " --input " + Quote(text) +
+                   " --output " + Quote(dir.File("y.npy")));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+}
+
 }  // namespace
 }  // namespace sprig

@@ -3,6 +3,8 @@
 // families, fails (exit 1) with a precise report when a weight is perturbed or a routing node's
 // bias is nudged after export, explains a flip that float16 rounding causes (IEEE 754 half
 // precision, rounded by numpy.float16), and refuses references that do not fit the model (exit 2).
+// Then against references written without the exporter (tests/python/external_reference.py): one
+// of plain NumPy with inputs and outputs only, and one of a torch.nn model with names of its own.
 #include <gtest/gtest.h>
 
 #include <nlohmann/json.hpp>
@@ -196,7 +198,6 @@ TEST(Verify, RefusesReferencesThatDoNotFitTheModel) {
     const char* message;
   };
   const BadCase cases[] = {
-      {"del a['routes.layer2']", "has no array 'routes.layer2'"},
       {"del a['outputs']", "has no array 'outputs'"},
       {"a['outputs'] = a['outputs'][:, :3]", "array 'outputs' has shape [8, 3]"},
       {"a['inputs'] = a['inputs'][:, :5]", "array 'inputs': the input has shape [8, 5]"},
@@ -218,6 +219,7 @@ TEST(Verify, RefusesReferencesThatDoNotFitTheModel) {
   auto r = testing::Run(cli + Quote(dir.File("missing.npz")));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   r = testing::Run(testing::SprigCli() + " verify --help");
+  EXPECT_NE(r.output.find("--require-routes"), std::string::npos);
   EXPECT_EQ(r.exit_code, 0);
   EXPECT_NE(r.output.find("--rtol"), std::string::npos);
 }
@@ -286,6 +288,114 @@ except ValueError as e:
       << r.output;
   EXPECT_FALSE(testing::Run("test -e " + Quote(dir.File("out"))).exit_code == 0)
       << "a refused export wrote files";
+}
+
+}  // namespace
+}  // namespace sprig
+
+namespace sprig {
+namespace {
+
+// Writes a reference without sprig's exporter (tests/python/external_reference.py) into dir/name.
+std::string External(const testing::TempDir& dir, const std::string& how) {
+  const auto r =
+      testing::Run(testing::Python() + " " +
+                   Quote(std::string(SPRIG_SOURCE_DIR) + "/tests/python/external_reference.py") +
+                   " " + how + " " + Quote(dir.File(how)));
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  return dir.File(how);
+}
+
+// Copies reference.npz with one edit (Python on the dict `a` of its arrays) to dir/name.
+std::string Edited(const testing::TempDir& dir, const std::string& ref, const std::string& python,
+                   const std::string& name) {
+  const std::string out = dir.File(name);
+  const auto r = testing::RunPython(
+      "import os, sys, numpy as np\nos.makedirs(os.path.dirname(sys.argv[2]), exist_ok=True)\n"
+      "a = dict(np.load(sys.argv[1]))\n" +
+          python + "\nnp.savez(sys.argv[2], **a)",
+      {ref + "/reference.npz", out + "/reference.npz"});
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  return out;
+}
+
+// A reference of plain NumPy arrays, `inputs` and `outputs` computed by NumPy's own forward pass
+// (float64), is enough: verify passes and says what it could not check; one output moved by 0.5
+// fails (exit 1) at that row; an output array of the wrong shape is refused (exit 2), and so is
+// the reference under --require-routes.
+TEST(VerifyMinimal, NumpyInputsAndOutputsAreEnough) {
+  testing::TempDir dir;
+  const std::string ref = External(dir, "numpy");
+  const std::string model = Pack(ref, dir.File("m.sprig"), "f32");
+  const Verified v = Verify(model, ref);
+  EXPECT_EQ(v.exit_code, 0) << v.text;
+  EXPECT_TRUE(v.report["outputs"]["ok"].get<bool>()) << v.text;
+  EXPECT_EQ(v.report["outputs"]["rows_compared"], 40);
+  EXPECT_TRUE(v.report["routing"].empty());
+  EXPECT_TRUE(v.report["layer_outputs"].empty());
+  ASSERT_EQ(v.report["not_checked"].size(), 2u) << v.text;
+  EXPECT_NE(v.text.find("routing not checked: the reference has no routes"), std::string::npos)
+      << v.text;
+  EXPECT_NE(v.text.find("per-layer outputs not checked: the reference has no layer_outputs"),
+            std::string::npos)
+      << v.text;
+  EXPECT_NE(v.text.find("PASS"), std::string::npos);
+  std::printf("%s", v.text.c_str());
+
+  const std::string moved = Edited(dir, ref, "a['outputs'][17, 2] += 0.5", "moved");
+  const Verified bad = Verify(model, moved);
+  EXPECT_EQ(bad.exit_code, 1) << bad.text;
+  EXPECT_FALSE(bad.report["outputs"]["ok"].get<bool>());
+  EXPECT_EQ(bad.report["outputs"]["worst_row"], 17);
+  EXPECT_NEAR(bad.report["outputs"]["max_abs_error"].get<double>(), 0.5, 1e-3);
+  EXPECT_NE(bad.text.find("FAIL"), std::string::npos);
+
+  const std::string narrow = Edited(dir, ref, "a['outputs'] = a['outputs'][:, :4]", "narrow");
+  auto r = testing::Run(testing::SprigCli() + " verify " + Quote(model) + " " +
+                        Quote(narrow + "/reference.npz"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("array 'outputs' has shape [40, 4]"), std::string::npos) << r.output;
+
+  r = testing::Run(testing::SprigCli() + " verify " + Quote(model) + " " +
+                   Quote(ref + "/reference.npz") + " --require-routes");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("has no array 'routes.layer1'; --require-routes"), std::string::npos)
+      << r.output;
+}
+
+// A model built from torch.nn modules (nn.Sequential of nn.Linear, an nn.Linear of split nodes and
+// a bank of leaf parameters) under its own names, its outputs and leaf choices computed by
+// PyTorch and saved with NumPy: packed with --rename, it verifies with routes required, every
+// routing decision agreeing. Without the map pack refuses it, naming a tensor.
+TEST(VerifyMinimal, TorchNnModelWithItsOwnNamesMappedWithRename) {
+  testing::TempDir dir;
+  const std::string ref = External(dir, "torch");
+  auto r = testing::Run(testing::SprigCli() + " pack " + Quote(ref + "/config.json") + " " +
+                        Quote(ref + "/weights.npz") + " -o " + Quote(dir.File("plain.sprig")));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("layers.0.fc1.weight"), std::string::npos) << r.output;
+  r = testing::Run(testing::SprigCli() + " pack " + Quote(ref + "/config.json") + " " +
+                   Quote(ref + "/weights.npz") + " --rename " + Quote(ref + "/rename.json") +
+                   " -o " + Quote(dir.File("m.sprig")));
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  r = testing::Run(testing::SprigCli() + " verify " + Quote(dir.File("m.sprig")) + " " +
+                   Quote(ref + "/reference.npz") + " --require-routes --json");
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  const nlohmann::json j = nlohmann::json::parse(r.output, nullptr, false);
+  ASSERT_TRUE(j.is_object()) << r.output;
+  ASSERT_EQ(j["routing"].size(), 1u);
+  EXPECT_EQ(j["routing"][0]["layer"], 1);
+  EXPECT_EQ(j["routing"][0]["agreement_percent"], 100.0);
+  // No margins and no per-layer outputs in this reference: both are named.
+  ASSERT_EQ(j["not_checked"].size(), 2u) << r.output;
+  EXPECT_NE(j["not_checked"].dump().find("cannot be explained: the reference has no margins"),
+            std::string::npos);
+  // A leaf choice changed in the reference is a disagreement nothing explains (exit 1).
+  const std::string flipped =
+      Edited(dir, ref, "a['routes.layer1'][5] = (a['routes.layer1'][5] + 1) % 4", "flipped");
+  const Verified v = Verify(dir.File("m.sprig"), flipped);
+  EXPECT_EQ(v.exit_code, 1) << v.text;
+  EXPECT_EQ(v.report["routing"][0]["unexplained"], 1) << v.text;
 }
 
 }  // namespace

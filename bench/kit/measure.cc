@@ -47,8 +47,26 @@ std::vector<float> RowPool(size_t rows, size_t in, uint64_t seed) {
   return v;
 }
 
-void NewTokens(const ModelConfig& c, const MeasureOptions& o, uint64_t seed, Inputs* in) {
-  numeric::Random rng(seed);
+// The rows of a repetition from the file's rows, in turn, wrapping to the start.
+std::vector<float> FileRowPool(const std::vector<float>& file, size_t rows, size_t in) {
+  const size_t file_rows = file.size() / in;
+  std::vector<float> v(rows * in);
+  for (size_t r = 0; r < rows; ++r) {
+    std::copy_n(file.begin() + static_cast<std::ptrdiff_t>((r % file_rows) * in), in,
+                v.begin() + static_cast<std::ptrdiff_t>(r * in));
+  }
+  return v;
+}
+
+// The tokens of input `index` (0: the first pass and the warm-up; r + 1: repetition r): from the
+// file's prompts in turn, or random from the seed.
+void SelectTokens(const ModelConfig& c, const MeasureOptions& o, size_t index, Inputs* in) {
+  if (!o.input_prompts.empty()) {
+    in->prompt = o.input_prompts[index % o.input_prompts.size()];
+    in->next = o.input_continuations[index % o.input_prompts.size()];
+    return;
+  }
+  numeric::Random rng(o.seed + index);
   auto draw = [&](size_t n) {
     std::vector<int32_t> t(n);
     for (int32_t& v : t) v = static_cast<int32_t>(rng.Next() % c.vocab_size);
@@ -194,14 +212,15 @@ class Runner {
     if (config_.family == Family::kStack) {
       size_t rows = 0;
       for (size_t b : o_.batches) rows = std::max(rows, CallsFor(o_, b) * b);
-      inputs_.pool = RowPool(rows, config_.input_dim, o_.seed);
+      inputs_.pool = o_.input_rows.empty() ? RowPool(rows, config_.input_dim, o_.seed)
+                                           : FileRowPool(o_.input_rows, rows, config_.input_dim);
     }
     return Status::Ok();
   }
 
   // The first pass of each side: first call and resident memory against tokens processed.
   Status FirstPass(Measurement* m) {
-    if (config_.family == Family::kTransformer) NewTokens(config_, o_, o_.seed, &inputs_);
+    if (config_.family == Family::kTransformer) SelectTokens(config_, o_, 0, &inputs_);
     for (size_t s = 0; s < kSides; ++s) {
       SideMemory& mem = m->sides[s].memory;
       const Model& model = *models_[s];
@@ -240,7 +259,7 @@ class Runner {
   Status Repeat(std::vector<Point>* points) {
     for (size_t r = 0; r < o_.repeat; ++r) {
       if (config_.family == Family::kTransformer) {
-        NewTokens(config_, o_, o_.seed + 1 + r, &inputs_);
+        SelectTokens(config_, o_, r + 1, &inputs_);
       }
       for (size_t ti = 0; ti < o_.threads.size(); ++ti) {
         for (size_t pi = 0; pi < points->size(); ++pi) {
@@ -261,27 +280,41 @@ class Runner {
   }
 
   // The model's routing on the benchmark's inputs, from a fresh session so that no side's
-  // records-touched count sees inputs the others did not.
+  // records-touched count sees inputs the others did not. Stack: every distinct row of the
+  // pool; transformer: every distinct sequence the run fed (prompt and decoded tokens).
   Status Usage(Measurement* m) {
     SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(models_[kModel]));
-    Routes routes;
+    std::vector<Routes> all;
     if (config_.family == Family::kStack) {
-      const size_t rows = inputs_.pool.size() / config_.input_dim;
+      size_t rows = inputs_.pool.size() / config_.input_dim;
+      if (!o_.input_rows.empty()) rows = std::min(rows, o_.input_rows.size() / config_.input_dim);
       std::vector<float> y(rows * config_.output_dim());
-      SPRIG_RETURN_IF_ERROR(session->forward(inputs_.pool.data(), rows, y.data(), &routes));
+      all.emplace_back();
+      SPRIG_RETURN_IF_ERROR(session->forward(inputs_.pool.data(), rows, y.data(), &all.back()));
     } else {
-      std::vector<int32_t> seq = inputs_.prompt;
-      seq.insert(seq.end(), inputs_.next.begin(), inputs_.next.end());
-      std::vector<float> y(seq.size() * config_.output_dim());
-      SPRIG_RETURN_IF_ERROR(session->forward_tokens(seq.data(), 1, seq.size(), y.data(), &routes));
+      const size_t used = o_.input_prompts.empty()
+                              ? o_.repeat + 1
+                              : std::min(o_.repeat + 1, o_.input_prompts.size());
+      Inputs in;
+      for (size_t i = 0; i < used; ++i) {
+        SelectTokens(config_, o_, i, &in);
+        std::vector<int32_t> seq = in.prompt;
+        seq.insert(seq.end(), in.next.begin(), in.next.end());
+        std::vector<float> y(seq.size() * config_.output_dim());
+        all.emplace_back();
+        SPRIG_RETURN_IF_ERROR(
+            session->forward_tokens(seq.data(), 1, seq.size(), y.data(), &all.back()));
+      }
     }
     const std::vector<LayerDescription> layers = models_[kModel]->layer_descriptions();
-    for (const LayerRoutes& lr : routes.layers) {
+    for (size_t l = 0; !all.empty() && l < all[0].layers.size(); ++l) {
       LayerUsage u;
-      u.layer = lr.layer;
-      u.counts.assign(layers[lr.layer].units, 0);
-      for (int32_t c : lr.choices) {
-        if (c >= 0 && static_cast<size_t>(c) < u.counts.size()) ++u.counts[c];
+      u.layer = all[0].layers[l].layer;
+      u.counts.assign(layers[u.layer].units, 0);
+      for (const Routes& routes : all) {
+        for (int32_t c : routes.layers[l].choices) {
+          if (c >= 0 && static_cast<size_t>(c) < u.counts.size()) ++u.counts[c];
+        }
       }
       m->usage.push_back(std::move(u));
     }
@@ -380,6 +413,26 @@ void SummarizePoints(Measurement* m) {
 
 }  // namespace
 
+Result<std::vector<std::vector<int32_t>>> ContinuePrompts(
+    const std::shared_ptr<const Model>& model, const std::vector<std::vector<int32_t>>& prompts,
+    size_t count) {
+  std::vector<std::vector<int32_t>> out;
+  SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model));
+  GenerateOptions greedy;
+  greedy.count = count;
+  greedy.temperature = 0;
+  for (const std::vector<int32_t>& prompt : prompts) {
+    out.emplace_back();
+    if (count == 0) continue;
+    std::vector<int32_t>& next = out.back();
+    SPRIG_RETURN_IF_ERROR(session->generate(prompt, greedy, [&next](int32_t token) {
+      next.push_back(token);
+      return true;
+    }));
+  }
+  return out;
+}
+
 const char* SideName(size_t side) {
   static const char* names[kSides] = {"model", "baseline", "floor"};
   return side < kSides ? names[side] : "?";
@@ -390,6 +443,9 @@ Result<Measurement> Measure(const std::shared_ptr<const Model> (&models)[kSides]
   if (o.threads.empty() || o.batches.empty() || o.repeat == 0) {
     return Status::InvalidArgument(
         "a benchmark needs a thread count, a batch size and a repetition");
+  }
+  if (o.input_prompts.size() != o.input_continuations.size()) {
+    return Status::InvalidArgument("every prompt of the benchmark needs its continuation");
   }
   Measurement m;
   m.family = models[kModel]->config().family;

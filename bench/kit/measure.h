@@ -33,7 +33,13 @@ struct MeasureOptions {
   size_t prompt_tokens = 128;         // transformer
   size_t decode_tokens = 128;         // transformer
   size_t repeat = 10;
-  uint64_t seed = 1;  // inputs
+  uint64_t seed = 1;  // random inputs
+  // Inputs from a file; when empty the inputs are random (from `seed`). Stack: rows ×
+  // input_dim values, taken in turn (a repetition longer than the file wraps to its start).
+  // Transformer: prompts of prompt_tokens tokens, each with the decode_tokens tokens fed after
+  // it (ContinuePrompts); the first pass takes the first, repetition r the (r + 1)-th, wrapping.
+  std::vector<float> input_rows;
+  std::vector<std::vector<int32_t>> input_prompts, input_continuations;
   // Called after each step with steps done and the total (progress display).
   std::function<void(size_t done, size_t total)> progress;
 };
@@ -106,6 +112,14 @@ struct Measurement {
   std::vector<LayerUsage> usage;  // the model's routed layers on the benchmark's inputs
   ProcessMemory memory_start, memory_end;
 };
+
+// Each prompt continued by `count` tokens of the model's own greedy decoding (temperature 0), the
+// tokens every side is then fed one at a time: they are what the model would produce, and all
+// sides see the same. Run on a model opened for this alone, before the measured ones, so that it
+// warms no measured mapping.
+Result<std::vector<std::vector<int32_t>>> ContinuePrompts(
+    const std::shared_ptr<const Model>& model, const std::vector<std::vector<int32_t>>& prompts,
+    size_t count);
 
 // `sides` holds the opened model, baseline and floor. They must take the same inputs (checked
 // by the caller). Errors come from the sessions (InvalidArgument for an unsuitable model).

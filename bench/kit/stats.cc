@@ -27,4 +27,16 @@ Summary Summarize(std::vector<double> values) {
   return s;
 }
 
+double EntropyBits(const std::vector<uint64_t>& counts) {
+  uint64_t total = 0;
+  for (uint64_t c : counts) total += c;
+  double h = 0;
+  for (uint64_t c : counts) {
+    if (c == 0) continue;
+    const double p = static_cast<double>(c) / static_cast<double>(total);
+    h -= p * std::log2(p);
+  }
+  return h;
+}
+
 }  // namespace sprig::bench

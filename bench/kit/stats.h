@@ -2,6 +2,7 @@
 #pragma once
 
 #include <cstddef>
+#include <cstdint>
 #include <vector>
 
 namespace sprig::bench {
@@ -18,5 +19,10 @@ Summary Summarize(std::vector<double> values);
 
 // The q-th percentile (0..100) of sorted values, as above.
 double PercentileOfSorted(const std::vector<double>& sorted, double q);
+
+// Shannon entropy in bits of the distribution counts[i] / sum(counts):
+// H = -sum_i p_i log2 p_i over the p_i > 0 (0 for no counts). log2 of the number of units is its
+// maximum, reached when every unit is chosen equally often.
+double EntropyBits(const std::vector<uint64_t>& counts);
 
 }  // namespace sprig::bench

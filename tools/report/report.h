@@ -11,7 +11,17 @@
 
 namespace sprig::bench {
 
+// What the benchmark ran on (the `input` object of the JSON).
+struct InputInfo {
+  std::string kind = "random";  // "random", or from a file: "rows", "tokens" or "text"
+  std::string path, sha256;     // the file and the SHA-256 of its bytes; empty when random
+  uint64_t bytes = 0;           // the file's size
+  uint64_t units = 0;           // rows or tokens the file holds
+  uint64_t prompts = 0;         // transformer: distinct prompts run
+};
+
 struct ReportContext {
+  InputInfo input;
   std::string command;        // the command line
   std::string baseline_kind;  // "dense_twin" or "file"
   std::string paths[kSides];  // files; empty for models built in memory

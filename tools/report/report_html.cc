@@ -35,6 +35,37 @@ std::string PhaseLabel(const json& p) {
   return phase + " (" + std::to_string(p["batch"].get<size_t>()) + " per call)";
 }
 
+std::string Bytes(uint64_t bytes) {
+  return bytes < 1024 * 1024 ? std::to_string(bytes) + " bytes" : Mib(static_cast<double>(bytes));
+}
+
+// What the figures were measured on: the file (path, size, SHA-256) or "random, seed S", and the
+// caution that random input does not route as the model's data does.
+std::string InputText(const json& r) {
+  const json& in = r["input"];
+  std::string t = "<p><b>Input:</b> ";
+  if (in["kind"] == "random") {
+    t += "random " + std::string(r["family"] == "stack" ? "N(0, 1) rows" : "tokens") + ", seed " +
+         std::to_string(in["seed"].get<uint64_t>());
+  } else {
+    t += svg::Escape(in["kind"].get<std::string>()) + " from <code>" +
+         svg::Escape(in["path"].get<std::string>()) + "</code> (" +
+         Bytes(in["bytes"].get<uint64_t>()) + ", " + std::to_string(in["units"].get<uint64_t>()) +
+         (r["family"] == "stack" ? " rows" : " tokens") + ", SHA-256 <code>" +
+         svg::Escape(in["sha256"].get<std::string>()) + "</code>)";
+    if (r["family"] != "stack") {
+      t += "; " + std::to_string(in["prompts"].get<uint64_t>()) +
+           " prompts, each continued by the model's greedy decoding";
+    }
+  }
+  t += ".</p>";
+  const std::string caution = in["caution"];
+  if (!caution.empty()) {
+    t += "<p class=\"caution\"><b>Caution:</b> " + svg::Escape(caution) + ".</p>";
+  }
+  return t;
+}
+
 std::string Settings(const json& r) {
   const json& s = r["settings"];
   std::string t = "<p><b>" + svg::Escape(r["family"].get<std::string>()) + "</b> model, kernels " +
@@ -48,7 +79,8 @@ std::string Settings(const json& r) {
          std::to_string(s["decode_tokens"].get<size_t>()) + " decoded tokens per repetition";
   }
   if (s["cold"].get<bool>()) t += ", files evicted from the page cache first (--cold)";
-  t += ".</p><p class=\"dim\">Command: <code>" + svg::Escape(r["command"].get<std::string>()) +
+  t += ".</p>" + InputText(r);
+  t += "<p class=\"dim\">Command: <code>" + svg::Escape(r["command"].get<std::string>()) +
        "</code><br>sprig " + svg::Escape(r["sprig_version"].get<std::string>()) + ", " +
        std::to_string(r["machine"]["cpus"].get<unsigned>()) + " CPUs, load average";
   for (const char* when : {"load_average_start", "load_average_end"}) {
@@ -261,7 +293,9 @@ std::string UsageCharts(const json& r) {
     svg::Axes a;
     a.title = "Layer " + std::to_string(u["layer"].get<size_t>()) + ": choices per " +
               (per_bar > 1 ? std::to_string(per_bar) + " units" : std::string("unit")) + " (" +
-              std::to_string(counts.size()) + " units)";
+              std::to_string(counts.size()) + " units), entropy " +
+              Fixed(u["entropy_bits"].get<double>(), 2) + " of " +
+              Fixed(u["max_entropy_bits"].get<double>(), 2) + " bits";
     a.x_label = "leaf or expert index / " + std::to_string(per_bar);
     a.y_label = "rows or tokens routed";
     t += "<div class=\"chart\">" + svg::BarChart(a, bars, kColors[0]) + "</div>";
@@ -282,6 +316,7 @@ std::string ToHtml(const json& r) {
       "table{border-collapse:collapse;font-size:13px}"
       "td,th{border:1px solid #ccc;padding:4px 8px;text-align:left}th{background:#f2f2f2}"
       ".dim{color:#666;font-size:12px}.grid{display:flex;flex-wrap:wrap;gap:12px}"
+      ".caution{background:#fff3d6;border-left:4px solid #d9661f;padding:6px 10px}"
       ".chart{border:1px solid #ddd}.key{display:inline-block;width:10px;height:10px;"
       "margin-right:6px}code{font-size:12px}"
       "</style></head><body><h1>sprig bench: " +
@@ -294,6 +329,12 @@ std::string ToHtml(const json& r) {
   h += SidesTable(r) + MemoryTable(r);
   h += "<h2>Leaf and expert usage per routed layer</h2><div class=\"grid\">" + UsageCharts(r) +
        "</div>";
+  if (!r["usage"].empty()) {
+    h += "<p class=\"dim\">Entropy is the Shannon entropy of the usage, H = &minus;&sum; "
+         "p<sub>i</sub> log<sub>2</sub> p<sub>i</sub> with p<sub>i</sub> the share of choices "
+         "that went to unit i: log<sub>2</sub>(units) when every unit is chosen equally often, 0 "
+         "when one takes everything.</p>";
+  }
   return h + "</body></html>\n";
 }
 

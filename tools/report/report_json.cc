@@ -122,6 +122,28 @@ json PointJson(const Point& p) {
   return j;
 }
 
+// Routing on random input is not the model's routing: say so wherever the figures that depend on
+// it are shown, unless the model has no routed layers.
+std::string InputCaution(const Measurement& m, const InputInfo& input) {
+  if (input.kind != "random" || m.usage.empty()) return "";
+  return "random input: routing on random input is not the model's routing, so the records "
+         "touched, resident memory, speed and usage figures describe random " +
+         std::string(m.family == Family::kStack ? "rows" : "tokens") +
+         ", not the model's own data; give --input FILE to measure on it";
+}
+
+json InputJson(const Measurement& m, const ReportContext& c) {
+  const InputInfo& in = c.input;
+  return {{"kind", in.kind},
+          {"path", in.path},
+          {"bytes", in.bytes},
+          {"sha256", in.sha256},
+          {"units", in.units},
+          {"prompts", in.prompts},
+          {"seed", in.kind == "random" ? json(c.options.seed) : json(nullptr)},
+          {"caution", InputCaution(m, in)}};
+}
+
 }  // namespace
 
 std::vector<double> LoadAverages() {
@@ -155,6 +177,7 @@ json ToJson(const Measurement& m, const ReportContext& c) {
                    {"repeat", o.repeat},
                    {"cold", c.cold},
                    {"seed", o.seed}};
+  j["input"] = InputJson(m, c);
   json sides;
   for (size_t s = 0; s < kSides; ++s) sides[SideName(s)] = SideJson(m.sides[s], c.paths[s]);
   j["sides"] = sides;
@@ -164,7 +187,11 @@ json ToJson(const Measurement& m, const ReportContext& c) {
                          {"end", ProcessJson(m.memory_end)}};
   j["usage"] = json::array();
   for (const LayerUsage& u : m.usage) {
-    j["usage"].push_back({{"layer", u.layer}, {"units", u.counts.size()}, {"counts", u.counts}});
+    j["usage"].push_back({{"layer", u.layer},
+                          {"units", u.counts.size()},
+                          {"counts", u.counts},
+                          {"entropy_bits", EntropyBits(u.counts)},
+                          {"max_entropy_bits", std::log2(static_cast<double>(u.counts.size()))}});
   }
   return j;
 }

@@ -1,14 +1,16 @@
-// sprig bench MODEL [--baseline OTHER.sprig | --dense-twin] [--rows N | --prompt-tokens P
-//                   --decode-tokens G] [--batch N,...] [--threads N,...] [--repeat R] [--cold]
-//                   [--json FILE] [--report FILE.html]
+// sprig bench MODEL [--baseline OTHER.sprig | --dense-twin] [--input FILE] [--rows N |
+//                   --prompt-tokens P --decode-tokens G] [--batch N,...] [--threads N,...]
+//                   [--repeat R] [--cold] [--json FILE] [--report FILE.html]
 //
 // Speed and memory of a model against a baseline, measured interleaved in one process (the code
 // is in bench/kit). The baseline is another .sprig file or the model's dense twin, built for
 // the run: its config with every routed layer made dense at the same total width, the
 // model's own weights for everything else, packed into an unlinked temporary file so it is
-// paged in from storage like any model.
+// paged in from storage like any model. The inputs are the user's (--input: rows, tokens or
+// text) or random ones, and the report says which.
 #include <unistd.h>
 
+#include <algorithm>
 #include <chrono>
 #include <cstdio>
 #include <memory>
@@ -18,6 +20,7 @@
 #include "bench/kit/measure.h"
 #include "bench/kit/models.h"
 #include "cli.h"
+#include "input_file.h"
 #include "io/atomic_file.h"
 #include "sprig/memory.h"
 #include "sprig/model.h"
@@ -27,7 +30,7 @@ namespace sprig::cli {
 namespace {
 
 struct BenchArgs {
-  std::string model, baseline, json, report;
+  std::string model, baseline, json, report, input;
   bool dense_twin = false, cold = false;
   std::vector<size_t> batches, threads = {1};
   size_t rows = 256, prompt_tokens = 128, decode_tokens = 128, repeat = 10;
@@ -117,6 +120,51 @@ Status CheckDecoding(const BenchArgs& a, const Model& model) {
                    std::to_string(a.decode_tokens) + ")");
 }
 
+// The prompts of a transformer's benchmark from the file's sequences: consecutive pieces of
+// `length` tokens within each sequence, as many as the run uses (`wanted`) or the file holds.
+Result<std::vector<std::vector<int32_t>>> PromptsOf(const InputFile& in, size_t length,
+                                                    size_t wanted) {
+  std::vector<std::vector<int32_t>> prompts;
+  for (const std::vector<int32_t>& seq : in.sequences) {
+    for (size_t at = 0; at + length <= seq.size() && prompts.size() < wanted; at += length) {
+      prompts.emplace_back(seq.begin() + static_cast<std::ptrdiff_t>(at),
+                           seq.begin() + static_cast<std::ptrdiff_t>(at + length));
+    }
+  }
+  if (prompts.empty()) {
+    size_t longest = 0;
+    for (const auto& seq : in.sequences) longest = std::max(longest, seq.size());
+    return Status::InvalidArgument(
+        in.path + ": its longest sequence has " + std::to_string(longest) +
+        " tokens, fewer than one prompt of --prompt-tokens " + std::to_string(length));
+  }
+  return prompts;
+}
+
+// Reads --input for the model (`probe`, opened for this alone) into the measurement's options
+// and the report's description; for a transformer the model's own decoding continues each prompt
+// here, before any measured model is opened or a file evicted.
+Status PrepareInput(const BenchArgs& a, const std::shared_ptr<const Model>& probe,
+                    bench::MeasureOptions* o, bench::InputInfo* info) {
+  if (probe->config().family == Family::kTransformer) info->prompts = a.repeat + 1;
+  if (a.input.empty()) return Status::Ok();
+  SPRIG_ASSIGN_OR_RETURN(InputFile in, ReadInputFile(a.input, *probe));
+  info->kind = in.kind;
+  info->path = in.path;
+  info->bytes = in.bytes;
+  info->sha256 = in.sha256;
+  info->units = in.units();
+  if (probe->config().family == Family::kStack) {
+    o->input_rows = std::move(in.values);
+    return Status::Ok();
+  }
+  SPRIG_ASSIGN_OR_RETURN(o->input_prompts, PromptsOf(in, a.prompt_tokens, a.repeat + 1));
+  SPRIG_ASSIGN_OR_RETURN(o->input_continuations,
+                         bench::ContinuePrompts(probe, o->input_prompts, a.decode_tokens));
+  info->prompts = o->input_prompts.size();
+  return Status::Ok();
+}
+
 // The command line as run, for the report (from /proc/self/cmdline; empty elsewhere).
 std::string CommandLine() {
   std::string line;
@@ -146,6 +194,7 @@ Result<bench::Measurement> Run(const BenchArgs& a, bench::ReportContext* context
     dtype = bench::MainStorageType(*probe);
     SPRIG_RETURN_IF_ERROR(CheckArgs(a, config));
     SPRIG_RETURN_IF_ERROR(CheckDecoding(a, *probe));
+    SPRIG_RETURN_IF_ERROR(PrepareInput(a, probe, &context->options, &context->input));
   }
   bench::BuildOptions build;
   build.dtype = dtype;
@@ -175,6 +224,8 @@ Result<bench::Measurement> Run(const BenchArgs& a, bench::ReportContext* context
   o.batches = a.batches.empty() ? std::vector<size_t>{1, 16, 128} : a.batches;
   if (config.family == Family::kTransformer) o.batches = {1};
   o.rows = a.rows;
+  // Rows from a file: by default each repetition runs every row of it once.
+  if (!o.input_rows.empty() && !a.rows_given) o.rows = o.input_rows.size() / config.input_dim;
   o.prompt_tokens = a.prompt_tokens;
   o.decode_tokens = a.decode_tokens;
   o.repeat = a.repeat;
@@ -201,12 +252,48 @@ std::string Spread(const nlohmann::json& s, const char* fmt) {
   return b;
 }
 
+// What the figures were measured on, with the caution for random input.
+void PrintInput(const nlohmann::json& r) {
+  const auto& in = r["input"];
+  const bool stack = r["family"] == "stack";
+  if (in["kind"] == "random") {
+    std::printf("input: random %s, seed %llu\n", stack ? "N(0, 1) rows" : "tokens",
+                static_cast<unsigned long long>(in["seed"].get<uint64_t>()));
+  } else {
+    std::printf("input: %s (%s, %s, %llu %s, sha256 %s)", in["path"].get<std::string>().c_str(),
+                in["kind"].get<std::string>().c_str(),
+                HumanBytes(in["bytes"].get<uint64_t>()).c_str(),
+                static_cast<unsigned long long>(in["units"].get<uint64_t>()),
+                stack ? "rows" : "tokens", in["sha256"].get<std::string>().c_str());
+    if (!stack) {
+      std::printf("; %llu prompts continued by the model's greedy decoding",
+                  static_cast<unsigned long long>(in["prompts"].get<uint64_t>()));
+    }
+    std::printf("\n");
+  }
+  const std::string caution = in["caution"];
+  if (!caution.empty()) std::printf("caution: %s\n", caution.c_str());
+  std::printf("\n");
+}
+
+// Per routed layer, the Shannon entropy of its usage against the maximum, log2(units).
+void PrintUsage(const nlohmann::json& r) {
+  if (r["usage"].empty()) return;
+  std::printf("\nleaf/expert usage entropy (bits of max):");
+  for (const auto& u : r["usage"]) {
+    std::printf(" layer %zu %.2f/%.2f", u["layer"].get<size_t>(), u["entropy_bits"].get<double>(),
+                u["max_entropy_bits"].get<double>());
+  }
+  std::printf("\n");
+}
+
 void PrintText(const nlohmann::json& r) {
   const bool stack = r["family"] == "stack";
   std::printf("%s against %s\n", r["sides"]["model"]["label"].get<std::string>().c_str(),
               r["sides"]["baseline"]["label"].get<std::string>().c_str());
-  std::printf("kernels %s, %zu repetitions interleaved; median [min-max] over repetitions\n\n",
+  std::printf("kernels %s, %zu repetitions interleaved; median [min-max] over repetitions\n",
               r["kernels"].get<std::string>().c_str(), r["settings"]["repeat"].get<size_t>());
+  PrintInput(r);
   std::printf("%-7s %-14s %24s %24s %20s %20s %20s %7s %s\n", "threads", "point",
               stack ? "model rows/s" : "model tokens/s",
               stack ? "baseline rows/s" : "baseline tokens/s", "speedup", "in CPU time",
@@ -247,6 +334,7 @@ void PrintText(const nlohmann::json& r) {
                 HumanBytes(m["mapped_resident_bytes"].get<uint64_t>()).c_str(),
                 m["first_call_ms"].get<double>(), touched.empty() ? "-" : touched.c_str());
   }
+  PrintUsage(r);
   const auto& end = r["process_memory"]["end"];
   const auto& load = r["machine"]["load_average_start"];
   std::printf("\nprocess: resident %s, peak %s (all three models); load average %.2f at start\n",
@@ -290,7 +378,13 @@ Verb AddBench(CLI::App& app) {
                   "compare with the model's dense twin, built from its config for this run (the "
                   "default)");
   baseline->excludes(twin);
-  c->add_option("--rows", a->rows, "stack: rows per repetition at each batch size")
+  c->add_option("--input", a->input,
+                "measure on this file instead of random inputs: stack, float rows [N, in] (.npy); "
+                "transformer, int32/int64 tokens [T] or [B, T] (.npy) or UTF-8 text, cut into "
+                "prompts that the model's greedy decoding continues");
+  c->add_option("--rows", a->rows,
+                "stack: rows per repetition at each batch size (default with --input: the "
+                "file's rows)")
       ->capture_default_str()
       ->each([a](const std::string&) { a->rows_given = true; });
   c->add_option("--batch", a->batches, "stack: rows per call, a list (default 1,16,128)")
@@ -310,7 +404,8 @@ Verb AddBench(CLI::App& app) {
       ->capture_default_str();
   c->add_flag("--cold", a->cold,
               "drop the files from the page cache first, so the first call reads from storage");
-  c->add_option("--seed", a->seed, "seed of the random inputs")->capture_default_str();
+  c->add_option("--seed", a->seed, "seed of the random inputs (without --input)")
+      ->capture_default_str();
   c->add_option("--json", a->json,
                 "write the results as JSON to this file ('-': stdout) instead of the table; "
                 "no progress bar");

@@ -1,9 +1,10 @@
 // sprig run MODEL --input IN.npy --output OUT.npy [--routes R.npz] [--batch N] [--threads N]
 //           [--stats] [--cold]
-// sprig routes MODEL --input IN.npy [--json]
+// sprig routes MODEL --input IN.npy|TEXT [--json]
 //
 // Stack models take float rows [N, in]; transformer models take int32/int64 tokens [T] or
-// [B, T] (each of the B sequences runs independently from position 0).
+// [B, T] (each of the B sequences runs independently from position 0). `routes` also takes UTF-8
+// text for a transformer with a tokenizer, cut into sequences of max_seq tokens.
 #include <algorithm>
 #include <chrono>
 #include <cmath>
@@ -13,7 +14,9 @@
 #include <nlohmann/json.hpp>
 
 #include "base/status_macros.h"
+#include "bench/kit/stats.h"
 #include "cli.h"
+#include "input_file.h"
 #include "io/tensor_archive.h"
 #include "sprig/memory.h"
 #include "sprig/session.h"
@@ -28,6 +31,7 @@ struct RunArgs {
   bool json = false;
   bool stats = false;  // run: print memory and records touched to stderr afterwards
   bool cold = false;   // run: drop the model file from the page cache first
+  bool text = false;   // routes: --input may be text
 };
 
 // The --input array: one array, of floats (rows, for a stack) or integers (tokens, for a
@@ -46,35 +50,6 @@ bool IsRows(const io::NdArray& a) {
 }
 bool IsTokens(const io::NdArray& a) {
   return a.type == io::ElementType::kI32 || a.type == io::ElementType::kI64;
-}
-
-// The array's values as float32 (rows) or int64 (tokens), in order.
-std::vector<float> RowValues(const io::NdArray& a) {
-  std::vector<float> out(a.elements());
-  for (size_t i = 0; i < out.size(); ++i) {
-    if (a.type == io::ElementType::kF32) {
-      std::memcpy(&out[i], a.data + 4 * i, 4);
-    } else {
-      double d;
-      std::memcpy(&d, a.data + 8 * i, 8);
-      out[i] = static_cast<float>(d);
-    }
-  }
-  return out;
-}
-
-std::vector<int64_t> TokenValues(const io::NdArray& a) {
-  std::vector<int64_t> out(a.elements());
-  for (size_t i = 0; i < out.size(); ++i) {
-    if (a.type == io::ElementType::kI32) {
-      int32_t v;
-      std::memcpy(&v, a.data + 4 * i, 4);
-      out[i] = v;
-    } else {
-      std::memcpy(&out[i], a.data + 8 * i, 8);
-    }
-  }
-  return out;
 }
 
 struct RunResult {
@@ -176,6 +151,43 @@ Result<RunResult> RunRows(const RunArgs& a, std::shared_ptr<const Model> model,
   return r;
 }
 
+// Text: the tokens of `bytes` in sequences of max_seq tokens (the last may be shorter), --batch
+// sequences per call. Only routes are kept: the pieces' outputs would not form one array.
+Result<RunResult> RunText(const RunArgs& a, std::shared_ptr<const Model> model,
+                          const std::string& bytes) {
+  SPRIG_ASSIGN_OR_RETURN(std::vector<int32_t> tokens, TokenizeText(a.input, bytes, *model));
+  const ModelConfig& c = model->config();
+  SessionOptions options;
+  options.threads = a.threads;
+  SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model, options));
+  RunResult r;
+  r.model = model;
+  r.rows = tokens.size();
+  const size_t length = c.max_seq, full = tokens.size() / length;
+  Progress progress("running " + a.model);
+  // Whole pieces in batches, then the remainder as one shorter sequence.
+  for (size_t s0 = 0; s0 < full || (s0 == full && tokens.size() % length != 0);) {
+    const size_t n = s0 < full ? std::min(a.batch, full - s0) : 1;
+    const size_t piece = s0 < full ? length : tokens.size() % length;
+    std::vector<uint64_t> shape = {n, piece};
+    SPRIG_ASSIGN_OR_RETURN(std::vector<uint64_t> out_shape,
+                           model->output_shape(InputKind::kTokens, shape));
+    uint64_t size = 1;
+    for (uint64_t d : out_shape) size *= d;
+    std::vector<float> out(size);
+    Routes part;
+    SPRIG_RETURN_IF_ERROR(
+        session->forward_tokens(tokens.data() + s0 * length, n, piece, out.data(), &part));
+    AppendRoutes(r.routes, std::move(part));
+    s0 += n;
+    progress.Update(std::min(s0 * length, tokens.size()), tokens.size());
+  }
+  progress.Finish();
+  r.stats = session->stats();
+  r.summary = std::to_string(tokens.size()) + " tokens of text";
+  return r;
+}
+
 // Float arrays go to the rows call and integer arrays to the tokens call; the runtime says
 // when the model takes the other.
 Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
@@ -184,6 +196,15 @@ Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
   const double open_seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   if (a.batch == 0) return Status::InvalidArgument("--batch must be at least 1");
+  if (a.text) {
+    // Text has none of the tensor files' leading bytes; anything else is read as an array.
+    SPRIG_ASSIGN_OR_RETURN(const std::string bytes, io::ReadFileBytes(a.input));
+    if (IsText(bytes)) {
+      SPRIG_ASSIGN_OR_RETURN(RunResult r, RunText(a, model, bytes));
+      r.open_seconds = open_seconds;
+      return r;
+    }
+  }
   SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, ReadInput(a.input));
   const io::NdArray& input = archive.arrays()[0];
   if (!IsRows(input) && !IsTokens(input)) {
@@ -292,11 +313,8 @@ Usage Summarise(const LayerRoutes& lr, uint64_t units) {
   for (uint64_t c : u.counts) {
     if (c == 0) ++u.dead;
     max_count = std::max(max_count, c);
-    if (c > 0 && u.total > 0) {
-      const double p = static_cast<double>(c) / static_cast<double>(u.total);
-      u.entropy_bits -= p * std::log2(p);
-    }
   }
+  u.entropy_bits = bench::EntropyBits(u.counts);
   std::vector<uint64_t> sorted = u.counts;
   std::sort(sorted.rbegin(), sorted.rend());
   const size_t top = std::max<size_t>(1, (units + 99) / 100);
@@ -405,9 +423,14 @@ Verb AddRun(CLI::App& app) {
 
 Verb AddRoutes(CLI::App& app) {
   auto args = std::make_shared<RunArgs>();
+  args->text = true;
   CLI::App* c = app.add_subcommand(
-      "routes", "Show how rows spread over each routed layer's leaves or experts.");
+      "routes", "Show how rows or tokens spread over each routed layer's leaves or experts.");
   AddCommonOptions(c, *args);
+  c->get_option("--input")->description(
+      "stack: float32/float64 rows [N, input_dim] (.npy); transformer: int32/int64 tokens [T] "
+      "or [B, T] (.npy), or UTF-8 text tokenized with the model's tokenizer and cut into "
+      "sequences of max_seq tokens");
   c->add_flag("--json", args->json, "print JSON");
   return {c, [args] { return RunRoutes(*args); }};
 }

@@ -1,7 +1,10 @@
 // sprig verify MODEL REFERENCE.npz [--atol A] [--rtol R] [--threads N] [--show N] [--json]
+//                                  [--require-routes]
 //
 // Runs a model on a reference file's inputs and compares outputs, every layer's outputs and
-// every routing decision with the reference (as sprig_torch.export writes it). Each routing
+// every routing decision with the reference (as sprig_torch.export writes it). Only `inputs`
+// and `outputs` are required, so a reference written by any tool serves; what it lacks is
+// reported as not checked. Each routing
 // disagreement is judged against how far rounding could have moved its margin; see
 // verify_check.h for the rules.
 #include <algorithm>
@@ -27,6 +30,7 @@ struct VerifyArgs {
   size_t threads = 1;
   size_t show = 20;
   bool json = false;
+  bool require_routes = false;  // a reference without every routed layer's routes does not fit
 };
 
 double ElementAsDouble(const io::NdArray& a, uint64_t i) {
@@ -123,7 +127,8 @@ class Reference {
  private:
   Status Missing(const std::string& name) const {
     return Status::InvalidArgument(path() + " has no array '" + name +
-                                   "'; sprig_torch.export writes every array verify reads");
+                                   "'; verify needs 'inputs' and 'outputs' (and with "
+                                   "--require-routes, 'routes.layer{i}' of every routed layer)");
   }
   io::TensorArchive archive_;
 };
@@ -241,8 +246,32 @@ std::vector<double> Int8MarginBounds(const Model& model, const RoutedLayer& r,
   return bounds;
 }
 
+// "layer 2", "layers 0, 1 and 3"
+std::string LayerList(const std::vector<size_t>& layers) {
+  std::string s = layers.size() == 1 ? "layer " : "layers ";
+  for (size_t i = 0; i < layers.size(); ++i) {
+    s += (i == 0 ? "" : i + 1 == layers.size() ? " and " : ", ") + std::to_string(layers[i]);
+  }
+  return s;
+}
+
+// Says what a reference without some optional arrays leaves unchecked: "routing not checked:
+// the reference has no routes" when it has none of them, else the layers it lacks.
+void NoteNotChecked(const std::vector<size_t>& missing, size_t of, const std::string& what,
+                    const std::string& array, VerifyInputs* v) {
+  if (missing.empty()) return;
+  if (missing.size() == of) {
+    v->not_checked.push_back(what + " not checked: the reference has no " + array);
+  } else {
+    v->not_checked.push_back(what + " of " + LayerList(missing) +
+                             " not checked: the reference has no " + array + ".layer{i} for " +
+                             (missing.size() == 1 ? "it" : "them"));
+  }
+}
+
 // Builds the check's inputs: reference arrays next to what sprig computed.
-Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& got) {
+Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& got,
+                            bool require_routes) {
   const ModelConfig& c = model.config();
   VerifyInputs v;
   v.transformer = c.family == Family::kTransformer;
@@ -263,9 +292,13 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
   v.output.got.assign(got.output.begin(), got.output.end());
   SPRIG_ASSIGN_OR_RETURN(v.output.want, ref.Floats("outputs", got.output.size(), got.shape.back()));
   v.output_per_sequence = c.family == Family::kTransformer && c.head.kind == HeadKind::kClassifier;
+  std::vector<size_t> no_outputs, no_routes, no_margins;
   for (const LayerTrace& t : got.trace) {
     const std::string name = "layer_outputs.layer" + std::to_string(t.layer);
-    if (!ref.Has(name)) continue;  // older references: no per-layer check for this layer
+    if (!ref.Has(name)) {
+      no_outputs.push_back(t.layer);
+      continue;
+    }
     Compared layer;
     layer.name = name;
     layer.layer = t.layer;
@@ -288,8 +321,21 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
     }
     r.in = layers[lr.layer].in;
     r.got.assign(lr.choices.begin(), lr.choices.end());
+    if (!ref.Has("routes" + suffix)) {
+      if (require_routes) {
+        return Status::InvalidArgument(ref.path() + " has no array 'routes" + suffix +
+                                       "'; --require-routes needs the routes of every routed "
+                                       "layer");
+      }
+      no_routes.push_back(lr.layer);
+      continue;
+    }
     SPRIG_ASSIGN_OR_RETURN(r.want, ref.Ints("routes" + suffix, got.rows, lr.width));
-    SPRIG_ASSIGN_OR_RETURN(r.margins, ref.Floats("margins" + suffix, got.rows, 0));
+    if (ref.Has("margins" + suffix)) {
+      SPRIG_ASSIGN_OR_RETURN(r.margins, ref.Floats("margins" + suffix, got.rows, 0));
+    } else {
+      no_margins.push_back(lr.layer);
+    }
     // The sensitivity arrays are optional: without them a flip is listed but not explained.
     if (ref.Has("margin_scales" + suffix) && ref.Has("margin_norms" + suffix) &&
         ref.Has("layer_inputs" + suffix)) {
@@ -310,6 +356,12 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
       if (r.storage == DType::kI8) r.int8_bounds = Int8MarginBounds(model, r, want_in, got.rows);
     }
     v.routed.push_back(std::move(r));
+  }
+  NoteNotChecked(no_outputs, got.trace.size(), "per-layer outputs", "layer_outputs", &v);
+  NoteNotChecked(no_routes, got.routes.layers.size(), "routing", "routes", &v);
+  if (!no_margins.empty()) {
+    v.not_checked.push_back("routing disagreements of " + LayerList(no_margins) +
+                            " cannot be explained: the reference has no margins");
   }
   return v;
 }
@@ -359,8 +411,12 @@ void PrintReport(const VerifyArgs& a, const VerifyReport& r) {
           f.bound_input, FlipVerdictText(f.verdict));
     }
   }
+  for (const std::string& n : r.not_checked) std::printf("  %s\n", n.c_str());
   if (r.first_divergent_layer >= 0) {
     std::printf("  first layer whose outputs diverge: %d\n", r.first_divergent_layer);
+  } else if (!r.output.ok) {
+    // Only the model's outputs differ: no compared layer locates where.
+    std::printf("  first layer whose outputs diverge: none of those compared; the outputs do\n");
   } else {
     std::printf("  first layer whose outputs diverge: none\n");
   }
@@ -418,6 +474,7 @@ nlohmann::json ReportJson(const VerifyArgs& a, const VerifyReport& r) {
   j["first_divergent_layer"] = r.first_divergent_layer >= 0
                                    ? nlohmann::json(r.first_divergent_layer)
                                    : nlohmann::json(nullptr);
+  j["not_checked"] = r.not_checked;
   j["pass"] = r.pass;
   return j;
 }
@@ -435,7 +492,7 @@ int RunVerify(const VerifyArgs& a) {
   auto got = (*model)->config().family == Family::kStack ? RunStack(**session, ref)
                                                          : RunTokens(**session, ref);
   if (!got.ok()) return Fail("verify", got.status());
-  auto inputs = Gather(**model, ref, *got);
+  auto inputs = Gather(**model, ref, *got, a.require_routes);
   if (!inputs.ok()) return Fail("verify", inputs.status());
   Tolerance tol = DefaultTolerance(inputs->storage);
   if (a.rtol >= 0) tol.rtol = a.rtol;
@@ -458,12 +515,13 @@ Verb AddVerify(CLI::App& app) {
   auto args = std::make_shared<VerifyArgs>();
   CLI::App* c =
       app.add_subcommand("verify",
-                         "Check a model against reference outputs and routes (reference.npz from "
-                         "sprig_torch.export): exit 0 when they agree, 1 when they do not.");
+                         "Check a model against a reference's outputs (and its routes and layer "
+                         "outputs when it has them): exit 0 when they agree, 1 when they do not, "
+                         "2 when the reference does not fit the model.");
   c->add_option("MODEL", args->model, "the .sprig file")->required();
   c->add_option("REFERENCE", args->reference,
-                "reference .npz: inputs, outputs, routes.layer{i}, margins.layer{i} and "
-                "optionally layer_outputs/layer_inputs/margin_scales/margin_norms.layer{i}")
+                "reference .npz: inputs and outputs; optionally routes, margins, layer_outputs, "
+                "layer_inputs, margin_scales and margin_norms, each .layer{i}")
       ->required();
   c->add_option("--atol", args->atol,
                 "absolute tolerance (default: a factor of each array's RMS, by storage type)");
@@ -472,6 +530,9 @@ Verb AddVerify(CLI::App& app) {
   c->add_option("--show", args->show, "disagreements listed per layer in the text report")
       ->capture_default_str();
   c->add_flag("--json", args->json, "print the report as JSON");
+  c->add_flag("--require-routes", args->require_routes,
+              "refuse (exit 2) a reference without the routes of every routed layer: for a "
+              "release check that must cover routing");
   c->footer(
       "An element passes when |sprig - reference| <= atol + rtol * |reference|. A routing "
       "disagreement is explained when its margin is within what the storage type's rounding, "

@@ -77,12 +77,14 @@ Flip JudgeFlip(const RoutedLayer& l, uint64_t row, bool follows_earlier) {
   f.row = row;
   f.want = Choices(l.want, row, l.width);
   f.got = Choices(l.got, row, l.width);
-  f.margin = l.margins[row];
+  // Without margins in the reference a flip cannot be judged against rounding.
+  f.margin = l.margins.empty() ? std::nan("") : l.margins[row];
   if (follows_earlier) {
     f.verdict = FlipVerdict::kFollowsEarlierFlip;
     return f;
   }
-  if (l.scales.empty()) return f;  // no sensitivities in the reference: cannot explain
+  // No margin or sensitivities in the reference: cannot explain.
+  if (l.scales.empty() || l.margins.empty()) return f;
   // float32 accumulation over the n products and the bias (Higham eq. 3.5).
   const double gamma = static_cast<double>(l.in + 1) * std::ldexp(1.0, -24);
   f.bound_rounding = l.int8_bounds.empty() ? (StorageRoundoff(l.storage) + gamma) * l.scales[row]
@@ -180,6 +182,7 @@ VerifyReport CheckAgainstReference(const VerifyInputs& in, const Tolerance& tol)
   report.rtol = tol.rtol;
   report.atol_factor = tol.atol;
   report.atol_is_relative = tol.atol_relative_to_rms;
+  report.not_checked = in.not_checked;
   std::vector<uint64_t> affected_from(in.rows, kNever);
   for (const RoutedLayer& l : in.routed) {
     report.routing.push_back(CheckRouting(in, l, affected_from));

@@ -23,7 +23,8 @@
 //   transformer, a flip at token t also affects the later tokens of its sequence; for a
 //   non-causal one, the whole sequence.
 // - The check passes when every compared array is within tolerance and no disagreement is
-//   unexplained.
+//   unexplained. It covers what the reference gives: inputs and outputs are required; per-layer
+//   outputs, routes and margins are optional, and what is missing is listed as not checked.
 #pragma once
 
 #include <cstdint>
@@ -64,7 +65,8 @@ struct RoutedLayer {
   LayerKind kind = LayerKind::kTree;
   DType storage = DType::kF32;     // of the deciding weights
   std::vector<int64_t> got, want;  // [rows, width]
-  std::vector<double> margins;     // [rows]
+  std::vector<double> margins;     // [rows]; empty when the reference has none (no flip is
+                                   // then explained)
   // Optional (empty when the reference lacks them): [rows] each.
   std::vector<double> scales, norms, input_error;
   // int8 deciding weights only (empty otherwise): [rows] absolute bounds on how far storage
@@ -82,6 +84,8 @@ struct VerifyInputs {
   Compared output;
   std::vector<Compared> layers;
   std::vector<RoutedLayer> routed;  // in layer order
+  // What the reference did not give and so was not checked, one sentence each.
+  std::vector<std::string> not_checked;
 };
 
 struct ComparedResult {
@@ -125,6 +129,7 @@ struct VerifyReport {
   // when there is none.
   int first_divergent_layer = -1;
   bool pass = true;
+  std::vector<std::string> not_checked;  // VerifyInputs::not_checked: the verdict leaves it out
 };
 
 VerifyReport CheckAgainstReference(const VerifyInputs& inputs, const Tolerance& tolerance);
