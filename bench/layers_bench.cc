@@ -26,7 +26,6 @@
 #include <algorithm>
 #include <cstdio>
 #include <cstring>
-#include <ctime>
 #include <map>
 #include <memory>
 #include <string>
@@ -36,6 +35,7 @@
 #include "converter/config/config_json.h"
 #include "converter/synth/synth.h"
 #include "kernels/kernels.h"
+#include "platform/process.h"
 #include "sprig/session.h"
 
 #ifdef SPRIG_HAVE_BLAS
@@ -214,9 +214,7 @@ double Median(std::vector<double> v) {
 // This thread's CPU time in microseconds: unlike wall time it leaves out the time other
 // processes hold the core, which on a shared machine is most of the noise.
 double ThreadMicros() {
-  timespec t;
-  clock_gettime(CLOCK_THREAD_CPUTIME_ID, &t);
-  return double(t.tv_sec) * 1e6 + double(t.tv_nsec) / 1e3;
+  return sprig::platform::ThreadCpuSeconds() * 1e6;
 }
 
 enum class Input { kCold, kWarm };

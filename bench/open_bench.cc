@@ -10,22 +10,18 @@
 #include <chrono>
 #include <cstdio>
 #include <cstdlib>
-#include <fstream>
 #include <string>
 #include <vector>
 
+#include "sprig/memory.h"
 #include "sprig/model.h"
 
 namespace {
 
-// Resident set size in bytes, from /proc/self/status.
+// Resident set size in bytes (sprig::ReadProcessMemory: VmRSS on Linux, the working set on
+// Windows).
 long long ResidentBytes() {
-  std::ifstream in("/proc/self/status");
-  std::string line;
-  while (std::getline(in, line)) {
-    if (line.rfind("VmRSS:", 0) == 0) return std::atoll(line.c_str() + 6) * 1024;
-  }
-  return -1;
+  return static_cast<long long>(sprig::ReadProcessMemory().rss);
 }
 
 }  // namespace

@@ -1,10 +1,11 @@
 // AtomicFile: write a file so that it appears complete at its destination or not at all.
 //
-// The data goes to an anonymous temporary file in the destination's folder (O_TMPFILE where the
-// file system supports it, so that even a process killed with SIGKILL leaves nothing behind;
-// otherwise a hidden, uniquely named temporary that the destructor removes). Commit() flushes
-// it to disk and gives it its name in one rename; a destructor without Commit() discards it.
-// Not thread-safe; one writer per object.
+// The data goes to a temporary file in the destination's folder (platform::PendingFile: an
+// anonymous one on Linux where the file system supports O_TMPFILE, so that even a process killed
+// with SIGKILL leaves nothing behind; otherwise a uniquely named temporary that the destructor
+// removes). Commit() flushes it to disk and gives it its name in one step; a destructor without
+// Commit() discards it. Writes are gathered here in a large buffer. Not thread-safe; one writer
+// per object.
 #pragma once
 
 #include <cstddef>
@@ -13,6 +14,10 @@
 #include <string>
 
 #include "sprig/status.h"
+
+namespace sprig::platform {
+class PendingFile;
+}
 
 namespace sprig::io {
 
@@ -34,11 +39,13 @@ class AtomicFile {
   // Overwrites bytes at `offset` (which must lie within what was written).
   Status WriteAt(uint64_t offset, const void* data, size_t size);
   uint64_t size() const { return size_; }
-  // fsync, then link or rename to the destination, then fsync the folder.
+  // Flushes to disk, then gives the file its name (never replacing an existing file without
+  // `overwrite`) and makes the name durable; see platform/output_file.h.
   Status Commit();
 
   // Tests only: when true, Create() uses the named temporary even where O_TMPFILE works, so
-  // that path can be exercised on any file system. Not thread-safe; set before writing.
+  // that path can be exercised on any file system (Windows always uses it). Not thread-safe; set
+  // before writing.
   static void ForceNamedTemporaryForTesting(bool force);
 
  private:
@@ -47,12 +54,9 @@ class AtomicFile {
   Status Flush();
   Status WriteAll(const void* data, size_t size);
   Status Fail(Status status);
-  Status CommitAnonymous();
-  Status CommitNamed();
 
   std::string path_;
-  std::string temp_path_;  // empty when the temporary is anonymous (O_TMPFILE)
-  int fd_ = -1;
+  std::unique_ptr<platform::PendingFile> file_;  // null once committed or discarded
   bool overwrite_ = false;
   uint64_t size_ = 0;
   // Writes are gathered in a large buffer so that many small ones cost few system calls.

@@ -8,12 +8,17 @@
 
 #include "sprig/status.h"
 
+namespace sprig::platform {
+class FileMapping;
+}
+
 namespace sprig::io {
 
 class MappedFile {
  public:
   // Maps `path` (a regular file). An empty file maps to data() == nullptr, size() == 0.
-  // Errors: NotFound when the file does not exist, IOError when it cannot be opened or mapped.
+  // Errors: NotFound when the file does not exist, IOError when it is a folder, not a regular
+  // file, or cannot be opened or mapped (platform::FileMapping).
   static Result<std::shared_ptr<const MappedFile>> Open(const std::string& path);
   // A view of `size` bytes at `data` that the caller keeps alive and unchanged for as long as
   // the MappedFile and every array read from it are used; nothing is mapped or unmapped. For
@@ -28,11 +33,10 @@ class MappedFile {
   uint64_t size() const { return size_; }
 
  private:
-  MappedFile(const uint8_t* data, uint64_t size, bool mapped)
-      : data_(data), size_(size), mapped_(mapped) {}
+  MappedFile(const uint8_t* data, uint64_t size, std::unique_ptr<platform::FileMapping> mapping);
   const uint8_t* data_;
   uint64_t size_;
-  bool mapped_;  // false: memory owned by the caller of FromMemory
+  std::unique_ptr<platform::FileMapping> mapping_;  // null: memory owned by FromMemory's caller
 };
 
 }  // namespace sprig::io

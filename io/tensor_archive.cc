@@ -12,6 +12,7 @@
 #include "io/npy.h"
 #include "io/npz.h"
 #include "io/safetensors.h"
+#include "platform/files.h"
 
 namespace sprig::io {
 
@@ -57,7 +58,7 @@ Result<TensorArchive> TensorArchive::Open(const std::string& path) {
     case ArchiveKind::kNpy: {
       SPRIG_ASSIGN_OR_RETURN(NdArray array,
                              DecodeNpy(file->data(), file->size(), file,
-                                       std::filesystem::path(path).stem().string(), path));
+                                       platform::Utf8(platform::FsPath(path).stem()), path));
       archive.arrays_.push_back(std::move(array));
       break;
     }

@@ -3,11 +3,11 @@
 #include <algorithm>
 #include <chrono>
 #include <cstdio>
-#include <ctime>
 
 #include "base/status_macros.h"
 #include "bench/kit/models.h"
 #include "numeric/random.h"
+#include "platform/process.h"
 
 namespace sprig::bench {
 namespace {
@@ -22,13 +22,12 @@ double Seconds(Clock::time_point a, Clock::time_point b) {
 // includes the time other programs held the CPU, and a long run absorbs more of it than a short
 // one; CPU time does not.
 double ProcessCpuSeconds() {
-  timespec t{};
-  clock_gettime(CLOCK_PROCESS_CPUTIME_ID, &t);
-  return static_cast<double>(t.tv_sec) + static_cast<double>(t.tv_nsec) * 1e-9;
+  return platform::ProcessCpuSeconds();
 }
 
 // Samples of the memory curve per first pass: enough for a smooth line, few enough that reading
-// /proc/self/smaps (about a millisecond) stays out of the way.
+// the mapping's resident pages (/proc/self/smaps on Linux, about a millisecond) stays out of
+// the way.
 constexpr size_t kCurveSamples = 48;
 
 // The inputs of one repetition: stack rows are fixed for the run (distinct rows within a

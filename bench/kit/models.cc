@@ -1,7 +1,5 @@
 #include "bench/kit/models.h"
 
-#include <unistd.h>
-
 #include <atomic>
 #include <cstdio>
 #include <filesystem>
@@ -16,6 +14,8 @@
 #include "format/model_file.h"
 #include "model/config_check.h"
 #include "model/flops.h"
+#include "platform/files.h"
+#include "platform/process.h"
 #include "sprig/memory.h"
 
 namespace sprig::bench {
@@ -67,10 +67,9 @@ Status CopyFromDonor(const std::string& donor_path, std::vector<io::NdArray>* ar
 std::string TemporaryPath(const std::string& folder) {
   static std::atomic<int> counter{0};
   const std::filesystem::path dir =
-      folder.empty() ? std::filesystem::temp_directory_path() : std::filesystem::path(folder);
-  return (dir /
-          (".sprig-bench-" + std::to_string(getpid()) + "-" + std::to_string(counter++) + ".sprig"))
-      .string();
+      platform::FsPath(folder.empty() ? platform::TemporaryFolder() : folder);
+  return platform::Utf8(dir / (".sprig-bench-" + std::to_string(platform::ProcessId()) + "-" +
+                               std::to_string(counter++) + ".sprig"));
 }
 
 }  // namespace
@@ -130,7 +129,7 @@ Result<std::shared_ptr<const Model>> BuildUnlinkedModel(const ModelConfig& confi
     (void)EvictFromPageCache(path);
   }
   auto model = Model::open(path);
-  std::remove(path.c_str());  // the mapping stays valid until the model is closed
+  (void)platform::RemoveFile(path);  // the mapping stays valid until the model is closed
   return model;
 }
 

@@ -6,6 +6,8 @@
 #include <set>
 #include <vector>
 
+#include "platform/files.h"
+
 namespace sprig::convert::internal {
 namespace {
 
@@ -72,7 +74,7 @@ Result<nlohmann::json> ParseJsonText(const std::string& text, const std::string&
 }
 
 Result<std::string> ReadTextFile(const std::string& path, uint64_t max_bytes, const char* what) {
-  std::FILE* file = std::fopen(path.c_str(), "rb");
+  std::FILE* file = platform::OpenFile(path, "rb");
   if (file == nullptr) {
     const int err = errno;
     std::string message = path + ": cannot open the " + what + " file: " + std::strerror(err);

@@ -1,7 +1,5 @@
 #include "converter/pack/packer.h"
 
-#include <sys/stat.h>
-
 #include <chrono>
 #include <condition_variable>
 #include <cstring>
@@ -16,6 +14,7 @@
 #include "format/preamble.h"
 #include "io/atomic_file.h"
 #include "io/tensor_archive.h"
+#include "platform/files.h"
 #include "sprig_schema/model_generated.h"
 
 namespace sprig::convert {
@@ -258,13 +257,6 @@ Status WriteRecords(const LayoutPlan& plan, const std::vector<const io::NdArray*
   return Status::Ok();
 }
 
-// True when a and b name the same existing file.
-bool SameFile(const std::string& a, const std::string& b) {
-  struct stat sa, sb;
-  if (stat(a.c_str(), &sa) != 0 || stat(b.c_str(), &sb) != 0) return false;
-  return sa.st_dev == sb.st_dev && sa.st_ino == sb.st_ino;
-}
-
 // One line per layout decision, for options.describe_layout.
 void DescribeLayout(const std::string& out_path, size_t header_size, uint64_t data_start,
                     const LayoutPlan& plan, const PackOptions& options) {
@@ -358,7 +350,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
 Result<PackSummary> PackFiles(const std::string& config_path, const std::string& weights_path,
                               const std::string& out_path, const PackOptions& options) {
   const auto start = std::chrono::steady_clock::now();
-  if (SameFile(out_path, config_path) || SameFile(out_path, weights_path)) {
+  if (platform::SameFile(out_path, config_path) || platform::SameFile(out_path, weights_path)) {
     return Status::InvalidArgument("the output " + out_path +
                                    " is one of the inputs; choose another output path");
   }

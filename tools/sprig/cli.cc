@@ -1,8 +1,8 @@
 #include "cli.h"
 
-#include <unistd.h>
-
 #include <cstdio>
+
+#include "platform/process.h"
 
 namespace sprig::cli {
 
@@ -55,7 +55,7 @@ Progress::Progress(std::string label)
     : label_(std::move(label)),
       start_(std::chrono::steady_clock::now()),
       last_(start_),
-      tty_(isatty(STDERR_FILENO) != 0) {}
+      tty_(platform::IsTerminal(stderr)) {}
 
 void Progress::Update(uint64_t done, uint64_t total) {
   const auto now = std::chrono::steady_clock::now();

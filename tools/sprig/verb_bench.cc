@@ -8,7 +8,6 @@
 // model's own weights for everything else, packed into an unlinked temporary file so it is
 // paged in from storage like any model. The inputs are the user's (--input: rows, tokens or
 // text) or random ones, and the report says which.
-#include <unistd.h>
 
 #include <algorithm>
 #include <chrono>
@@ -22,6 +21,7 @@
 #include "cli.h"
 #include "input_file.h"
 #include "io/atomic_file.h"
+#include "platform/process.h"
 #include "sprig/memory.h"
 #include "sprig/model.h"
 #include "tools/report/report.h"
@@ -42,7 +42,7 @@ struct BenchArgs {
 // A progress bar on a terminal: "[#######.......]  45%  step 12 of 27".
 class Bar {
  public:
-  explicit Bar(bool on) : on_(on && isatty(STDERR_FILENO)) {}
+  explicit Bar(bool on) : on_(on && platform::IsTerminal(stderr)) {}
   void Update(size_t done, size_t total) {
     if (!on_ || total == 0) return;
     // Redraw at most ten times a second (and at the end): steps can take microseconds.
@@ -165,18 +165,6 @@ Status PrepareInput(const BenchArgs& a, const std::shared_ptr<const Model>& prob
   return Status::Ok();
 }
 
-// The command line as run, for the report (from /proc/self/cmdline; empty elsewhere).
-std::string CommandLine() {
-  std::string line;
-  if (FILE* f = std::fopen("/proc/self/cmdline", "rb")) {
-    int c;
-    while ((c = std::fgetc(f)) != EOF) line += c == 0 ? ' ' : static_cast<char>(c);
-    std::fclose(f);
-  }
-  while (!line.empty() && line.back() == ' ') line.pop_back();
-  return line;
-}
-
 Status WriteText(const std::string& path, const std::string& text) {
   SPRIG_ASSIGN_OR_RETURN(io::AtomicFile f, io::AtomicFile::Create(path, /*overwrite=*/true));
   SPRIG_RETURN_IF_ERROR(f.Write(text.data(), text.size()));
@@ -234,7 +222,7 @@ Result<bench::Measurement> Run(const BenchArgs& a, bench::ReportContext* context
   context->paths[bench::kBaseline] = a.baseline;
   context->baseline_kind = a.baseline.empty() ? "dense_twin" : "file";
   context->cold = a.cold;
-  context->command = CommandLine();
+  context->command = platform::CommandLine();
   context->load_start = bench::LoadAverages();
   Bar bar(a.json.empty());
   o.progress = [&bar](size_t done, size_t total) { bar.Update(done, total); };

@@ -5,12 +5,12 @@
 // Text continuation for models with the byte tokenizer: each UTF-8 byte of the
 // prompt is one token, and each generated token is printed as one byte the
 // moment it is chosen.
-#include <unistd.h>
 
 #include <cstdio>
 #include <memory>
 
 #include "cli.h"
+#include "platform/process.h"
 #include "sprig/session.h"
 
 namespace sprig::cli {
@@ -49,7 +49,7 @@ int RunGenerate(const GenerateArgs& a) {
     ++generated;
     return true;
   });
-  if (isatty(fileno(stdout))) std::fputc('\n', stdout);
+  if (platform::IsTerminal(stdout)) std::fputc('\n', stdout);
   std::fflush(stdout);
   if (!s.ok()) return Fail("generate", s);
   if ((*session)->position() >= c.max_seq && generated < a.options.count) {

@@ -1,6 +1,5 @@
 // sprig pack CONFIG WEIGHTS -o OUT [--dtype f32|f16|bf16|i8] [--dtype-nodes T] [--dtype-records T]
 //   [--dtype-dense T] [--rename MAP] [--force]
-#include <unistd.h>
 
 #include <cstdio>
 #include <cstdlib>
@@ -9,6 +8,7 @@
 #include "base/status_macros.h"
 #include "cli.h"
 #include "converter/pack/packer.h"
+#include "platform/files.h"
 
 namespace sprig::cli {
 namespace {
@@ -49,7 +49,7 @@ void PrintStorageErrors(const std::vector<convert::TensorError>& errors) {
 }
 
 int RunPack(const PackArgs& a) {
-  if (!a.force && access(a.out.c_str(), F_OK) == 0) {
+  if (!a.force && platform::Exists(a.out)) {
     return Fail("pack", Status::InvalidArgument(a.out + " already exists; pass --force to "
                                                         "overwrite it"));
   }

@@ -24,14 +24,16 @@ namespace sprig {
 // the kernel, and none of them failing makes open fail.
 struct OpenOptions {
   // Tell the kernel that record sections are read at random, so it does not read neighbouring
-  // leaves ahead of use (MADV_RANDOM). Default: true.
+  // leaves ahead of use (MADV_RANDOM; Windows has no such advice). Default: true.
   bool advise_random_records = true;
   // Ask the kernel to start reading the hot section (routing nodes, dense layers) in the
-  // background (MADV_WILLNEED); open does not wait for it. Default: true.
+  // background (MADV_WILLNEED; PrefetchVirtualMemory on Windows 8 and later); open does not
+  // wait for it. Default: true.
   bool warm_hot = true;
-  // Lock the hot section in memory (mlock), so it is never paged out. This reads the hot
-  // section during open and needs RLIMIT_MEMLOCK to allow it; if it fails the model still
-  // opens and hot_locked() says false. Default: false.
+  // Lock the hot section in memory (mlock; VirtualLock on Windows), so it is never paged out.
+  // This reads the hot section during open and needs RLIMIT_MEMLOCK (on Windows the working-set
+  // minimum) to allow it; if it fails the model still opens and hot_locked() says false.
+  // Default: false.
   bool lock_hot = false;
 };
 
@@ -44,9 +46,10 @@ struct SectionResidency {
   uint64_t resident_bytes = 0;
 };
 
-// The file's sections and how much of each is in the page cache (mincore(2), whole pages), plus
-// totals. Pages count whether this process touched them or not; they stay after use until the
-// kernel reclaims them.
+// The file's sections and how much of each is in memory, whole pages, plus totals. POSIX
+// (mincore(2)): the system's page cache; pages count whether this process touched them or not,
+// and stay after use until the kernel reclaims them. Windows (QueryWorkingSetEx): this
+// process's working set only; pages in the system's file cache alone do not count.
 struct Residency {
   std::vector<SectionResidency> sections;
   uint64_t hot_size = 0, hot_resident = 0;
@@ -167,13 +170,15 @@ class SPRIG_API Model {
   // the damaged tensors and records. May take a while on large files.
   Status verify_checksums() const;
 
-  // Which parts of the file are in memory now (see Residency). Costs one mincore call per
-  // section and a byte per page.
+  // Which parts of the file are in memory now (see Residency). Costs one query per section
+  // and a few bytes per page.
   Residency residency() const;
-  // Bytes of the model's mapping in this process's resident set now (the mapping's Rss in
-  // /proc/self/smaps): pages this process has read and still maps, unlike residency(), which
-  // counts the page cache whoever read it. 0 where the system does not tell (outside Linux).
-  // Each call reads all of /proc/self/smaps, so it is not for inner loops.
+  // Bytes of the model's mapping in this process's resident set now: pages this process has
+  // read and still maps, unlike residency() on POSIX, which counts the page cache whoever read
+  // it. Linux: the mapping's Rss in /proc/self/smaps (each call reads all of it, so it is not
+  // for inner loops). Windows: the mapping's pages in the working set (QueryWorkingSetEx), the
+  // same figure as residency(). Other POSIX systems have no such query and give the page-cache
+  // figure, an upper bound.
   uint64_t process_resident_bytes() const;
   // True when OpenOptions::lock_hot was set and the hot section is locked in memory.
   bool hot_locked() const;

@@ -232,17 +232,22 @@ SPRIG_API int sprig_session_touched(const sprig_session_t* session, size_t index
                                     uint64_t* touched, uint64_t* records, uint64_t* record_size,
                                     char** errptr);
 
-/* How much of the model's file is in the page cache now (mincore(2)): the hot section and the
- * record sections, each as bytes resident of bytes in all. */
+/* How much of the model's file is in memory now: the hot section and the record sections, each
+ * as bytes resident of bytes in all. POSIX: pages in the system's page cache, whoever read them
+ * (mincore(2)). Windows: pages in this process's working set (QueryWorkingSetEx); pages only in
+ * the system's file cache do not count. */
 typedef struct sprig_residency_t {
   uint64_t hot_size, hot_resident;
   uint64_t records_size, records_resident;
 } sprig_residency_t;
 SPRIG_API void sprig_model_residency(const sprig_model_t* model, sprig_residency_t* residency);
 
-/* This process's memory now (from /proc/self/status and getrusage): resident bytes, the peak,
- * file-backed and anonymous resident bytes, and page-fault counts. Zeros where the system does
- * not tell. */
+/* This process's memory now: resident bytes, the peak, file-backed and anonymous resident
+ * bytes, and page-fault counts. Linux: VmRSS, VmHWM, RssFile, RssAnon (/proc/self/status) and
+ * getrusage's fault counts. Windows: the working set and its peak (GetProcessMemoryInfo), no
+ * file/anonymous split (0) and all page faults as minor_faults (major_faults 0). Other POSIX
+ * systems: the peak (ru_maxrss) and the fault counts only. Zeros where the system does not
+ * tell. */
 typedef struct sprig_process_memory_t {
   uint64_t rss, peak_rss, rss_file, rss_anon;
   uint64_t minor_faults, major_faults;

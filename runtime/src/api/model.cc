@@ -1,9 +1,5 @@
 #include "sprig/model.h"
 
-#include <cinttypes>
-#include <cstdio>
-#include <cstring>
-
 #include "api/input_rules.h"
 #include "api/model_impl.h"
 #include "base/status_macros.h"
@@ -11,6 +7,7 @@
 #include "model/flops.h"
 #include "model/tensor_spec.h"
 #include "network/stack_network.h"
+#include "platform/mapping.h"
 #include "transformer/transformer.h"
 
 namespace sprig {
@@ -164,26 +161,7 @@ Residency Model::residency() const {
 }
 
 uint64_t Model::process_resident_bytes() const {
-  FILE* f = std::fopen("/proc/self/smaps", "r");
-  if (!f) return 0;
-  const uintptr_t want = reinterpret_cast<uintptr_t>(impl_->file->base());
-  char line[512];
-  bool in_mapping = false;
-  uint64_t rss = 0;
-  while (std::fgets(line, sizeof(line), f)) {
-    uintptr_t start = 0, end = 0;
-    // A mapping's first line is "start-end perms offset dev inode path"; its fields follow.
-    if (std::sscanf(line, "%" SCNxPTR "-%" SCNxPTR " ", &start, &end) == 2 &&
-        std::strchr(line, ' ') > std::strchr(line, '-')) {
-      if (in_mapping) break;
-      in_mapping = start == want;
-      continue;
-    }
-    unsigned long long kb = 0;
-    if (in_mapping && std::sscanf(line, "Rss: %llu kB", &kb) == 1) rss = kb * 1024;
-  }
-  std::fclose(f);
-  return rss;
+  return platform::TouchedBytes(impl_->file->mapping());
 }
 
 }  // namespace sprig

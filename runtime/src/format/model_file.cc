@@ -1,12 +1,6 @@
 #include "format/model_file.h"
 
-#include <fcntl.h>
-#include <sys/mman.h>
-#include <sys/stat.h>
-#include <unistd.h>
-
 #include <algorithm>
-#include <cerrno>
 #include <cstring>
 #include <map>
 #include <set>
@@ -16,6 +10,7 @@
 #include "format/preamble.h"
 #include "model/config_check.h"
 #include "model/tensor_spec.h"
+#include "platform/mapping.h"
 #include "sprig_schema/model_generated.h"
 
 namespace sprig::format {
@@ -42,15 +37,6 @@ std::string Num(uint64_t v) {
   return std::to_string(v);
 }
 
-// MADV_WILLNEED over [p, p + size): queues reading without waiting. The kernel caps one call at
-// its read-ahead window, so long ranges go in pieces.
-void WillNeed(uint8_t* p, uint64_t size) {
-  constexpr uint64_t kPiece = 2u << 20;
-  for (uint64_t off = 0; off < size; off += kPiece) {
-    madvise(p + off, std::min(kPiece, size - off), MADV_WILLNEED);
-  }
-}
-
 // The scales of an i8 tensor's rows in each record: inside the record and 4-byte aligned in
 // the file (records start where the header says, so every record's offset is checked).
 Status CheckRecordScales(const TensorInfo& t, const RecordSetInfo& rs, const std::string& which) {
@@ -71,84 +57,53 @@ Status CheckRecordScales(const TensorInfo& t, const RecordSetInfo& rs, const std
 }  // namespace
 
 uint64_t ResidentBytes(const uint8_t* data, uint64_t size) {
-  if (size == 0) return 0;
-  // mincore works in the system's pages, which may be larger than the file's 4 KiB alignment:
-  // query from the page holding `data` and clip the first and last pages to the range.
-  const uint64_t page = static_cast<uint64_t>(sysconf(_SC_PAGESIZE));
-  const uintptr_t begin = reinterpret_cast<uintptr_t>(data);
-  const uintptr_t start = begin - begin % page;
-  const uint64_t pages = (begin + size - start + page - 1) / page;
-  std::vector<unsigned char> vec(pages);
-  if (mincore(reinterpret_cast<void*>(start), begin + size - start, vec.data()) != 0) return 0;
-  uint64_t resident = 0;
-  for (uint64_t i = 0; i < pages; ++i) {
-    if ((vec[i] & 1) == 0) continue;
-    const uint64_t lo = std::max<uint64_t>(start + i * page, begin);
-    const uint64_t hi = std::min<uint64_t>(start + (i + 1) * page, begin + size);
-    resident += hi - lo;
-  }
-  return resident;
+  return platform::ResidentBytes(data, size);
 }
 
-ModelFile::~ModelFile() {
-  if (base_ != nullptr) munmap(const_cast<uint8_t*>(base_), size_);
-  if (fd_ >= 0) close(fd_);
-}
+ModelFile::~ModelFile() = default;
 
 Result<std::unique_ptr<ModelFile>> ModelFile::Open(const std::string& path,
                                                    const OpenFileOptions& options) {
   std::unique_ptr<ModelFile> f(new ModelFile());
   f->path_ = path;
-  f->fd_ = open(path.c_str(), O_RDONLY | O_CLOEXEC);
-  if (f->fd_ < 0) {
-    const int err = errno;
-    if (err == ENOENT) return Status::NotFound(path + " does not exist");
-    return Status::IOError("cannot open " + path + ": " + std::strerror(err));
-  }
-  struct stat st;
-  if (fstat(f->fd_, &st) != 0 || !S_ISREG(st.st_mode)) {
-    return Status::InvalidArgument(path + " is not a regular file");
-  }
-  f->size_ = static_cast<uint64_t>(st.st_size);
+  SPRIG_ASSIGN_OR_RETURN(f->mapping_, platform::FileMapping::Open(path));
+  f->base_ = f->mapping_->data();
+  f->size_ = f->mapping_->size();
   if (f->size_ < kPreambleSize) {
     // Still distinguish "not ours" from "ours but cut short" for the message.
     uint8_t head[kPreambleSize] = {};
-    const ssize_t n = pread(f->fd_, head, sizeof(head), 0);
-    auto r = DecodePreamble(head, n < 0 ? 0 : static_cast<uint64_t>(n), f->size_, path.c_str());
+    if (f->size_ > 0) std::memcpy(head, f->base_, f->size_);
+    auto r = DecodePreamble(head, f->size_, f->size_, path.c_str());
     return r.ok() ? Status::Corruption(path + " is truncated") : r.status();
   }
-  void* map = mmap(nullptr, f->size_, PROT_READ, MAP_SHARED, f->fd_, 0);
-  if (map == MAP_FAILED) {
-    return Status::IOError("cannot map " + path + ": " + std::strerror(errno));
-  }
-  f->base_ = static_cast<const uint8_t*>(map);
-  uint8_t* const base = static_cast<uint8_t*>(map);
+  const uint8_t* const base = f->base_;
   // A page fault on a normal mapping reads a window of up to the device's read-ahead size
   // around the page (often megabytes), regardless of section boundaries: faults on the header
   // or the end of the hot section would pull in the first records. So the whole mapping starts
   // as random access (faults read only their page); the header is then queued in one go and
-  // the hot section is queued or faulted normally below. madvise failures only cost speed.
-  if (options.advise_random_records) madvise(base, f->size_, MADV_RANDOM);
+  // the hot section is queued or faulted normally below. Hints only cost speed when they fail.
+  if (options.advise_random_records)
+    platform::Advise(base, f->size_, platform::AccessHint::kRandom);
   if (auto pre = DecodePreamble(base, f->size_, f->size_, path.c_str()); pre.ok()) {
-    WillNeed(base, pre->header_offset + pre->header_size);
+    platform::Advise(base, pre->header_offset + pre->header_size, platform::AccessHint::kWillNeed);
   }
   SPRIG_RETURN_IF_ERROR(f->Index(path));
   for (const SectionInfo& s : f->sections_) {
     if (s.records || s.size == 0) continue;
-    uint8_t* hot = base + s.offset;
+    const uint8_t* hot = base + s.offset;
     if (options.warm_hot) {
       // Queue the whole hot section for reading and return without waiting for it, so open
       // stays as fast as reading the header. Its pages are then cached when first touched and
       // their faults read nothing around them.
-      WillNeed(hot, s.size);
+      platform::Advise(hot, s.size, platform::AccessHint::kWillNeed);
     } else if (options.advise_random_records) {
       // Read-around helps a cold hot section; it can still read up to half a read-ahead
       // window of the first records past the section's end.
-      madvise(hot, s.size, MADV_NORMAL);
+      platform::Advise(hot, s.size, platform::AccessHint::kNormal);
     }
-    // mlock faults the pages in now and may fail (RLIMIT_MEMLOCK); that is not an error, the
-    // caller can ask hot_locked(). munmap in the destructor drops the lock.
-    if (options.lock_hot) f->hot_locked_ = mlock(hot, s.size) == 0;
+    // Locking faults the pages in now and may fail (RLIMIT_MEMLOCK, the working-set minimum);
+    // that is not an error, the caller can ask hot_locked(). Unmapping drops the lock.
+    if (options.lock_hot) f->hot_locked_ = platform::LockInMemory(hot, s.size);
   }
   return f;
 }

@@ -12,6 +12,7 @@
 #include <vector>
 
 #include "format/row_map.h"
+#include "platform/mapping.h"
 #include "sprig/config.h"
 #include "sprig/status.h"
 
@@ -62,14 +63,15 @@ struct TensorInfo {
 struct OpenFileOptions {
   // Advise the kernel that record sections are read at random (no read-ahead of neighbours).
   bool advise_random_records = true;
-  // Ask the kernel to start reading the hot section in the background (MADV_WILLNEED).
+  // Ask the system to start reading the hot section in the background (AccessHint::kWillNeed).
   bool warm_hot = true;
-  // Lock the hot section in memory (mlock), which reads it now. Best effort.
+  // Lock the hot section in memory (mlock; VirtualLock), which reads it now. Best effort.
   bool lock_hot = false;
 };
 
-// Bytes of [data, data + size), a range inside a mapping, whose pages are in memory
-// (mincore(2), page granularity); 0 when the query fails.
+// Bytes of [data, data + size), a range inside a mapping, whose pages are in memory (page
+// granularity; platform::ResidentBytes: the page cache on POSIX, this process's working set on
+// Windows); 0 when the query fails.
 uint64_t ResidentBytes(const uint8_t* data, uint64_t size);
 
 class ModelFile {
@@ -88,6 +90,8 @@ class ModelFile {
   uint64_t file_size() const { return size_; }
   uint64_t header_size() const { return header_size_; }
   const uint8_t* base() const { return base_; }
+  // The whole file's mapping (for the platform's queries about it).
+  const platform::FileMapping& mapping() const { return *mapping_; }
   // True when OpenFileOptions::lock_hot was asked for and mlock succeeded.
   bool hot_locked() const { return hot_locked_; }
 
@@ -114,7 +118,7 @@ class ModelFile {
   Status Index(const std::string& source);
 
   std::string path_;
-  int fd_ = -1;
+  std::unique_ptr<platform::FileMapping> mapping_;
   const uint8_t* base_ = nullptr;
   uint64_t size_ = 0;
   uint32_t version_ = 0;

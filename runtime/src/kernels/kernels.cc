@@ -7,57 +7,32 @@
 
 #include "base/log.h"
 #include "kernels/kernels_internal.h"
-
-#if defined(__aarch64__) && defined(__linux__)
-#include <asm/hwcap.h>
-#include <sys/auxv.h>
-#endif
-#if (defined(__x86_64__) || defined(_M_X64)) && (defined(__GNUC__) || defined(__clang__))
-#include <cpuid.h>
-#endif
+#include "platform/cpu.h"
 
 namespace sprig::kernels {
 namespace {
 
-#if (defined(__x86_64__) || defined(_M_X64)) && (defined(__GNUC__) || defined(__clang__))
-// F16C from CPUID leaf 1 (ECX bit 29): clang's __builtin_cpu_supports does not know "f16c".
-bool HasF16c() {
-  unsigned eax = 0, ebx = 0, ecx = 0, edx = 0;
-  return __get_cpuid(1, &eax, &ebx, &ecx, &edx) != 0 && (ecx & bit_F16C) != 0;
-}
-#endif
-
 constexpr KernelPath kAllPaths[] = {KernelPath::kScalar, KernelPath::kSse42, KernelPath::kAvx2,
                                     KernelPath::kAvx512, KernelPath::kNeon};
 
+// The platform layer reads CPUID and XGETBV (x86-64) or asks the system (aarch64), so a path
+// counts only when the OS also saves its registers.
 bool CpuSupports(KernelPath path) {
+  const platform::CpuFeatures& cpu = platform::DetectCpu();
   switch (path) {
     case KernelPath::kScalar:
       return true;
-#if (defined(__x86_64__) || defined(_M_X64)) && (defined(__GNUC__) || defined(__clang__))
-    // __builtin_cpu_supports also checks that the OS saves the AVX / AVX-512 register state.
+#if defined(__x86_64__) || defined(_M_X64)
     case KernelPath::kSse42:
-      __builtin_cpu_init();
-      return __builtin_cpu_supports("sse4.2");
+      return cpu.sse42;
     case KernelPath::kAvx2:
-      __builtin_cpu_init();
-      return __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma") && HasF16c();
+      return cpu.avx2 && cpu.fma && cpu.f16c;
     case KernelPath::kAvx512:
-      __builtin_cpu_init();
-      return __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512bw") &&
-             __builtin_cpu_supports("avx512dq") && __builtin_cpu_supports("avx512vl") &&
-             __builtin_cpu_supports("fma") && HasF16c();
+      return cpu.avx512f && cpu.avx512bw && cpu.avx512dq && cpu.avx512vl && cpu.fma && cpu.f16c;
 #endif
 #if defined(__aarch64__)
-    // Advanced SIMD (with the f16 <-> f32 conversions the path uses) is required of AArch64
-    // cores meant for standard software, but the architecture lets specialised cores omit it;
-    // Linux reports it as HWCAP_ASIMD, so such a core falls back to scalar instead of faulting.
     case KernelPath::kNeon:
-#if defined(__linux__)
-      return (getauxval(AT_HWCAP) & HWCAP_ASIMD) != 0;
-#else
-      return true;
-#endif
+      return cpu.neon;
 #endif
     default:
       return false;
