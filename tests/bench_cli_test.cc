@@ -121,17 +121,31 @@ void ExpectSummary(const json& s, const std::string& what) {
   EXPECT_LE(s["p99"].get<double>(), s["max"].get<double>()) << what;
 }
 
+// False for a CPU-time summary whose figures are null where the documentation allows it: on
+// Windows, whose process CPU time advances in ticks of 10 to 16 ms, longer than these short
+// repetitions. Everywhere else it must be a full summary.
+bool CpuClockAdvanced(const json& summary) {
+#ifdef _WIN32
+  return summary["min"].is_number() && summary["max"].is_number();
+#else
+  (void)summary;
+  return true;
+#endif
+}
+
 void ExpectSaneResults(const json& r, size_t repeat) {
   for (const json& p : r["results"]) {
     const std::string at = p["phase"].get<std::string>() + "/" + p["batch"].dump();
     for (const char* side : kSides) {
       ExpectSummary(p[side]["per_second"], at + " " + side + " per_second");
-      ExpectSummary(p[side]["cpu_per_second"], at + " " + side + " cpu_per_second");
+      if (CpuClockAdvanced(p[side]["cpu_per_second"])) {
+        ExpectSummary(p[side]["cpu_per_second"], at + " " + side + " cpu_per_second");
+      }
       ExpectSummary(p[side]["latency_ms"], at + " " + side + " latency_ms");
       EXPECT_EQ(p[side]["per_second"]["count"], repeat) << at;
     }
     ExpectSummary(p["speedup"], at + " speedup");
-    ExpectSummary(p["cpu_speedup"], at + " cpu_speedup");
+    if (CpuClockAdvanced(p["cpu_speedup"])) ExpectSummary(p["cpu_speedup"], at + " cpu_speedup");
     ExpectSummary(p["bound"], at + " bound");
     // null only for models of nothing but routed layers, which these are not.
     ASSERT_TRUE(p["flops_bound"].is_number()) << at;

@@ -459,9 +459,9 @@ TEST_F(CApiTest, ProgramCompiledAsCAgreesWithCpp) {
   auto cpp = CppSession(stack_, 1);
   ASSERT_TRUE(cpp);
   const std::string kernel = cpp->kernel_path();
-  auto r =
-      testing::Run("SPRIG_KERNEL_PATH=" + kernel + " " + testing::BuiltProgram(SPRIG_C_SMOKE_PATH) +
-                   " " + Quote(stack_) + " " + Quote(lm_));
+  auto r = testing::Run(testing::WithEnv(
+      "SPRIG_KERNEL_PATH", kernel,
+      testing::BuiltProgram(SPRIG_C_SMOKE_PATH) + " " + Quote(stack_) + " " + Quote(lm_)));
   ASSERT_EQ(r.exit_code, 0) << r.output;
   EXPECT_NE(r.output.find(std::string("version ") + sprig_version() + "\n"), std::string::npos)
       << r.output;

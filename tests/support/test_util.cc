@@ -61,8 +61,10 @@ std::string Quote(const std::string& s) {
 CommandResult Run(const std::string& command_line) {
   CommandResult r;
   // cmd /c removes the first and the last quote of a line that starts with one; the outer pair
-  // added here is what it removes, so the line's own quotes reach the program intact.
-  FILE* p = _popen(("\"" + command_line + " 2>&1\"").c_str(), "rb");
+  // added here is what it removes, so the line's own quotes reach the program intact. The line
+  // goes as UTF-16: _popen would pass it through the ANSI code page, which mangles UTF-8 names.
+  const std::wstring line = FsPath("\"" + command_line + " 2>&1\"").wstring();
+  FILE* p = _wpopen(line.c_str(), L"rb");
   if (p == nullptr) return r;
   char buf[4096];
   size_t n;
@@ -98,6 +100,14 @@ CommandResult Run(const std::string& command_line) {
   return r;
 }
 #endif
+
+std::string WithEnv(const std::string& name, const std::string& value, const std::string& command) {
+#ifdef _WIN32
+  return "set \"" + name + "=" + value + "\"&& " + command;
+#else
+  return name + "=" + Quote(value) + " " + command;
+#endif
+}
 
 std::string BuiltProgram(const std::string& program) {
 #ifdef SPRIG_TEST_EMULATOR

@@ -33,6 +33,10 @@ struct CommandResult {
 // Runs a shell command line and captures what it prints.
 CommandResult Run(const std::string& command_line);
 
+// `command` run with the environment variable `name` set to `value` (`NAME=value command` in a
+// POSIX shell, `set "NAME=value"&& command` in cmd.exe).
+std::string WithEnv(const std::string& name, const std::string& value, const std::string& command);
+
 // A command-line prefix that runs `program`, a program built with the tests: its quoted path,
 // preceded in a cross build by the emulator that runs the tests (CMAKE_CROSSCOMPILING_EMULATOR),
 // since a shell started from an emulated test is a host shell that cannot start it directly.

@@ -33,6 +33,9 @@ int main(int argc, char** argv) {
       "sprig runs tree-routed and expert-routed feed-forward models on laptop CPUs.\n"
       "Run 'sprig VERB --help' for a verb's options."};
   app.require_subcommand(1);
+  // Options are spelled --name on every system. CLI11 would also read "/name" as an option on
+  // Windows, and so mistake a path such as /data/notes.sprig for one; every verb inherits this.
+  app.allow_windows_style_options(false);
   app.set_version_flag("--version", "sprig " SPRIG_VERSION);
   std::vector<sprig::cli::Verb> verbs = {
       sprig::cli::AddPack(app),   sprig::cli::AddInspect(app), sprig::cli::AddSynth(app),
