@@ -70,18 +70,31 @@ void GemmRowsInt8(const int8_t* q, const float* scales, const float* x, const fl
 constexpr float kSqrtHalf = 0.70710678118654752440f;       // 1/√2
 constexpr float kSqrtTwoOverPi = 0.79788456080286535588f;  // √(2/π)
 
+// e^x and erfc(x) of a float, evaluated in double and rounded once. The float functions of C
+// libraries differ in their last bits (glibc's, MinGW-w64's, each architecture's), and the
+// scalar path must give the same bits wherever it runs. A double result within an ulp of double
+// precision rounds to the correctly rounded float except when the exact value lies within
+// 2^-29 float ulps of a rounding boundary, so every system whose double functions are that
+// accurate gives the same float, the correctly rounded one, but in those rare cases.
+float ExpRoundedOnce(float x) {
+  return static_cast<float>(std::exp(static_cast<double>(x)));
+}
+float ErfcRoundedOnce(float x) {
+  return static_cast<float>(std::erfc(static_cast<double>(x)));
+}
+
 float Relu(float x) {
   return x < 0.0f ? 0.0f : x;
 }
 float Gelu(float x) {
-  return 0.5f * x * std::erfc(-x * kSqrtHalf);
+  return 0.5f * x * ErfcRoundedOnce(-x * kSqrtHalf);
 }
 float GeluTanh(float x) {
   const float u = kSqrtTwoOverPi * (x + 0.044715f * x * x * x);
-  return x / (1.0f + std::exp(-2.0f * u));
+  return x / (1.0f + ExpRoundedOnce(-2.0f * u));
 }
 float Silu(float x) {
-  return x / (1.0f + std::exp(-x));
+  return x / (1.0f + ExpRoundedOnce(-x));
 }
 
 float Apply(Activation act, float x) {
@@ -112,7 +125,7 @@ void Softmax(float* x, size_t n) {
   for (size_t i = 1; i < n; ++i) max = x[i] > max ? x[i] : max;
   float sum = 0.0f;
   for (size_t i = 0; i < n; ++i) {
-    x[i] = std::exp(x[i] - max);
+    x[i] = ExpRoundedOnce(x[i] - max);
     sum += x[i];
   }
   const float inv = 1.0f / sum;
