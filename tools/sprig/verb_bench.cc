@@ -11,6 +11,7 @@
 
 #include <algorithm>
 #include <chrono>
+#include <cmath>
 #include <cstdio>
 #include <memory>
 #include <string>
@@ -233,6 +234,11 @@ Result<bench::Measurement> Run(const BenchArgs& a, bench::ReportContext* context
 }
 
 std::string Spread(const nlohmann::json& s, const char* fmt) {
+  // No figure where none was measured: a CPU clock that did not advance in a repetition
+  // (Windows counts CPU time in ticks of 10 to 16 ms) leaves the CPU-time rates undefined.
+  for (const char* key : {"median", "min", "max"}) {
+    if (!s[key].is_number() || !std::isfinite(s[key].get<double>())) return "-";
+  }
   char b[96];
   const std::string f = std::string(fmt) + " [" + fmt + "-" + fmt + "]";
   std::snprintf(b, sizeof b, f.c_str(), s["median"].get<double>(), s["min"].get<double>(),
@@ -325,10 +331,12 @@ void PrintText(const nlohmann::json& r) {
   PrintUsage(r);
   const auto& end = r["process_memory"]["end"];
   const auto& load = r["machine"]["load_average_start"];
-  std::printf("\nprocess: resident %s, peak %s (all three models); load average %.2f at start\n",
+  // Windows keeps no load average: the report says so rather than print a zero.
+  char load_text[32] = "unknown";
+  if (!load.empty()) std::snprintf(load_text, sizeof load_text, "%.2f", load[0].get<double>());
+  std::printf("\nprocess: resident %s, peak %s (all three models); load average %s at start\n",
               HumanBytes(end["rss_bytes"].get<uint64_t>()).c_str(),
-              HumanBytes(end["peak_rss_bytes"].get<uint64_t>()).c_str(),
-              load.empty() ? 0.0 : load[0].get<double>());
+              HumanBytes(end["peak_rss_bytes"].get<uint64_t>()).c_str(), load_text);
 }
 
 int RunBench(const BenchArgs& a) {
