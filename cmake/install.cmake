@@ -29,5 +29,10 @@ install(FILES ${PROJECT_BINARY_DIR}/sprigConfig.cmake ${PROJECT_BINARY_DIR}/spri
 # `cmake --install --prefix` puts it.
 file(RELATIVE_PATH SPRIG_PC_TO_PREFIX "/${CMAKE_INSTALL_LIBDIR}/pkgconfig" "/")
 string(REGEX REPLACE "/$" "" SPRIG_PC_TO_PREFIX "${SPRIG_PC_TO_PREFIX}")
+# Static users also link the system libraries the runtime calls (Windows: psapi, shell32).
+set(SPRIG_PC_SYSTEM_LIBS "")
+foreach(lib ${SPRIG_SYSTEM_LIBRARIES})
+  string(APPEND SPRIG_PC_SYSTEM_LIBS " -l${lib}")
+endforeach()
 configure_file(${PROJECT_SOURCE_DIR}/cmake/sprig.pc.in ${PROJECT_BINARY_DIR}/sprig.pc @ONLY)
 install(FILES ${PROJECT_BINARY_DIR}/sprig.pc DESTINATION ${CMAKE_INSTALL_LIBDIR}/pkgconfig)

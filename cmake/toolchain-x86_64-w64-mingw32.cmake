@@ -3,7 +3,7 @@
 #   cmake -S . -B build-windows -DCMAKE_TOOLCHAIN_FILE=cmake/toolchain-x86_64-w64-mingw32.cmake
 # The target's libraries (zlib from libz-mingw-w64-dev, the MinGW runtime) live under
 # /usr/x86_64-w64-mingw32. The header-only libraries come from the host's /usr/include through
-# cmake/windows-deps.cmake, never by adding /usr/include itself, which would put the host's C
+# cmake/dependencies.cmake, never by adding /usr/include itself, which would put the host's C
 # library headers in front of MinGW's. Programs run at build time (flatc, Python) are the host's.
 set(CMAKE_SYSTEM_NAME Windows)
 set(CMAKE_SYSTEM_PROCESSOR x86_64)

@@ -12,10 +12,11 @@ WORK="${2:-$(mktemp -d)}"
 mkdir -p "$WORK"
 PREFIX="$WORK/prefix"
 WINE_RUN="$ROOT/cmake/wine-run.sh"
-export WINEDEBUG=-all
+export WINEDEBUG=-all WINEDLLOVERRIDES="mscoree=;mshtml="
 
 echo "== install into a temporary prefix"
-cmake --install "$BUILD" --prefix "$PREFIX" > "$WORK/install.log"
+cmake --install "$BUILD" --prefix "$PREFIX" > "$WORK/install.log" 2>&1 ||
+  (cat "$WORK/install.log" && exit 1)
 for f in bin/sprig.dll bin/sprig.exe lib/libsprig.dll.a lib/libsprig.a include/sprig/sprig.h \
   lib/pkgconfig/sprig.pc lib/cmake/sprig/sprigConfig.cmake; do
   test -f "$PREFIX/$f" || { echo "error: the package has no $f" >&2; exit 1; }

@@ -165,7 +165,9 @@ TEST_F(ErrorPaths, PackStoppedMidwayLeavesNoDestination) {
     for (const auto& e : std::filesystem::directory_iterator(testing::FsPath(dir_.path()))) {
       const std::string name = testing::Utf8(e.path().filename());
       std::error_code ec;
-      if (name != "config.json" && name != "w.npz" && e.file_size(ec) >= (1u << 20)) {
+      // The file's own size, not the folder listing's copy, which NTFS updates lazily.
+      if (name != "config.json" && name != "w.npz" &&
+          std::filesystem::file_size(e.path(), ec) >= (1u << 20) && !ec) {
         stopped = TerminateProcess(process.hProcess, 9) != 0;
         break;
       }
@@ -173,6 +175,8 @@ TEST_F(ErrorPaths, PackStoppedMidwayLeavesNoDestination) {
     if (WaitForSingleObject(process.hProcess, 0) == WAIT_OBJECT_0 && !stopped) break;
     std::this_thread::sleep_for(std::chrono::milliseconds(1));
   }
+  // Never wait on a pack that was not stopped: end it first, then report.
+  if (!stopped) TerminateProcess(process.hProcess, 1);
   WaitForSingleObject(process.hProcess, INFINITE);
   DWORD code = 0;
   GetExitCodeProcess(process.hProcess, &code);

@@ -128,9 +128,17 @@ Result<std::shared_ptr<const Model>> BuildUnlinkedModel(const ModelConfig& confi
     // the start is warmer than asked, which the residency figures then show.
     (void)EvictFromPageCache(path);
   }
-  auto model = Model::open(path);
-  (void)platform::RemoveFile(path);  // the mapping stays valid until the model is closed
-  return model;
+  auto opened = Model::open(path);
+  // POSIX removes the name at once; the mapping stays valid until the model is closed.
+  if (platform::RemoveFile(path).ok() || !opened.ok()) return opened;
+  // Windows refuses to delete a mapped file: the last user of the model closes it, then
+  // removes the file, so no model-sized temporary is left behind.
+  std::shared_ptr<const Model> model = std::move(opened).value();
+  const Model* raw = model.get();
+  return std::shared_ptr<const Model>(raw, [model, path](const Model*) mutable {
+    model.reset();
+    (void)platform::RemoveFile(path);
+  });
 }
 
 }  // namespace sprig::bench

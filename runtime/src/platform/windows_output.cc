@@ -43,6 +43,8 @@ Status WriteAtOffset(HANDLE file, const std::string& path, uint64_t offset, cons
     if (!WriteFile(file, p, want, &written, &where)) {
       return Status::IOError("cannot write " + path + ": " + WindowsErrorText(GetLastError()));
     }
+    // A call that succeeds without writing would loop forever; a full volume can do this.
+    if (written == 0) return Status::IOError("cannot write " + path + ": nothing was written");
     p += written;
     offset += written;
     size -= written;
