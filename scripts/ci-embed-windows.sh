@@ -23,9 +23,10 @@ for f in bin/sprig.dll bin/sprig.exe lib/libsprig.dll.a lib/libsprig.a include/s
 done
 
 echo "== build samples/embed against the installed package (CMake, MinGW-w64)"
-cmake -S "$ROOT/samples/embed" -B "$WORK/embed" -DCMAKE_PREFIX_PATH="$PREFIX" \
+# The toolchain file confines package searches to the target's root (/usr/x86_64-w64-mingw32,
+# where zlib is), so the package is named by its folder.
+cmake -S "$ROOT/samples/embed" -B "$WORK/embed" -Dsprig_DIR="$PREFIX/lib/cmake/sprig" \
   -DCMAKE_TOOLCHAIN_FILE="$ROOT/cmake/toolchain-x86_64-w64-mingw32.cmake" \
-  -DCMAKE_FIND_ROOT_PATH="$PREFIX;/usr/x86_64-w64-mingw32" \
   -DCMAKE_BUILD_TYPE=Release > "$WORK/embed-configure.log" 2>&1 ||
   (cat "$WORK/embed-configure.log" && exit 1)
 cmake --build "$WORK/embed" -j "$(nproc)" > "$WORK/embed-build.log" 2>&1 ||
@@ -33,10 +34,13 @@ cmake --build "$WORK/embed" -j "$(nproc)" > "$WORK/embed-build.log" 2>&1 ||
 
 echo "== build the C example with pkg-config"
 # The host's pkg-config reads the package's sprig.pc; only the package's folder is searched.
+# The example's clock_gettime comes from winpthreads, linked in, as the CMake build does
+# through the toolchain file, so that the program needs no MinGW DLL beside sprig.dll.
 # shellcheck disable=SC2046  # pkg-config prints several flags
 x86_64-w64-mingw32-gcc-posix -std=c11 -Wall -Wextra -o "$WORK/note_suggest_pc.exe" \
   "$ROOT/samples/embed/note_suggest.c" \
-  $(PKG_CONFIG_LIBDIR="$PREFIX/lib/pkgconfig" pkg-config --cflags --libs sprig)
+  $(PKG_CONFIG_LIBDIR="$PREFIX/lib/pkgconfig" pkg-config --cflags --libs sprig) \
+  -Wl,-Bstatic -lwinpthread -Wl,-Bdynamic
 
 echo "== run all three on the sample model under Wine"
 "$WINE_RUN" "$PREFIX/bin/sprig.exe" pack "$ROOT/samples/lm/tree/config.json" \
