@@ -2,6 +2,7 @@
 #pragma once
 
 #include <CLI/CLI.hpp>
+#include <nlohmann/json.hpp>
 
 #include <chrono>
 #include <cstdint>
@@ -13,6 +14,10 @@
 namespace sprig::cli {
 
 // docs/verbs.md: 0 success, 1 a check failed, 2 bad usage or input.
+// JSON output replaces bytes that are not UTF-8 (a POSIX file name may hold any bytes) with
+// U+FFFD instead of failing: pass as dump(2, ' ', false, kReplaceInvalidUtf8).
+inline constexpr auto kReplaceInvalidUtf8 = nlohmann::json::error_handler_t::replace;
+
 inline constexpr int kExitOk = 0;
 inline constexpr int kExitCheckFailed = 1;
 inline constexpr int kExitBadInput = 2;

@@ -349,9 +349,9 @@ int RunBench(const BenchArgs& a) {
     if (!s.ok()) return Fail("bench", s);
   }
   if (a.json == "-") {
-    std::printf("%s\n", report.dump(2).c_str());
+    std::printf("%s\n", report.dump(2, ' ', false, kReplaceInvalidUtf8).c_str());
   } else if (!a.json.empty()) {
-    Status s = WriteText(a.json, report.dump(2) + "\n");
+    Status s = WriteText(a.json, report.dump(2, ' ', false, kReplaceInvalidUtf8) + "\n");
     if (!s.ok()) return Fail("bench", s);
   } else {
     PrintText(report);

@@ -188,7 +188,7 @@ int RunInspect(const InspectArgs& a) {
   if (a.json) {
     nlohmann::json j = ToJson(f);
     if (a.check) j["check"] = {{"ok", check.ok()}, {"message", check.message()}};
-    std::printf("%s\n", j.dump(2).c_str());
+    std::printf("%s\n", j.dump(2, ' ', false, kReplaceInvalidUtf8).c_str());
   } else {
     PrintHuman(f, a.tensors);
     if (a.check) {

@@ -369,7 +369,7 @@ int RunRoutes(const RunArgs& a) {
                              {"dead", u.dead},
                              {"imbalance", u.imbalance}});
     }
-    std::printf("%s\n", j.dump(2).c_str());
+    std::printf("%s\n", j.dump(2, ' ', false, kReplaceInvalidUtf8).c_str());
     return kExitOk;
   }
   std::printf("%s: routes of %zu rows\n", a.model.c_str(), r->rows);

@@ -4,8 +4,8 @@
 
 #include "cli.h"
 #include "converter/config/config_json.h"
-#include "io/tensor_archive.h"
 #include "converter/synth/synth.h"
+#include "io/tensor_archive.h"
 
 namespace sprig::cli {
 namespace {

@@ -502,7 +502,7 @@ int RunVerify(const VerifyArgs& a) {
   }
   const VerifyReport report = CheckAgainstReference(*inputs, tol);
   if (a.json) {
-    std::printf("%s\n", ReportJson(a, report).dump(2).c_str());
+    std::printf("%s\n", ReportJson(a, report).dump(2, ' ', false, kReplaceInvalidUtf8).c_str());
   } else {
     PrintReport(a, report);
   }
