@@ -61,10 +61,12 @@ struct PlannedRecordSet {
 struct PlannedSection {
   std::string name;
   bool records = false;
+  bool tokenizer = false;  // the tokenizer section (after the records)
   uint64_t offset = 0;
   uint64_t size = 0;
   uint64_t padding = 0;
   int layer = -1;
+  uint32_t crc32 = 0;  // tokenizer section only
 };
 
 struct LayoutPlan {

@@ -10,12 +10,14 @@
 #include "base/status_macros.h"
 #include "converter/pack/convert.h"
 #include "converter/pack/layout.h"
+#include "converter/tokenizer/sentencepiece_model.h"
 #include "format/header_config.h"
 #include "format/preamble.h"
 #include "io/atomic_file.h"
 #include "io/tensor_archive.h"
 #include "platform/files.h"
 #include "sprig_schema/model_generated.h"
+#include "tokenizer/tokenizer.h"
 
 namespace sprig::convert {
 namespace {
@@ -41,9 +43,11 @@ std::vector<uint8_t> BuildHeader(const ModelConfig& config, const LayoutPlan& pl
   auto producer = b.CreateString(kProducer);
   std::vector<flatbuffers::Offset<fb::Section>> sections;
   for (const PlannedSection& s : plan.sections) {
-    sections.push_back(fb::CreateSection(
-        b, b.CreateString(s.name), s.records ? fb::SectionKind::Records : fb::SectionKind::Hot,
-        s.offset, s.size, s.padding, s.layer));
+    const fb::SectionKind kind = s.records     ? fb::SectionKind::Records
+                                 : s.tokenizer ? fb::SectionKind::Tokenizer
+                                               : fb::SectionKind::Hot;
+    sections.push_back(fb::CreateSection(b, b.CreateString(s.name), kind, s.offset, s.size,
+                                         s.padding, s.layer, s.crc32));
   }
   auto sections_vec = b.CreateVector(sections);
   std::vector<flatbuffers::Offset<fb::Tensor>> tensors;
@@ -257,6 +261,38 @@ Status WriteRecords(const LayoutPlan& plan, const std::vector<const io::NdArray*
   return Status::Ok();
 }
 
+// Puts the tokenizer section (when there is one) after everything else, page-aligned, so the
+// weights' layout is the same with or without it.
+void AddTokenizerSection(const std::string& bytes, LayoutPlan& plan) {
+  if (bytes.empty()) return;
+  PlannedSection s;
+  s.name = "tokenizer";
+  s.tokenizer = true;
+  s.offset = format::AlignUp(plan.file_size, kPageSize);
+  s.size = bytes.size();
+  s.crc32 = format::Crc32(reinterpret_cast<const uint8_t*>(bytes.data()), bytes.size());
+  plan.file_size = s.offset + s.size;
+  plan.sections.push_back(s);
+}
+
+// A config with tokenizer "sentencepiece" comes with its tokenizer section; no other config does.
+Status CheckTokenizerSection(const ModelConfig& config, const PackOptions& options) {
+  const bool wanted = config.tokenizer == Tokenizer::kSentencePiece;
+  if (wanted && options.tokenizer_section.empty()) {
+    return Status::InvalidArgument(
+        "the config names tokenizer \"sentencepiece\"; give its SentencePiece model with "
+        "--tokenizer FILE.model");
+  }
+  if (!wanted && !options.tokenizer_section.empty()) {
+    return Status::InvalidArgument(std::string("a tokenizer was given, but the config names "
+                                               "tokenizer \"") +
+                                   ToString(config.tokenizer) +
+                                   "\"; set \"tokenizer\": \"sentencepiece\" in config.json to "
+                                   "store a SentencePiece vocabulary");
+  }
+  return Status::Ok();
+}
+
 // One line per layout decision, for options.describe_layout.
 void DescribeLayout(const std::string& out_path, size_t header_size, uint64_t data_start,
                     const LayoutPlan& plan, const PackOptions& options) {
@@ -276,6 +312,28 @@ void DescribeLayout(const std::string& out_path, size_t header_size, uint64_t da
   }
 }
 
+// The tokenizer section for `config` from the SentencePiece model at `model_path`: the config
+// must name tokenizer "sentencepiece" and its vocab_size must be the model's piece count.
+Result<std::string> ReadTokenizerSection(const ModelConfig& config, const std::string& config_path,
+                                         const std::string& model_path) {
+  if (config.tokenizer != Tokenizer::kSentencePiece) {
+    return Status::InvalidArgument(std::string("--tokenizer ") + model_path + " was given, but " +
+                                   config_path + " names tokenizer \"" +
+                                   ToString(config.tokenizer) +
+                                   "\"; set \"tokenizer\": \"sentencepiece\" to store a "
+                                   "SentencePiece vocabulary");
+  }
+  SPRIG_ASSIGN_OR_RETURN(tokenizer::TokenizerSpec spec, ReadSentencePieceModel(model_path));
+  if (spec.pieces.size() != config.vocab_size) {
+    return Status::InvalidArgument(model_path + " has a vocabulary of " +
+                                   std::to_string(spec.pieces.size()) + " pieces, but " +
+                                   config_path + " says vocab_size " +
+                                   std::to_string(config.vocab_size) +
+                                   "; they must be equal (the embedding has one row per piece)");
+  }
+  return tokenizer::SerializeSection(spec);
+}
+
 }  // namespace
 
 Result<DType> ParseStorageType(const std::string& text, const std::string& option) {
@@ -290,6 +348,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
                                 const std::vector<MatchedTensor>& tensors,
                                 const std::string& out_path, const PackOptions& options) {
   const auto start = std::chrono::steady_clock::now();
+  SPRIG_RETURN_IF_ERROR(CheckTokenizerSection(config, options));
   std::vector<TensorSpec> specs;
   std::vector<const io::NdArray*> sources;
   PackSummary summary;
@@ -300,6 +359,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
   }
   // Reserve header space from a draft whose size equals the final one (see BuildHeader).
   LayoutPlan plan = PlanLayout(config, specs, options.storage, kPageSize);
+  AddTokenizerSection(options.tokenizer_section, plan);
   for (size_t i = 0; i < plan.tensors.size(); ++i) {
     const PlannedTensor& t = plan.tensors[i];
     summary.errors.push_back({t.spec.name, t.dtype, MeasureStorageError(*sources[i], t.dtype)});
@@ -312,6 +372,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
   const size_t header_size = BuildHeader(config, plan, crc, summary.errors).size();
   const uint64_t data_start = format::AlignUp(format::kPreambleSize + header_size, kPageSize);
   plan = PlanLayout(config, specs, options.storage, data_start);
+  AddTokenizerSection(options.tokenizer_section, plan);
   if (options.describe_layout) DescribeLayout(out_path, header_size, data_start, plan, options);
   for (const PlannedTensor& t : plan.tensors) {
     summary.tensor_bytes += t.rows * (t.row_bytes + t.scale_row_bytes);
@@ -324,6 +385,12 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
     SPRIG_RETURN_IF_ERROR(writer.PadTo(data_start));
     SPRIG_RETURN_IF_ERROR(WriteHot(plan, sources, writer, crc, buffer));
     SPRIG_RETURN_IF_ERROR(WriteRecords(plan, sources, writer, crc, buffer));
+    for (const PlannedSection& s : plan.sections) {
+      if (!s.tokenizer) continue;
+      SPRIG_RETURN_IF_ERROR(writer.PadTo(s.offset));
+      SPRIG_RETURN_IF_ERROR(writer.Put(
+          reinterpret_cast<const uint8_t*>(options.tokenizer_section.data()), s.size));
+    }
     SPRIG_RETURN_IF_ERROR(writer.PadTo(plan.file_size));
     SPRIG_RETURN_IF_ERROR(writer.Finish());
   }
@@ -355,10 +422,21 @@ Result<PackSummary> PackFiles(const std::string& config_path, const std::string&
                                    " is one of the inputs; choose another output path");
   }
   SPRIG_ASSIGN_OR_RETURN(ModelConfig config, ReadConfigFile(config_path));
+  if (config.tokenizer == Tokenizer::kSentencePiece && options.tokenizer_model.empty()) {
+    return Status::InvalidArgument(config_path +
+                                   " names tokenizer \"sentencepiece\"; give its SentencePiece "
+                                   "model with --tokenizer FILE.model");
+  }
   SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, io::TensorArchive::Open(weights_path));
   SPRIG_ASSIGN_OR_RETURN(std::vector<MatchedTensor> matched,
                          MatchTensors(config, archive, options.rename));
-  SPRIG_ASSIGN_OR_RETURN(PackSummary summary, PackTensors(config, matched, out_path, options));
+  PackOptions with_tokenizer = options;
+  if (!options.tokenizer_model.empty()) {
+    SPRIG_ASSIGN_OR_RETURN(with_tokenizer.tokenizer_section,
+                           ReadTokenizerSection(config, config_path, options.tokenizer_model));
+  }
+  SPRIG_ASSIGN_OR_RETURN(PackSummary summary,
+                         PackTensors(config, matched, out_path, with_tokenizer));
   // Report the whole job: reading and checking the inputs included.
   summary.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   return summary;

@@ -19,6 +19,14 @@ struct PackOptions {
   StoragePlan storage;     // storage type of each part (all f32 by default)
   bool overwrite = false;  // replace an existing output
   RenameMap rename;        // their tensor name → ours
+  // A SentencePiece model file (.model) for a config with tokenizer "sentencepiece": PackFiles
+  // reads it and stores its vocabulary and rules in the file's tokenizer section. Required for
+  // such a config, refused for any other.
+  std::string tokenizer_model;
+  // The tokenizer section's bytes (tokenizer::SerializeSection), as PackFiles makes them from
+  // tokenizer_model; PackTensors writes them. Non-empty exactly when the config names
+  // tokenizer "sentencepiece".
+  std::string tokenizer_section;
   // Called now and then with bytes of tensor data written so far and the total.
   std::function<void(uint64_t done, uint64_t total)> progress;
   // Called with one line per layout decision (header size, sections, record sets) when set;

@@ -62,5 +62,6 @@ Verb AddRoutes(CLI::App& app);
 Verb AddGenerate(CLI::App& app);
 Verb AddVerify(CLI::App& app);
 Verb AddBench(CLI::App& app);
+Verb AddTokens(CLI::App& app);
 
 }  // namespace sprig::cli

@@ -145,7 +145,7 @@ Result<std::vector<int32_t>> TokenizeText(const std::string& path, std::string_v
                                    " is a stack model, which takes float rows [N, " +
                                    std::to_string(c.input_dim) + "] as a .npy array");
   }
-  if (c.tokenizer != Tokenizer::kByte) {
+  if (c.tokenizer == Tokenizer::kNone) {
     return Status::InvalidArgument(path + " is text (not a .npy array), but " + model.path() +
                                    " has tokenizer '" + ToString(c.tokenizer) +
                                    "'; give its tokens as an int32/int64 .npy array");
@@ -156,9 +156,13 @@ Result<std::vector<int32_t>> TokenizeText(const std::string& path, std::string_v
     return Status::InvalidArgument(path + " is neither a .npy array nor UTF-8 text: byte " +
                                    std::to_string(bad) + " breaks UTF-8");
   }
-  // The byte tokenizer: token = byte, as sprig generate and the sample models' training read it.
-  std::vector<int32_t> tokens(text.size());
-  for (size_t i = 0; i < text.size(); ++i) tokens[i] = static_cast<unsigned char>(text[i]);
+  // The model's own tokenizer, as sprig generate and the sample models' training read text.
+  SPRIG_ASSIGN_OR_RETURN(std::vector<int32_t> tokens, model.encode(std::string(text)));
+  if (tokens.empty()) {
+    return Status::InvalidArgument(path + " gives no tokens with " + model.path() +
+                                   "'s tokenizer (it holds only what the tokenizer drops, such as "
+                                   "whitespace)");
+  }
   return tokens;
 }
 

@@ -40,7 +40,7 @@ int main(int argc, char** argv) {
   std::vector<sprig::cli::Verb> verbs = {
       sprig::cli::AddPack(app),   sprig::cli::AddInspect(app), sprig::cli::AddSynth(app),
       sprig::cli::AddRun(app),    sprig::cli::AddRoutes(app),  sprig::cli::AddGenerate(app),
-      sprig::cli::AddVerify(app), sprig::cli::AddBench(app),
+      sprig::cli::AddVerify(app), sprig::cli::AddBench(app),   sprig::cli::AddTokens(app),
   };
   try {
     app.parse(static_cast<int>(arguments.size()), utf8_argv.data());

@@ -55,7 +55,9 @@ nlohmann::json ToJson(const Model& m) {
   j["config"] = nlohmann::json::parse(m.config_json(), nullptr, false);
   for (const SectionDescription& s : m.sections()) {
     j["sections"].push_back({{"name", s.name},
-                             {"kind", s.records ? "records" : "hot"},
+                             {"kind", s.records     ? "records"
+                                      : s.tokenizer ? "tokenizer"
+                                                    : "hot"},
                              {"offset", s.offset},
                              {"size", s.size},
                              {"padding", s.padding},
@@ -126,9 +128,9 @@ void PrintHuman(const Model& f, bool list_tensors) {
   } else {
     std::printf(
         "  family       transformer: %zu blocks, d_model %u, %u heads (%u kv), vocab %u, "
-        "max_seq %u, %s, %s positions, head %s\n",
+        "max_seq %u, %s, %s positions, head %s, tokenizer %s\n",
         c.layers.size(), c.d_model, c.n_heads, c.n_kv_heads, c.vocab_size, c.max_seq,
-        ToString(c.norm), ToString(c.positions), ToString(c.head.kind));
+        ToString(c.norm), ToString(c.positions), ToString(c.head.kind), ToString(c.tokenizer));
   }
   std::printf("  file         %s (header %s)\n", HumanBytes(f.file_size()).c_str(),
               HumanBytes(f.header_size()).c_str());

@@ -1,5 +1,5 @@
 // sprig pack CONFIG WEIGHTS -o OUT [--dtype f32|f16|bf16|i8] [--dtype-nodes T] [--dtype-records T]
-//   [--dtype-dense T] [--rename MAP] [--force]
+//   [--dtype-dense T] [--rename MAP] [--tokenizer FILE.model] [--force]
 
 #include <cstdio>
 #include <cstdlib>
@@ -14,7 +14,7 @@ namespace sprig::cli {
 namespace {
 
 struct PackArgs {
-  std::string config, weights, out, dtype = "f32", rename;
+  std::string config, weights, out, dtype = "f32", rename, tokenizer;
   std::string dtype_nodes, dtype_records, dtype_dense;  // empty: as --dtype
   bool force = false;
 };
@@ -58,6 +58,7 @@ int RunPack(const PackArgs& a) {
   if (!storage.ok()) return Fail("pack", storage.status());
   options.storage = *storage;
   options.overwrite = a.force;
+  options.tokenizer_model = a.tokenizer;
   if (!a.rename.empty()) {
     auto map = convert::ReadRenameMap(a.rename);
     if (!map.ok()) return Fail("pack", map.status());
@@ -111,6 +112,9 @@ Verb AddPack(CLI::App& app) {
                 "head); default --dtype");
   c->add_option("--rename", args->rename,
                 "JSON file mapping the weights' tensor names to sprig's names");
+  c->add_option("--tokenizer", args->tokenizer,
+                "a SentencePiece model (.model, BPE or unigram) to store in the file, for a "
+                "config with \"tokenizer\": \"sentencepiece\"");
   c->add_flag("--force", args->force, "overwrite OUT if it exists");
   c->footer(
       "The output is written to a temporary file and renamed when complete, so an interrupted "

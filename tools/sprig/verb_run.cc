@@ -1,5 +1,6 @@
-// sprig run MODEL --input IN.npy --output OUT.npy [--routes R.npz] [--batch N] [--threads N]
-//           [--stats] [--cold]
+// sprig run MODEL --input IN.npy|TEXTFILE --output OUT.npy [--routes R.npz] [--batch N]
+//           [--threads N] [--stats] [--cold]
+// sprig run MODEL --text TEXT --output OUT.npy ...
 // sprig routes MODEL --input IN.npy|TEXT [--json]
 //
 // Stack models take float rows [N, in]; transformer models take int32/int64 tokens [T] or
@@ -12,6 +13,7 @@
 #include <cstring>
 #include <memory>
 #include <nlohmann/json.hpp>
+#include <optional>
 
 #include "base/status_macros.h"
 #include "bench/kit/stats.h"
@@ -26,6 +28,7 @@ namespace {
 
 struct RunArgs {
   std::string model, input, output, routes;
+  std::string text_arg;  // run: --text, the input given on the command line
   size_t batch = 64;
   size_t threads = 1;
   bool json = false;
@@ -188,6 +191,35 @@ Result<RunResult> RunText(const RunArgs& a, std::shared_ptr<const Model> model,
   return r;
 }
 
+// run's text forms: --text TEXT, or --input naming a UTF-8 text file. The text's tokens are one
+// sequence [1, T]; nullopt when the input is an array file instead.
+Result<std::optional<RunResult>> RunTextSequence(const RunArgs& a,
+                                                 std::shared_ptr<const Model> model,
+                                                 bool want_routes) {
+  std::string text = a.text_arg, source = "--text";
+  if (text.empty()) {
+    SPRIG_ASSIGN_OR_RETURN(text, io::ReadFileBytes(a.input));
+    if (!IsText(text)) return std::optional<RunResult>();
+    source = a.input;
+  }
+  SPRIG_ASSIGN_OR_RETURN(std::vector<int32_t> tokens, TokenizeText(source, text, *model));
+  const size_t max_seq = model->config().max_seq;
+  if (tokens.size() > max_seq) {
+    return Status::InvalidArgument(source + " is " + std::to_string(tokens.size()) +
+                                   " tokens, more than the model's context of " +
+                                   std::to_string(max_seq) +
+                                   " (max_seq); shorten it, or see its routing with sprig routes, "
+                                   "which cuts text into pieces");
+  }
+  const io::NdArray array = io::NdArray::Borrowed(
+      "tokens", io::ElementType::kI32, {1, tokens.size()}, tokens.data());
+  RunArgs named = a;
+  named.input = source;
+  SPRIG_ASSIGN_OR_RETURN(RunResult r, RunTokens(named, model, array, want_routes));
+  r.summary = "1 sequence of " + std::to_string(tokens.size()) + " tokens of text";
+  return std::optional<RunResult>(std::move(r));
+}
+
 // Float arrays go to the rows call and integer arrays to the tokens call; the runtime says
 // when the model takes the other.
 Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
@@ -196,6 +228,14 @@ Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
   const double open_seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   if (a.batch == 0) return Status::InvalidArgument("--batch must be at least 1");
+  if (!a.text_arg.empty() || (!a.text && !a.input.empty())) {
+    // run: text from --text or a text file is one sequence, encoded with the model's tokenizer.
+    SPRIG_ASSIGN_OR_RETURN(std::optional<RunResult> r, RunTextSequence(a, model, want_routes));
+    if (r) {
+      r->open_seconds = open_seconds;
+      return std::move(*r);
+    }
+  }
   if (a.text) {
     // Text has none of the tensor files' leading bytes; anything else is read as an array.
     SPRIG_ASSIGN_OR_RETURN(const std::string bytes, io::ReadFileBytes(a.input));
@@ -404,8 +444,25 @@ void AddCommonOptions(CLI::App* c, RunArgs& a) {
 
 Verb AddRun(CLI::App& app) {
   auto args = std::make_shared<RunArgs>();
-  CLI::App* c = app.add_subcommand("run", "Run a model on rows from a .npy file.");
+  CLI::App* c = app.add_subcommand(
+      "run", "Run a model on rows or tokens from a .npy file, or on text (transformers).");
   AddCommonOptions(c, *args);
+  CLI::Option* input = c->get_option("--input");
+  input->required(false);
+  input->description(
+      "stack: float32/float64 rows [N, input_dim] (.npy); transformer: int32/int64 tokens [T] or "
+      "[B, T] (.npy), or a UTF-8 text file encoded with the model's tokenizer as one sequence");
+  CLI::Option* text = c->add_option(
+      "--text", args->text_arg,
+      "transformer with a tokenizer: this text, encoded with the model's tokenizer, as one "
+      "sequence (at most max_seq tokens)");
+  input->excludes(text);
+  text->excludes(input);
+  c->callback([input, text] {
+    if (input->count() == 0 && text->count() == 0) {
+      throw CLI::RequiredError("--input or --text");
+    }
+  });
   c->add_option("--output", args->output,
                 "where to write float32 outputs (.npy): [N, out] for a stack; logits [B, T, V], "
                 "classes [B, C] or hidden states [B, T, D] for a transformer")

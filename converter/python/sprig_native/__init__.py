@@ -100,6 +100,11 @@ def _declare(lib):
         "sprig_model_check_tokens": (ctypes.c_int, [p, p, sz, sz, err]),
         "sprig_model_verify_checksums": (ctypes.c_int, [p, err]),
         "sprig_model_residency": (None, [p, ctypes.POINTER(_Residency)]),
+        "sprig_model_encode": (ctypes.c_int, [p, ctypes.c_char_p, sz,
+                                              ctypes.POINTER(ctypes.POINTER(ctypes.c_int32)),
+                                              ctypes.POINTER(sz), err]),
+        "sprig_model_decode": (ctypes.c_int, [p, p, sz, ctypes.POINTER(p), ctypes.POINTER(sz),
+                                              err]),
         "sprig_session_create": (ctypes.c_int, [p, sz, ctypes.POINTER(p), err]),
         "sprig_session_destroy": (None, [p]),
         "sprig_session_threads": (sz, [p]),
@@ -193,6 +198,42 @@ class Model:
         r = _Residency()
         _library().sprig_model_residency(self._handle, ctypes.byref(r))
         return _struct_dict(r)
+
+    def encode(self, text):
+        """UTF-8 text (a str) -> token ids (a list of int) with the model's tokenizer, no begin
+        or end token added (sprig_model_encode). Raises SprigError for a model without a
+        tokenizer."""
+        data = text.encode("utf-8", "surrogateescape") if isinstance(text, str) else bytes(text)
+        ids = ctypes.POINTER(ctypes.c_int32)()
+        count = ctypes.c_size_t()
+        err = ctypes.c_void_p()
+        lib = _library()
+        _check(lib.sprig_model_encode(self._handle, data, len(data), ctypes.byref(ids),
+                                      ctypes.byref(count), ctypes.byref(err)), err)
+        try:
+            return [ids[i] for i in range(count.value)]
+        finally:
+            if ids:
+                lib.sprig_free(ctypes.cast(ids, ctypes.c_void_p))
+
+    def decode(self, ids):
+        """Token ids -> text (a str) with the model's tokenizer (sprig_model_decode). Bytes that
+        do not form UTF-8 (possible with the byte tokenizer) become U+FFFD."""
+        array = np.ascontiguousarray(np.asarray(list(ids), dtype=np.int64))
+        if array.size and (array.min() < -2**31 or array.max() >= 2**31):
+            raise SprigError(1, "decode: a token id does not fit in 32 bits")
+        narrow = array.astype(np.int32)
+        text = ctypes.c_void_p()
+        length = ctypes.c_size_t()
+        err = ctypes.c_void_p()
+        lib = _library()
+        _check(lib.sprig_model_decode(self._handle, narrow.ctypes.data_as(ctypes.c_void_p),
+                                      narrow.size, ctypes.byref(text), ctypes.byref(length),
+                                      ctypes.byref(err)), err)
+        try:
+            return ctypes.string_at(text.value, length.value).decode("utf-8", "replace")
+        finally:
+            lib.sprig_free(text)
 
     def verify_checksums(self):
         """Reads every weight against its checksum; raises SprigError on a mismatch."""

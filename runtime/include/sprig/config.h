@@ -20,7 +20,9 @@ enum class NormKind : uint8_t { kLayerNorm, kRmsNorm };
 enum class Positions : uint8_t { kLearned, kRope, kNone };
 enum class HeadKind : uint8_t { kLm, kClassifier, kNone };
 enum class Pool : uint8_t { kMean, kFirst, kLast };
-enum class Tokenizer : uint8_t { kNone, kByte };
+// kByte: one token per UTF-8 byte (vocab_size 256). kSentencePiece: a SentencePiece vocabulary
+// (BPE or unigram) stored in the file's tokenizer section.
+enum class Tokenizer : uint8_t { kNone, kByte, kSentencePiece };
 
 // Storage type of a tensor in a .sprig file. Compute is always float32.
 enum class DType : uint8_t { kF32, kF16, kBF16, kI8 };

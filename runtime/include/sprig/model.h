@@ -40,7 +40,8 @@ struct OpenOptions {
 // How much of one section of the file is in memory right now.
 struct SectionResidency {
   std::string name;
-  bool records = false;  // false: the hot section
+  bool records = false;    // a routed layer's records
+  bool tokenizer = false;  // the tokenizer section; neither: the hot section
   int layer = -1;        // the layer a record section belongs to; -1 for the hot section
   uint64_t size = 0;
   uint64_t resident_bytes = 0;
@@ -57,10 +58,12 @@ struct Residency {
 };
 
 // One section of the file (schema/README.md, "Sections"): the hot section (dense data, routing
-// nodes, the top levels of path trees) or one routed layer's records, each page-aligned.
+// nodes, the top levels of path trees), one routed layer's records, or the tokenizer's
+// vocabulary and rules; each page-aligned.
 struct SectionDescription {
   std::string name;
-  bool records = false;  // false: the hot section
+  bool records = false;    // a routed layer's records
+  bool tokenizer = false;  // the tokenizer section; neither: the hot section
   int layer = -1;        // the layer a record section belongs to; -1 for the hot section
   uint64_t offset = 0;   // bytes from the start of the file
   uint64_t size = 0;     // bytes, padding included
@@ -165,6 +168,26 @@ class SPRIG_API Model {
   // head and causal attention, and room in a KV cache that holds `cached` tokens for `count`
   // more (max_seq in all).
   Status check_decoding(size_t cached, size_t count) const;
+
+  // ---- text ----
+  //
+  // A transformer's tokenizer turns text into token ids and back: "byte" (one token per UTF-8
+  // byte) or "sentencepiece" (the BPE or unigram vocabulary stored in the file, with its
+  // normalisation rules, encoding as the SentencePiece library does). config().tokenizer says
+  // which; a model with tokenizer "none" takes token ids only, and these calls return
+  // InvalidArgument for it.
+
+  // UTF-8 text → token ids, with no begin or end token added. Bytes that are not UTF-8 are
+  // encoded as the tokenizer's reference does (SentencePiece: each such byte as U+FFFD).
+  Result<std::vector<int32_t>> encode(const std::string& text) const;
+  // Token ids → UTF-8 text, as the tokenizer's reference decodes them (SentencePiece: control
+  // tokens give nothing, the unknown token its surface " \u2047 ", byte tokens their bytes with
+  // U+FFFD for each that does not form UTF-8). InvalidArgument for an id outside
+  // [0, vocab_size), naming its position.
+  Result<std::string> decode(const std::vector<int32_t>& tokens) const;
+  // The vocabulary's piece for one id, as stored ("\u2581the", "<0x0A>", "<s>"), for showing
+  // a segmentation; the byte tokenizer gives the byte. InvalidArgument outside the vocabulary.
+  Result<std::string> token_piece(int32_t token) const;
 
   // Reads every weight and compares it with its stored checksum. Returns CheckFailed naming
   // the damaged tensors and records. May take a while on large files.

@@ -144,6 +144,15 @@ class SPRIG_API Session {
   Status generate(const std::vector<int32_t>& prompt, const GenerateOptions& options,
                   const std::function<bool(int32_t token)>& on_token);
 
+  // generate() from text, with the model's tokenizer: encodes `prompt` (which must give at
+  // least one token), generates as generate() does, and passes each token with the text it
+  // completes (a sprig::TextDecoder's, continuing the prompt, so a word's leading space is
+  // kept; it may be empty while a UTF-8 character is incomplete) to on_text; any text still
+  // held at the end comes in a last call with token -1. InvalidArgument also for a model
+  // without a tokenizer.
+  Status generate_text(const std::string& prompt, const GenerateOptions& options,
+                       const std::function<bool(const std::string& text, int32_t token)>& on_text);
+
   const Model& model() const { return *model_; }
   // The kernel instruction set this session runs ("avx2", ...).
   const char* kernel_path() const;

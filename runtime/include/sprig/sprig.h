@@ -204,6 +204,52 @@ SPRIG_API int sprig_session_generate(sprig_session_t* session, const int32_t* pr
                                      size_t prompt_len, const sprig_generate_options_t* options,
                                      sprig_token_callback callback, void* user, char** errptr);
 
+/* ---- text (transformers with a tokenizer: "byte" or "sentencepiece") ---- */
+
+/* UTF-8 text (`length` bytes; it need not end in NUL) → token ids with the model's tokenizer, no
+ * begin or end token added (sprig::Model::encode). On success *tokens receives a malloc'ed
+ * array of *count ids (NULL when *count is 0); free it with sprig_free. SPRIG_INVALID_ARGUMENT
+ * for a model without a tokenizer. */
+SPRIG_API int sprig_model_encode(const sprig_model_t* model, const char* text, size_t length,
+                                 int32_t** tokens, size_t* count, char** errptr);
+
+/* Token ids → UTF-8 text (sprig::Model::decode). On success *text receives a malloc'ed string of
+ * *length bytes plus a terminating NUL (the byte tokenizer may put NUL bytes inside it); free it
+ * with sprig_free. SPRIG_INVALID_ARGUMENT for an id outside [0, vocab_size). */
+SPRIG_API int sprig_model_decode(const sprig_model_t* model, const int32_t* tokens, size_t count,
+                                 char** text, size_t* length, char** errptr);
+
+/* Streaming decode (sprig::TextDecoder): each token's text as soon as it is complete, never part
+ * of a UTF-8 character. It keeps its model alive. Not thread-safe: one per stream. */
+typedef struct sprig_text_decoder_t sprig_text_decoder_t;
+
+SPRIG_API int sprig_text_decoder_create(const sprig_model_t* model, sprig_text_decoder_t** decoder,
+                                        char** errptr);
+/* NULL is allowed. */
+SPRIG_API void sprig_text_decoder_destroy(sprig_text_decoder_t* decoder);
+/* Adds `token`; *text receives the text it completes (malloc'ed, *length bytes plus a NUL; often
+ * empty), to free with sprig_free. */
+SPRIG_API int sprig_text_decoder_push(sprig_text_decoder_t* decoder, int32_t token, char** text,
+                                      size_t* length, char** errptr);
+/* Ends the stream: *text receives what is still held (as for push); the decoder is then empty. */
+SPRIG_API int sprig_text_decoder_finish(sprig_text_decoder_t* decoder, char** text,
+                                        size_t* length, char** errptr);
+
+/* Called by sprig_session_generate_text with each generated token and the text it completes
+ * (`length` bytes, NUL-terminated, often empty while a character is incomplete; valid only
+ * during the call); a last call with token -1 carries any text still held. Return nonzero to
+ * continue and 0 to stop. The same rules as sprig_token_callback apply. */
+typedef int (*sprig_text_callback)(const char* text, size_t length, int32_t token, void* user);
+
+/* sprig_session_generate from text (sprig::Session::generate_text): encodes `prompt`
+ * (`prompt_length` bytes of UTF-8, which must give at least one token) with the model's
+ * tokenizer, generates as sprig_session_generate does and streams the text. */
+SPRIG_API int sprig_session_generate_text(sprig_session_t* session, const char* prompt,
+                                          size_t prompt_length,
+                                          const sprig_generate_options_t* options,
+                                          sprig_text_callback callback, void* user,
+                                          char** errptr);
+
 /* ---- statistics ---- */
 
 /* What a session has done since it was created or since sprig_session_reset_stats (see

@@ -17,6 +17,7 @@
 #include "sprig/memory.h"
 #include "sprig/model.h"
 #include "sprig/session.h"
+#include "sprig/text.h"
 
 // The handles are the C++ objects behind a plain struct, so C sees only a pointer type.
 struct sprig_model_t {
@@ -25,6 +26,10 @@ struct sprig_model_t {
 
 struct sprig_session_t {
   std::unique_ptr<sprig::Session> session;
+};
+
+struct sprig_text_decoder_t {
+  std::unique_ptr<sprig::TextDecoder> decoder;
 };
 
 namespace sprig {
@@ -86,6 +91,18 @@ Status Null(const char* function, const char* what) {
 // A NULL data pointer is only acceptable when the array it stands for is empty.
 bool MissingArray(const void* data, size_t count) {
   return data == nullptr && count > 0;
+}
+
+// Hands `bytes` to C as a malloc'ed copy with a NUL after them (the caller frees it with
+// sprig_free). Returns false when the allocation fails.
+bool CopyOut(const std::string& bytes, char** text, size_t* length) {
+  char* copy = static_cast<char*>(std::malloc(bytes.size() + 1));
+  if (copy == nullptr) return false;
+  std::memcpy(copy, bytes.data(), bytes.size());
+  copy[bytes.size()] = '\0';
+  *text = copy;
+  if (length != nullptr) *length = bytes.size();
+  return true;
 }
 
 }  // namespace
@@ -342,6 +359,106 @@ int sprig_session_generate(sprig_session_t* session, const int32_t* prompt, size
     const std::vector<int32_t> tokens(prompt, prompt + prompt_len);
     return session->session->generate(tokens, o,
                                       [&](int32_t token) { return callback(token, user) != 0; });
+  });
+}
+
+int sprig_model_encode(const sprig_model_t* model, const char* text, size_t length,
+                       int32_t** tokens, size_t* count, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_model_encode";
+    if (model == nullptr) return Null(f, "model");
+    if (tokens == nullptr) return Null(f, "tokens");
+    if (count == nullptr) return Null(f, "count");
+    if (sprig::MissingArray(text, length)) return Null(f, "text");
+    auto ids = model->model->encode(std::string(text == nullptr ? "" : text, length));
+    if (!ids.ok()) return ids.status();
+    *tokens = nullptr;
+    *count = ids->size();
+    if (ids->empty()) return Status::Ok();
+    *tokens = static_cast<int32_t*>(std::malloc(ids->size() * sizeof(int32_t)));
+    if (*tokens == nullptr) throw std::bad_alloc();
+    std::copy(ids->begin(), ids->end(), *tokens);
+    return Status::Ok();
+  });
+}
+
+int sprig_model_decode(const sprig_model_t* model, const int32_t* tokens, size_t count,
+                       char** text, size_t* length, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_model_decode";
+    if (model == nullptr) return Null(f, "model");
+    if (text == nullptr) return Null(f, "text");
+    if (sprig::MissingArray(tokens, count)) return Null(f, "tokens");
+    const std::vector<int32_t> ids(tokens, tokens + count);
+    auto decoded = model->model->decode(ids);
+    if (!decoded.ok()) return decoded.status();
+    if (!sprig::CopyOut(*decoded, text, length)) throw std::bad_alloc();
+    return Status::Ok();
+  });
+}
+
+int sprig_text_decoder_create(const sprig_model_t* model, sprig_text_decoder_t** decoder,
+                              char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_text_decoder_create";
+    if (decoder == nullptr) return Null(f, "decoder");
+    *decoder = nullptr;
+    if (model == nullptr) return Null(f, "model");
+    auto created = sprig::TextDecoder::create(model->model);
+    if (!created.ok()) return created.status();
+    *decoder = new sprig_text_decoder_t{std::move(*created)};
+    return Status::Ok();
+  });
+}
+
+void sprig_text_decoder_destroy(sprig_text_decoder_t* decoder) {
+  delete decoder;
+}
+
+int sprig_text_decoder_push(sprig_text_decoder_t* decoder, int32_t token, char** text,
+                            size_t* length, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_text_decoder_push";
+    if (decoder == nullptr) return Null(f, "decoder");
+    if (text == nullptr) return Null(f, "text");
+    auto piece = decoder->decoder->push(token);
+    if (!piece.ok()) return piece.status();
+    if (!sprig::CopyOut(*piece, text, length)) throw std::bad_alloc();
+    return Status::Ok();
+  });
+}
+
+int sprig_text_decoder_finish(sprig_text_decoder_t* decoder, char** text, size_t* length,
+                              char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_text_decoder_finish";
+    if (decoder == nullptr) return Null(f, "decoder");
+    if (text == nullptr) return Null(f, "text");
+    if (!sprig::CopyOut(decoder->decoder->finish(), text, length)) throw std::bad_alloc();
+    return Status::Ok();
+  });
+}
+
+int sprig_session_generate_text(sprig_session_t* session, const char* prompt,
+                                size_t prompt_length, const sprig_generate_options_t* options,
+                                sprig_text_callback callback, void* user, char** errptr) {
+  return Guard(errptr, [&]() -> Status {
+    const char* f = "sprig_session_generate_text";
+    if (session == nullptr) return Null(f, "session");
+    if (callback == nullptr) return Null(f, "callback");
+    if (sprig::MissingArray(prompt, prompt_length)) return Null(f, "prompt");
+    sprig::GenerateOptions o;
+    if (options != nullptr) {
+      o.count = options->count;
+      o.temperature = options->temperature;
+      o.top_p = options->top_p;
+      o.seed = options->seed;
+    }
+    return session->session->generate_text(
+        std::string(prompt == nullptr ? "" : prompt, prompt_length), o,
+        [&](const std::string& text, int32_t token) {
+          return callback(text.c_str(), text.size(), token, user) != 0;
+        });
   });
 }
 

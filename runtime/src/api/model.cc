@@ -19,7 +19,35 @@ int RecordSetIndex(const format::ModelFile& file, const format::RecordSetInfo* r
   return static_cast<int>(records - file.record_sets().data());
 }
 
+// The config's tokenizer: the byte one, or the SentencePiece vocabulary of the file's tokenizer
+// section (whose checksum the file's open has checked), every part of it checked here.
+Result<std::unique_ptr<tokenizer::Tokenizer>> OpenTokenizer(const format::ModelFile& file) {
+  switch (file.config().tokenizer) {
+    case Tokenizer::kNone:
+      return std::unique_ptr<tokenizer::Tokenizer>();
+    case Tokenizer::kByte:
+      return tokenizer::MakeByteTokenizer();
+    case Tokenizer::kSentencePiece:
+      break;
+  }
+  uint64_t size = 0;
+  const uint8_t* section = file.TokenizerSection(&size);
+  auto opened = tokenizer::OpenSentencePiece(section, size, file.config().vocab_size);
+  if (!opened.ok()) {
+    return Status::Corruption(file.path() + ": tokenizer section: " + opened.status().message());
+  }
+  return std::move(*opened);
+}
+
 }  // namespace
+
+Result<const tokenizer::Tokenizer*> Model::Impl::RequireTokenizer(const char* call) const {
+  if (tokenizer) return tokenizer.get();
+  return Status::InvalidArgument(std::string(call) + ": " + file->path() +
+                                 " has no tokenizer (its config names tokenizer \"" +
+                                 ToString(file->config().tokenizer) +
+                                 "\"); give token ids instead of text");
+}
 
 Model::Model(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
 Model::~Model() = default;
@@ -38,6 +66,7 @@ Result<std::shared_ptr<const Model>> Model::open(const std::string& path,
   } else {
     SPRIG_ASSIGN_OR_RETURN(impl->network, transformer::TransformerNetwork::Bind(*impl->file));
   }
+  SPRIG_ASSIGN_OR_RETURN(impl->tokenizer, OpenTokenizer(*impl->file));
   return std::shared_ptr<const Model>(new Model(std::move(impl)));
 }
 
@@ -66,7 +95,7 @@ const std::string& Model::config_json() const {
 std::vector<SectionDescription> Model::sections() const {
   std::vector<SectionDescription> out;
   for (const format::SectionInfo& s : impl_->file->sections()) {
-    out.push_back({s.name, s.records, s.layer, s.offset, s.size, s.padding});
+    out.push_back({s.name, s.records, s.tokenizer, s.layer, s.offset, s.size, s.padding});
   }
   return out;
 }
@@ -150,12 +179,15 @@ Residency Model::residency() const {
     SectionResidency sr;
     sr.name = s.name;
     sr.records = s.records;
+    sr.tokenizer = s.tokenizer;
     sr.layer = s.records ? s.layer : -1;
     sr.size = s.size;
     sr.resident_bytes = format::ResidentBytes(file.base() + s.offset, s.size);
+    r.sections.push_back(sr);
+    // The totals are the weights' alone; the tokenizer section is listed on its own line.
+    if (s.tokenizer) continue;
     (s.records ? r.records_size : r.hot_size) += sr.size;
     (s.records ? r.records_resident : r.hot_resident) += sr.resident_bytes;
-    r.sections.push_back(std::move(sr));
   }
   return r;
 }

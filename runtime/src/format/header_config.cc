@@ -106,7 +106,7 @@ Result<ModelConfig> ReadConfig(const fb::Config& f, const std::string& source) {
   c.causal = f.causal();
   c.tie_embeddings = f.tie_embeddings();
   c.attn_bias = f.attn_bias();
-  if (!MapEnum(f.tokenizer(), Tokenizer::kByte, &c.tokenizer)) return bad("tokenizer");
+  if (!MapEnum(f.tokenizer(), Tokenizer::kSentencePiece, &c.tokenizer)) return bad("tokenizer");
   if (!MapEnum(f.head_kind(), HeadKind::kNone, &c.head.kind)) return bad("head_kind");
   c.head.classes = f.head_classes();
   if (!MapEnum(f.head_pool(), Pool::kLast, &c.head.pool)) return bad("head_pool");

@@ -89,7 +89,7 @@ Result<std::unique_ptr<ModelFile>> ModelFile::Open(const std::string& path,
   }
   SPRIG_RETURN_IF_ERROR(f->Index(path));
   for (const SectionInfo& s : f->sections_) {
-    if (s.records || s.size == 0) continue;
+    if (s.records || s.tokenizer || s.size == 0) continue;
     const uint8_t* hot = base + s.offset;
     if (options.warm_hot) {
       // Queue the whole hot section for reading and return without waiting for it, so open
@@ -106,6 +106,77 @@ Result<std::unique_ptr<ModelFile>> ModelFile::Open(const std::string& path,
     if (options.lock_hot) f->hot_locked_ = platform::LockInMemory(hot, s.size);
   }
   return f;
+}
+
+// Sections: page-aligned, after the header, inside the file, not overlapping; a record
+// section names an existing layer; at most one tokenizer section.
+Status ModelFile::IndexSections(const void* header, uint64_t data_start, const std::string& src) {
+  const fb::Header* h = static_cast<const fb::Header*>(header);
+  if (!h->sections()) return Status::Ok();
+  for (const fb::Section* s : *h->sections()) {
+    SectionInfo si;
+    si.name = s->name() ? s->name()->str() : "";
+    si.records = s->kind() == fb::SectionKind::Records;
+    si.tokenizer = s->kind() == fb::SectionKind::Tokenizer;
+    si.offset = s->offset();
+    si.size = s->size();
+    si.padding = s->padding();
+    si.layer = s->layer();
+    si.crc32 = s->crc32();
+    const std::string which = "section " + Num(sections_.size()) + " (" + si.name + ")";
+    if (static_cast<uint8_t>(s->kind()) > static_cast<uint8_t>(fb::SectionKind::Tokenizer)) {
+      return Status::Corruption(src + ": " + which + " has an unknown kind");
+    }
+    if (si.offset % kPageSize != 0 || !Inside(si.offset, si.size, data_start, size_) ||
+        si.padding > si.size) {
+      return Status::Corruption(src + ": " + which + " (offset " + Num(si.offset) + ", size " +
+                                Num(si.size) + ") is not page-aligned inside the file's data");
+    }
+    if (!sections_.empty() && si.offset < sections_.back().offset + sections_.back().size) {
+      return Status::Corruption(src + ": " + which + " overlaps the section before it");
+    }
+    if (si.records && (si.layer < 0 || static_cast<size_t>(si.layer) >= config_.layers.size())) {
+      return Status::Corruption(src + ": " + which + " names a layer that does not exist");
+    }
+    if (si.tokenizer && TokenizerSection(nullptr) != nullptr) {
+      return Status::Corruption(src + ": " + which + " is a second tokenizer section");
+    }
+    sections_.push_back(si);
+  }
+  return Status::Ok();
+}
+
+// A SentencePiece config needs exactly one tokenizer section, whole (its checksum matches);
+// any other config none. Its contents are checked by the tokenizer when the model binds it.
+Status ModelFile::CheckTokenizerSection(const std::string& src) const {
+  const bool wanted = config_.tokenizer == Tokenizer::kSentencePiece;
+  for (const SectionInfo& s : sections_) {
+    if (!s.tokenizer) continue;
+    if (!wanted) {
+      return Status::Corruption(src + ": the file has a tokenizer section, but its config names " +
+                                "tokenizer \"" + ToString(config_.tokenizer) + "\"");
+    }
+    if (Crc32(base_ + s.offset, s.size) != s.crc32) {
+      return Status::Corruption(src + ": the tokenizer section's checksum does not match (the " +
+                                "file is damaged)");
+    }
+    return Status::Ok();
+  }
+  if (wanted) {
+    return Status::Corruption(src + ": the config names tokenizer \"sentencepiece\" but the " +
+                              "file has no tokenizer section");
+  }
+  return Status::Ok();
+}
+
+const uint8_t* ModelFile::TokenizerSection(uint64_t* size) const {
+  for (const SectionInfo& s : sections_) {
+    if (!s.tokenizer) continue;
+    if (size) *size = s.size;
+    return base_ + s.offset;
+  }
+  if (size) *size = 0;
+  return nullptr;
 }
 
 Status ModelFile::Index(const std::string& src) {
@@ -132,34 +203,8 @@ Status ModelFile::Index(const std::string& src) {
   if (h->producer()) producer_ = h->producer()->str();
   const uint64_t data_start = pre.header_offset + pre.header_size;
 
-  // Sections: page-aligned, after the header, inside the file, not overlapping.
-  if (h->sections()) {
-    for (const fb::Section* s : *h->sections()) {
-      SectionInfo si;
-      si.name = s->name() ? s->name()->str() : "";
-      si.records = s->kind() == fb::SectionKind::Records;
-      si.offset = s->offset();
-      si.size = s->size();
-      si.padding = s->padding();
-      si.layer = s->layer();
-      const std::string which = "section " + Num(sections_.size()) + " (" + si.name + ")";
-      if (static_cast<uint8_t>(s->kind()) > static_cast<uint8_t>(fb::SectionKind::Records)) {
-        return Status::Corruption(src + ": " + which + " has an unknown kind");
-      }
-      if (si.offset % kPageSize != 0 || !Inside(si.offset, si.size, data_start, size_) ||
-          si.padding > si.size) {
-        return Status::Corruption(src + ": " + which + " (offset " + Num(si.offset) + ", size " +
-                                  Num(si.size) + ") is not page-aligned inside the file's data");
-      }
-      if (!sections_.empty() && si.offset < sections_.back().offset + sections_.back().size) {
-        return Status::Corruption(src + ": " + which + " overlaps the section before it");
-      }
-      if (si.records && (si.layer < 0 || static_cast<size_t>(si.layer) >= config_.layers.size())) {
-        return Status::Corruption(src + ": " + which + " names a layer that does not exist");
-      }
-      sections_.push_back(si);
-    }
-  }
+  SPRIG_RETURN_IF_ERROR(IndexSections(h, data_start, src));
+  SPRIG_RETURN_IF_ERROR(CheckTokenizerSection(src));
 
   // Record sets.
   if (h->record_sets()) {
@@ -233,7 +278,7 @@ Status ModelFile::Index(const std::string& src) {
   for (TensorSpec& t : ExpectedTensors(config_)) expected.emplace(t.name, std::move(t));
   const SectionInfo* hot = nullptr;
   for (const SectionInfo& s : sections_) {
-    if (!s.records) hot = &s;
+    if (!s.records && !s.tokenizer) hot = &s;
   }
   std::set<std::string> seen;
   if (h->tensors()) {

@@ -20,11 +20,13 @@ namespace sprig::format {
 
 struct SectionInfo {
   std::string name;
-  bool records = false;  // false: the hot section
+  bool records = false;    // a routed layer's records
+  bool tokenizer = false;  // the tokenizer section; neither: the hot section
   uint64_t offset = 0;
   uint64_t size = 0;
   uint64_t padding = 0;
   int layer = -1;
+  uint32_t crc32 = 0;  // tokenizer section only (checked at open)
 };
 
 struct RecordSetInfo {
@@ -99,6 +101,9 @@ class ModelFile {
   const std::vector<TensorInfo>& tensors() const { return tensors_; }
   const std::vector<RecordSetInfo>& record_sets() const { return record_sets_; }
   const TensorInfo* Find(const std::string& name) const;
+  // The tokenizer section's bytes (its checksum verified at open), or null when the file has
+  // none; its size in *size.
+  const uint8_t* TokenizerSection(uint64_t* size) const;
 
   // Pointer to row `row` of a tensor, wherever it is stored.
   const uint8_t* Row(const TensorInfo& t, uint64_t row) const;
@@ -116,6 +121,8 @@ class ModelFile {
  private:
   ModelFile() = default;
   Status Index(const std::string& source);
+  Status IndexSections(const void* header, uint64_t data_start, const std::string& source);
+  Status CheckTokenizerSection(const std::string& source) const;
 
   std::string path_;
   std::unique_ptr<platform::FileMapping> mapping_;

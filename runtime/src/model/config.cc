@@ -90,7 +90,15 @@ const char* ToString(Pool v) {
 }
 
 const char* ToString(Tokenizer v) {
-  return v == Tokenizer::kByte ? "byte" : "none";
+  switch (v) {
+    case Tokenizer::kNone:
+      return "none";
+    case Tokenizer::kByte:
+      return "byte";
+    case Tokenizer::kSentencePiece:
+      return "sentencepiece";
+  }
+  return "?";
 }
 
 const char* ToString(DType v) {
