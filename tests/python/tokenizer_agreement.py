@@ -2,7 +2,8 @@
 
 Trains small models with the library (Debian's python3-sentencepiece): BPE and unigram, each
 with and without byte fallback, one with user-defined symbols and NFKC with case folding, one
-with the identity normalization and no whitespace clean-up, one with whitespace as a suffix.
+with the identity normalization and no whitespace clean-up, one with whitespace as a suffix,
+one with NMT-NFKC and case folding, one without the dummy prefix and with a control symbol.
 The training text is the licence texts every Debian system ships in /usr/share/common-licenses
 (GPL-3, Apache-2.0, LGPL-2.1, MPL-2.0, GFDL-1.3); other licences there give held-out lines.
 Then, per model, sprig_tokenizer_check (tests/tokenizer_check.cc) encodes and decodes:
@@ -49,6 +50,7 @@ MODELS = {
                               normalization_rule_name="identity", add_dummy_prefix=False,
                               remove_extra_whitespaces=False, byte_fallback=True),
     "bpe_suffix": dict(model_type="bpe", treat_whitespace_as_suffix=True, byte_fallback=True),
+    "bpe_nmt_nfkc_cf": dict(model_type="bpe", normalization_rule_name="nmt_nfkc_cf"),
     "unigram_no_dummy": dict(model_type="unigram", add_dummy_prefix=False,
                              control_symbols=["<ctl>"], unk_surface="<?>"),
 }
@@ -170,7 +172,9 @@ def main():
         training_file = os.path.join(folder, "train.txt")
         with open(training_file, "w", encoding="utf-8") as f:
             f.write("\n".join(lines_of(TRAIN_LICENCES)) + "\n")
-        print(f"{'model':24} {'held-out':>14} {'sample':>14} {'awkward':>14} {'decode':>14}")
+        print("texts compared / differences, per model and kind of text")
+        print(f"{'model':24} {'(a) held-out':>14} {'(b) sample':>14} {'(c) awkward':>14} "
+              f"{'(d) decode':>14}")
         for name, options in MODELS.items():
             model = train(folder, name, options, training_file)
             processor = spm.SentencePieceProcessor(model_file=model)
@@ -179,8 +183,7 @@ def main():
                      for texts in (held_out, sample, awkward)]
             cells.append(compare_decode(processor, check, model,
                                         random_id_sequences(processor, rng), folder, report))
-            print(f"{name:24} " + " ".join(f"{n:>6} texts {d:>1}" if d == 0 else
-                                           f"{n:>5} DIFF {d:>3}" for n, d in cells))
+            print(f"{name:24} " + " ".join(f"{f'{n} / {d}':>14}" for n, d in cells))
             for line in report:
                 print(line)
             failures += sum(d for _, d in cells)
