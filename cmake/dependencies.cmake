@@ -60,3 +60,19 @@ else()
     find_package(GTest REQUIRED)
   endif()
 endif()
+
+# libsentencepiece (Debian's libsentencepiece-dev), optional: the converter reads SentencePiece
+# .model files with it, and the tokenizer's agreement test and benchmark compare against it.
+# Never in a cross build, where pkg-config would find the host's library. Without it the
+# runtime still encodes and decodes packed tokenizers (runtime/src/tokenizer has no dependency).
+if(NOT CMAKE_CROSSCOMPILING)
+  find_package(PkgConfig QUIET)
+  if(PKG_CONFIG_FOUND)
+    pkg_check_modules(SPRIG_SENTENCEPIECE QUIET IMPORTED_TARGET sentencepiece)
+  endif()
+endif()
+if(SPRIG_SENTENCEPIECE_FOUND)
+  message(STATUS "sprig: SentencePiece ${SPRIG_SENTENCEPIECE_VERSION} found (reading .model files)")
+else()
+  message(STATUS "sprig: SentencePiece not found; the converter will not read .model files")
+endif()

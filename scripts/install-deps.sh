@@ -10,6 +10,7 @@ PACKAGES=(
   libgtest-dev libgmock-dev googletest libbenchmark-dev libopenblas-dev
   python3-numpy python3-torch python3-sklearn python3-flatbuffers
   clang clang-format libclang-rt-14-dev ccache
+  libsentencepiece-dev python3-sentencepiece sentencepiece
   chromium
 )
 
