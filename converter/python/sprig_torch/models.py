@@ -230,11 +230,13 @@ def normalize_transformer_config(config):
     c.update(copy.deepcopy(config))
     if c.get("family") != "transformer":
         raise ValueError(f"family must be 'transformer', got {c.get('family')!r}")
-    _choice(c, "tokenizer", ["none", "byte"])
+    _choice(c, "tokenizer", ["none", "byte", "sentencepiece"])
     if c["tokenizer"] == "byte":
         c.setdefault("vocab_size", 256)
         if c["vocab_size"] != 256:
             raise ValueError(f"tokenizer 'byte' needs vocab_size 256, got {c['vocab_size']!r}")
+    # "sentencepiece": the vocabulary is the SentencePiece model's (packed beside the weights by
+    # `sprig pack --tokenizer`); vocab_size must be given and is checked below like any other.
     for key in ("vocab_size", "d_model", "n_heads", "max_seq"):
         _int_field(c, key)
     c.setdefault("n_kv_heads", c["n_heads"])
