@@ -120,7 +120,9 @@ LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& 
 
   // Hot section.
   uint64_t pos = AlignUp(data_start, kPageSize);
-  PlannedSection hot{"hot", false, pos, 0, 0, -1};
+  PlannedSection hot;
+  hot.name = "hot";
+  hot.offset = pos;
   uint64_t hot_data = 0;
   for (PlannedTensor& t : plan.tensors) {
     const uint64_t bytes = t.hot_rows * t.row_bytes;
@@ -147,8 +149,11 @@ LayoutPlan PlanLayout(const ModelConfig& config, const std::vector<TensorSpec>& 
     rs.record_size = AlignUp(rs.record_size, kPartAlignment);
     const uint64_t rows = plan.tensors[rs.tensors.front()].rows;
     const uint64_t count = format::RecordCount(rs.map, rows);
-    PlannedSection sec{
-        "records.layer" + std::to_string(rs.layer), true, pos, 0, 0, static_cast<int>(rs.layer)};
+    PlannedSection sec;
+    sec.name = "records.layer" + std::to_string(rs.layer);
+    sec.records = true;
+    sec.offset = pos;
+    sec.layer = static_cast<int>(rs.layer);
     const uint64_t end = PlaceRecords(pos, rs.record_size, count, &rs.offsets);
     uint64_t used = 0;
     for (size_t ti : rs.tensors) {

@@ -427,14 +427,16 @@ Result<PackSummary> PackFiles(const std::string& config_path, const std::string&
                                    " names tokenizer \"sentencepiece\"; give its SentencePiece "
                                    "model with --tokenizer FILE.model");
   }
-  SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, io::TensorArchive::Open(weights_path));
-  SPRIG_ASSIGN_OR_RETURN(std::vector<MatchedTensor> matched,
-                         MatchTensors(config, archive, options.rename));
+  // The tokenizer before the weights: a vocabulary that does not fit the config is the cause
+  // to name, not the embedding shape that follows from it.
   PackOptions with_tokenizer = options;
   if (!options.tokenizer_model.empty()) {
     SPRIG_ASSIGN_OR_RETURN(with_tokenizer.tokenizer_section,
                            ReadTokenizerSection(config, config_path, options.tokenizer_model));
   }
+  SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, io::TensorArchive::Open(weights_path));
+  SPRIG_ASSIGN_OR_RETURN(std::vector<MatchedTensor> matched,
+                         MatchTensors(config, archive, options.rename));
   SPRIG_ASSIGN_OR_RETURN(PackSummary summary,
                          PackTensors(config, matched, out_path, with_tokenizer));
   // Report the whole job: reading and checking the inputs included.
