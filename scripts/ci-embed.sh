@@ -12,7 +12,11 @@ PREFIX="$WORK/prefix"
 
 echo "== install into a temporary prefix"
 cmake --install "$BUILD" --prefix "$PREFIX" > "$WORK/install.log"
-LIBDIR="$(dirname "$(find "$PREFIX" -name 'libsprig.so.0' -print -quit)")"
+LIBDIR="$(dirname "$(find "$PREFIX" -name 'libsprig.so' -print -quit)")"
+# The library's SONAME (libsprig.so.MAJOR, or libsprig.so.0.MINOR before 1.0), as the loader
+# looks it up.
+SONAME="$(objdump -p "$LIBDIR/libsprig.so" | awk '/SONAME/ {print $2}')"
+test -n "$SONAME"
 test -f "$PREFIX/include/sprig/sprig.h"
 test -x "$PREFIX/bin/sprig"
 
@@ -45,8 +49,8 @@ for program in "$WORK/embed/note_suggest" "$WORK/embed/note_suggest_c" "$WORK/no
   # first: `ldd | grep -q` fails at random under pipefail, because grep exits at the first
   # match and ldd reports the loader's SIGPIPE on the remaining lines as an error.
   ldd "$program" > "$WORK/ldd.txt"
-  if ! grep -q "$LIBDIR/libsprig.so.0" "$WORK/ldd.txt"; then
-    echo "error: $program does not load $LIBDIR/libsprig.so.0:" >&2
+  if ! grep -q "$LIBDIR/$SONAME" "$WORK/ldd.txt"; then
+    echo "error: $program does not load $LIBDIR/$SONAME:" >&2
     cat "$WORK/ldd.txt" >&2
     exit 1
   fi
