@@ -7,6 +7,8 @@
 //                                              the ids, a tab, and the hex of their decode
 //   sprig_tokenizer_check MODEL decode IDS     one id sequence a line (decimal, spaces);
 //                                              prints the hex of each decode
+//   sprig_tokenizer_check MODEL section OUT    writes the tokenizer section pack would store
+//                                              (the fuzz corpus's seeds: make_corpus.sh)
 //
 // Every decode is also streamed one id at a time; a stream that differs from the whole
 // decode, or that emits half a character, fails the program.
@@ -97,7 +99,7 @@ void Decode(const Tokenizer& tokenizer, std::istream& in) {
 
 int main(int argc, char** argv) {
   if (argc != 4) {
-    std::cerr << "usage: sprig_tokenizer_check MODEL encode|decode FILE\n";
+    std::cerr << "usage: sprig_tokenizer_check MODEL encode|decode|section FILE\n";
     return 2;
   }
   auto spec = sprig::convert::ReadSentencePieceModel(argv[1]);
@@ -112,6 +114,11 @@ int main(int argc, char** argv) {
   if (!tokenizer.ok()) {
     std::cerr << tokenizer.status().message() << "\n";
     return 1;
+  }
+  if (std::string(argv[2]) == "section") {
+    std::ofstream out(argv[3], std::ios::binary);
+    out.write(section.data(), static_cast<std::streamsize>(section.size()));
+    return out ? 0 : 1;
   }
   std::ifstream in(argv[3], std::ios::binary);
   if (!in) {

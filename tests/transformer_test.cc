@@ -450,10 +450,10 @@ TEST_F(TransformerTest, CliGenerateStreamsBytes) {
                  return true;
                }).ok());
   EXPECT_EQ(text, a.output);
-  // Not a byte-tokenizer model: refused.
+  // A model without a tokenizer: refused.
   auto r = testing::Run(cli + " generate " + Quote(lm_) + " --prompt hi");
   EXPECT_EQ(r.exit_code, 2);
-  EXPECT_NE(r.output.find("byte tokenizer"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("needs a transformer with a tokenizer"), std::string::npos) << r.output;
 }
 
 }  // namespace

@@ -85,4 +85,23 @@ safetensors(f"{out}/safetensors/mixed.safetensors",
 safetensors(f"{out}/safetensors/scalar_empty.safetensors",
             {"s": ("F64", np.array(1.5)), "e": ("I8", np.zeros((0, 2), np.int8))})
 PY
+# Tokenizer sections: small SentencePiece models (BPE with byte fallback and a user-defined
+# symbol and no normalisation rules, unigram with NFKC case folding, whose rules are most of its size) trained on a licence text every Debian system ships,
+# stored as pack would store them (sprig_tokenizer_check, built beside sprig when the build
+# found libsentencepiece).
+mkdir -p "$OUT/tokenizer"
+CHECK="$(dirname "$SPRIG")/sprig_tokenizer_check"
+/usr/bin/python3 - "$TMP" <<'PY'
+import sys, sentencepiece as spm
+tmp = sys.argv[1]
+common = dict(input="/usr/share/common-licenses/Apache-2.0", num_threads=1, hard_vocab_limit=False)
+spm.SentencePieceTrainer.train(model_prefix=f"{tmp}/bpe", model_type="bpe", vocab_size=400,
+                               byte_fallback=True, user_defined_symbols=["<note>"],
+                               normalization_rule_name="identity", **common)
+spm.SentencePieceTrainer.train(model_prefix=f"{tmp}/unigram", model_type="unigram",
+                               vocab_size=300, normalization_rule_name="nfkc_cf", **common)
+PY
+for m in bpe unigram; do
+  "$CHECK" "$TMP/$m.model" section "$OUT/tokenizer/$m.section"
+done
 du -sh "$OUT"

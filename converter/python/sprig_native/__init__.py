@@ -304,9 +304,10 @@ class Session:
         return y
 
     def generate(self, prompt, count=64, temperature=1.0, top_p=1.0, seed=1):
-        """Continues `prompt` (bytes, str as UTF-8, or token ids); returns the new token ids."""
+        """Continues `prompt` (token ids; a str is encoded with the model's tokenizer, and bytes
+        are byte-tokenizer ids); returns the new token ids."""
         if isinstance(prompt, str):
-            prompt = prompt.encode("utf-8")
+            prompt = self.model.encode(prompt)
         p = np.ascontiguousarray(list(prompt), dtype=np.int32)
         options = _GenerateOptions()
         _library().sprig_generate_options_default(ctypes.byref(options))
