@@ -118,7 +118,8 @@ TEST_F(Text, OpenRefusesADamagedTokenizerSection) {
 TEST_F(Text, EncodeAndDecodeAgreeWithTheSentencePieceLibrary) {
   auto model = Open();
   ASSERT_TRUE(model);
-  const std::string text = "Day 12 at Quill Hill: fog until noon.\nMarit saw 3 crates \xF0\x9F\x8D\x8E";
+  const std::string text =
+      "Day 12 at Quill Hill: fog until noon.\nMarit saw 3 crates \xF0\x9F\x8D\x8E";
   auto ids = model->encode(text);
   ASSERT_TRUE(ids.ok()) << ids.status().message();
   std::string list;
@@ -163,10 +164,13 @@ TEST_F(Text, StreamedGenerationEqualsTheWholeDecode) {
   // The same tokens through generate(): the text path adds nothing but the tokenizer.
   std::vector<int32_t> ids = *model->encode(prompt);
   std::vector<int32_t> direct;
-  ASSERT_TRUE((*session)->generate(ids, options, [&](int32_t t) {
-    direct.push_back(t);
-    return true;
-  }).ok());
+  ASSERT_TRUE((*session)
+                  ->generate(ids, options,
+                             [&](int32_t t) {
+                               direct.push_back(t);
+                               return true;
+                             })
+                  .ok());
   EXPECT_EQ(direct, generated);
   const std::string before = *model->decode(ids);
   ids.insert(ids.end(), generated.begin(), generated.end());
@@ -243,13 +247,13 @@ TEST_F(Text, CommandLineShowsPiecesRunsTextAndGenerates) {
   EXPECT_NE(r.output.find("tokens from 20 bytes (tokenizer sentencepiece"), std::string::npos)
       << r.output;
   EXPECT_NE(r.output.find("\xE2\x96\x81Quill"), std::string::npos) << r.output;
-  r = testing::Run(cli + " run " + Quote(model_path_) + " --text \"Day 12 at Quill Hill\" --output " +
-                   Quote(dir_.File("y.npy")));
+  r = testing::Run(cli + " run " + Quote(model_path_) +
+                   " --text \"Day 12 at Quill Hill\" --output " + Quote(dir_.File("y.npy")));
   ASSERT_EQ(r.exit_code, 0) << r.output;
   EXPECT_NE(r.output.find("[1, 5, 1024]"), std::string::npos) << r.output;
   testing::WriteFile(dir_.File("prompt.txt"), "Day 12 at Quill Hill");
-  r = testing::Run(cli + " run " + Quote(model_path_) + " --input " + Quote(dir_.File("prompt.txt")) +
-                   " --output " + Quote(dir_.File("z.npy")));
+  r = testing::Run(cli + " run " + Quote(model_path_) + " --input " +
+                   Quote(dir_.File("prompt.txt")) + " --output " + Quote(dir_.File("z.npy")));
   ASSERT_EQ(r.exit_code, 0) << r.output;
   EXPECT_EQ(testing::ReadFile(dir_.File("y.npy")), testing::ReadFile(dir_.File("z.npy")));
   r = testing::Run(cli + " generate " + Quote(model_path_) +
@@ -270,10 +274,9 @@ TEST_F(Text, PythonModuleEncodesAndDecodesAsTheLibrary) {
       "    back = [m.decode(sp.encode(t)) == sp.decode(sp.encode(t)) for t in texts]\n"
       "    print('encode', sum(same), 'of', len(texts), 'decode', sum(back), 'of', len(texts))\n";
   const std::string src = SPRIG_SOURCE_DIR;
-  auto r = testing::Run("SPRIG_LIBRARY=" + Quote(SPRIG_SHARED_LIBRARY) +
-                        " PYTHONPATH=" + Quote(src + "/converter/python") + " " +
-                        testing::Python() + " -c " + Quote(script) + " " + Quote(model_path_) +
-                        " " + Quote(kTokenizer));
+  auto r = testing::Run("SPRIG_LIBRARY=" + Quote(SPRIG_SHARED_LIBRARY) + " PYTHONPATH=" +
+                        Quote(src + "/converter/python") + " " + testing::Python() + " -c " +
+                        Quote(script) + " " + Quote(model_path_) + " " + Quote(kTokenizer));
   ASSERT_EQ(r.exit_code, 0) << r.output;
   EXPECT_NE(r.output.find("encode 5 of 5 decode 5 of 5"), std::string::npos) << r.output;
 }

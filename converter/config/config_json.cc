@@ -223,10 +223,10 @@ Status ParseTransformerFields(const json& root, const FieldReader& r, const std:
   SPRIG_RETURN_IF_ERROR(r.Bool("causal", true, &c->causal));
   SPRIG_RETURN_IF_ERROR(r.Bool("tie_embeddings", false, &c->tie_embeddings));
   SPRIG_RETURN_IF_ERROR(r.Bool("attn_bias", true, &c->attn_bias));
-  SPRIG_RETURN_IF_ERROR(r.Enum<Tokenizer>("tokenizer",
-                                          {Choice(Tokenizer::kByte), Choice(Tokenizer::kSentencePiece),
-                                           Choice(Tokenizer::kNone)},
-                                          Tokenizer::kNone, &c->tokenizer));
+  SPRIG_RETURN_IF_ERROR(r.Enum<Tokenizer>(
+      "tokenizer",
+      {Choice(Tokenizer::kByte), Choice(Tokenizer::kSentencePiece), Choice(Tokenizer::kNone)},
+      Tokenizer::kNone, &c->tokenizer));
   return ParseHead(root, source, &c->head);
 }
 

@@ -325,11 +325,10 @@ Result<std::string> ReadTokenizerSection(const ModelConfig& config, const std::s
   }
   SPRIG_ASSIGN_OR_RETURN(tokenizer::TokenizerSpec spec, ReadSentencePieceModel(model_path));
   if (spec.pieces.size() != config.vocab_size) {
-    return Status::InvalidArgument(model_path + " has a vocabulary of " +
-                                   std::to_string(spec.pieces.size()) + " pieces, but " +
-                                   config_path + " says vocab_size " +
-                                   std::to_string(config.vocab_size) +
-                                   "; they must be equal (the embedding has one row per piece)");
+    return Status::InvalidArgument(
+        model_path + " has a vocabulary of " + std::to_string(spec.pieces.size()) +
+        " pieces, but " + config_path + " says vocab_size " + std::to_string(config.vocab_size) +
+        "; they must be equal (the embedding has one row per piece)");
   }
   return tokenizer::SerializeSection(spec);
 }
@@ -388,8 +387,8 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
     for (const PlannedSection& s : plan.sections) {
       if (!s.tokenizer) continue;
       SPRIG_RETURN_IF_ERROR(writer.PadTo(s.offset));
-      SPRIG_RETURN_IF_ERROR(writer.Put(
-          reinterpret_cast<const uint8_t*>(options.tokenizer_section.data()), s.size));
+      SPRIG_RETURN_IF_ERROR(
+          writer.Put(reinterpret_cast<const uint8_t*>(options.tokenizer_section.data()), s.size));
     }
     SPRIG_RETURN_IF_ERROR(writer.PadTo(plan.file_size));
     SPRIG_RETURN_IF_ERROR(writer.Finish());

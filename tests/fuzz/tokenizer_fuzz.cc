@@ -22,8 +22,11 @@ uint32_t ClaimedPieces(const uint8_t* data, size_t size) {
 }
 
 void Exercise(const sprig::tokenizer::Tokenizer& t, const uint8_t* data, size_t size) {
-  const char* texts[] = {"", " ", "Day 12 at Quill Hill: fog until noon.\n",
-                         "  tabs\tand\u00a0spaces  ", "caf\xC3\xA9 \xF0\x9F\x8D\x8E \xEF\xBC\xA1",
+  const char* texts[] = {"",
+                         " ",
+                         "Day 12 at Quill Hill: fog until noon.\n",
+                         "  tabs\tand\u00a0spaces  ",
+                         "caf\xC3\xA9 \xF0\x9F\x8D\x8E \xEF\xBC\xA1",
                          "\xFF\xC3(bad \xE2\x82 utf-8"};
   for (const char* text : texts) {
     const std::vector<int32_t> ids = t.Encode(text);

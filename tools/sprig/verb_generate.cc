@@ -26,10 +26,10 @@ int RunGenerate(const GenerateArgs& a) {
   if (!model.ok()) return Fail("generate", model.status());
   const ModelConfig& c = (*model)->config();
   if (c.family != Family::kTransformer || c.tokenizer == Tokenizer::kNone) {
-    return Fail("generate", Status::InvalidArgument(
-                                a.model + " has tokenizer '" + ToString(c.tokenizer) +
-                                "'; generate needs a transformer with a tokenizer (byte or "
-                                "sentencepiece); give token ids to sprig run instead"));
+    return Fail("generate",
+                Status::InvalidArgument(a.model + " has tokenizer '" + ToString(c.tokenizer) +
+                                        "'; generate needs a transformer with a tokenizer (byte or "
+                                        "sentencepiece); give token ids to sprig run instead"));
   }
   SessionOptions options;
   options.threads = a.threads;
@@ -41,18 +41,19 @@ int RunGenerate(const GenerateArgs& a) {
   size_t generated = 0;
   // The model's tokenizer encodes the prompt and decodes each token as it comes, holding back
   // a UTF-8 character until it is whole.
-  Status s = (*session)->generate_text(a.prompt, a.options,
-                                       [&](const std::string& text, int32_t token) {
-                                         std::fwrite(text.data(), 1, text.size(), stdout);
-                                         std::fflush(stdout);
-                                         if (token >= 0) ++generated;
-                                         return true;
-                                       });
+  Status s =
+      (*session)->generate_text(a.prompt, a.options, [&](const std::string& text, int32_t token) {
+        std::fwrite(text.data(), 1, text.size(), stdout);
+        std::fflush(stdout);
+        if (token >= 0) ++generated;
+        return true;
+      });
   if (platform::IsTerminal(stdout)) std::fputc('\n', stdout);
   std::fflush(stdout);
   if (!s.ok()) return Fail("generate", s);
   if ((*session)->position() >= c.max_seq && generated < a.options.count) {
-    std::fprintf(stderr, "note: stopped after %zu tokens: the model's context (max_seq %u) is full\n",
+    std::fprintf(stderr,
+                 "note: stopped after %zu tokens: the model's context (max_seq %u) is full\n",
                  generated, c.max_seq);
   }
   return kExitOk;
@@ -65,7 +66,8 @@ Verb AddGenerate(CLI::App& app) {
   CLI::App* c = app.add_subcommand(
       "generate", "Continue a text prompt with a transformer model that has a tokenizer.");
   c->add_option("MODEL", args->model, "the .sprig file")->required();
-  c->add_option("--prompt", args->prompt, "the text to continue (encoded with the model's tokenizer)")
+  c->add_option("--prompt", args->prompt,
+                "the text to continue (encoded with the model's tokenizer)")
       ->required();
   c->add_option("--count", args->options.count, "tokens to generate at most")
       ->capture_default_str();

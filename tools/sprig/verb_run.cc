@@ -211,8 +211,8 @@ Result<std::optional<RunResult>> RunTextSequence(const RunArgs& a,
                                    " (max_seq); shorten it, or see its routing with sprig routes, "
                                    "which cuts text into pieces");
   }
-  const io::NdArray array = io::NdArray::Borrowed(
-      "tokens", io::ElementType::kI32, {1, tokens.size()}, tokens.data());
+  const io::NdArray array =
+      io::NdArray::Borrowed("tokens", io::ElementType::kI32, {1, tokens.size()}, tokens.data());
   RunArgs named = a;
   named.input = source;
   SPRIG_ASSIGN_OR_RETURN(RunResult r, RunTokens(named, model, array, want_routes));

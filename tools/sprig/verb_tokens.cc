@@ -30,7 +30,8 @@ Result<std::vector<int32_t>> ParseIds(const std::string& list) {
   while (std::getline(in, item, ',')) {
     const size_t first = item.find_first_not_of(" \t");
     const size_t last = item.find_last_not_of(" \t");
-    const std::string trimmed = first == std::string::npos ? "" : item.substr(first, last - first + 1);
+    const std::string trimmed =
+        first == std::string::npos ? "" : item.substr(first, last - first + 1);
     char* end = nullptr;
     const long long v = std::strtoll(trimmed.c_str(), &end, 10);
     if (trimmed.empty() || *end != '\0' || v < INT32_MIN || v > INT32_MAX) {
@@ -46,8 +47,8 @@ Status ShowDecoded(const Model& model, const TokensArgs& a) {
   SPRIG_ASSIGN_OR_RETURN(std::vector<int32_t> ids, ParseIds(a.ids));
   SPRIG_ASSIGN_OR_RETURN(std::string text, model.decode(ids));
   if (a.json) {
-    nlohmann::json j = {{"tokenizer", ToString(model.config().tokenizer)}, {"ids", ids},
-                        {"text", text}};
+    nlohmann::json j = {
+        {"tokenizer", ToString(model.config().tokenizer)}, {"ids", ids}, {"text", text}};
     std::printf("%s\n", j.dump(2, ' ', false, kReplaceInvalidUtf8).c_str());
   } else {
     std::fwrite(text.data(), 1, text.size(), stdout);
@@ -97,7 +98,8 @@ int RunTokens(const TokensArgs& a) {
 Verb AddTokens(CLI::App& app) {
   auto args = std::make_shared<TokensArgs>();
   CLI::App* c = app.add_subcommand(
-      "tokens", "Show the token ids and pieces the model's tokenizer makes of a text, or decode ids.");
+      "tokens",
+      "Show the token ids and pieces the model's tokenizer makes of a text, or decode ids.");
   c->add_option("MODEL", args->model, "the .sprig file (a transformer with a tokenizer)")
       ->required();
   CLI::Option* text = c->add_option("--text", args->text, "the text to encode");
@@ -112,8 +114,9 @@ Verb AddTokens(CLI::App& app) {
       throw CLI::RequiredError("--text, --input or --ids");
     }
   });
-  c->footer("Pieces are shown as the vocabulary stores them: SentencePiece writes a space as "
-            "U+2581 and a byte token as <0xNN>.");
+  c->footer(
+      "Pieces are shown as the vocabulary stores them: SentencePiece writes a space as "
+      "U+2581 and a byte token as <0xNN>.");
   return {c, [args] { return RunTokens(*args); }};
 }
 

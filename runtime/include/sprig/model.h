@@ -42,7 +42,7 @@ struct SectionResidency {
   std::string name;
   bool records = false;    // a routed layer's records
   bool tokenizer = false;  // the tokenizer section; neither: the hot section
-  int layer = -1;        // the layer a record section belongs to; -1 for the hot section
+  int layer = -1;          // the layer a record section belongs to; -1 for the hot section
   uint64_t size = 0;
   uint64_t resident_bytes = 0;
 };
@@ -64,10 +64,10 @@ struct SectionDescription {
   std::string name;
   bool records = false;    // a routed layer's records
   bool tokenizer = false;  // the tokenizer section; neither: the hot section
-  int layer = -1;        // the layer a record section belongs to; -1 for the hot section
-  uint64_t offset = 0;   // bytes from the start of the file
-  uint64_t size = 0;     // bytes, padding included
-  uint64_t padding = 0;  // bytes of alignment padding inside the section
+  int layer = -1;          // the layer a record section belongs to; -1 for the hot section
+  uint64_t offset = 0;     // bytes from the start of the file
+  uint64_t size = 0;       // bytes, padding included
+  uint64_t padding = 0;    // bytes of alignment padding inside the section
 };
 
 // One feed-forward layer as the model runs it: a stack layer, or the feed-forward part of a

@@ -232,8 +232,8 @@ SPRIG_API void sprig_text_decoder_destroy(sprig_text_decoder_t* decoder);
 SPRIG_API int sprig_text_decoder_push(sprig_text_decoder_t* decoder, int32_t token, char** text,
                                       size_t* length, char** errptr);
 /* Ends the stream: *text receives what is still held (as for push); the decoder is then empty. */
-SPRIG_API int sprig_text_decoder_finish(sprig_text_decoder_t* decoder, char** text,
-                                        size_t* length, char** errptr);
+SPRIG_API int sprig_text_decoder_finish(sprig_text_decoder_t* decoder, char** text, size_t* length,
+                                        char** errptr);
 
 /* Called by sprig_session_generate_text with each generated token and the text it completes
  * (`length` bytes, NUL-terminated, often empty while a character is incomplete; valid only
@@ -247,8 +247,7 @@ typedef int (*sprig_text_callback)(const char* text, size_t length, int32_t toke
 SPRIG_API int sprig_session_generate_text(sprig_session_t* session, const char* prompt,
                                           size_t prompt_length,
                                           const sprig_generate_options_t* options,
-                                          sprig_text_callback callback, void* user,
-                                          char** errptr);
+                                          sprig_text_callback callback, void* user, char** errptr);
 
 /* ---- statistics ---- */
 

@@ -382,8 +382,8 @@ int sprig_model_encode(const sprig_model_t* model, const char* text, size_t leng
   });
 }
 
-int sprig_model_decode(const sprig_model_t* model, const int32_t* tokens, size_t count,
-                       char** text, size_t* length, char** errptr) {
+int sprig_model_decode(const sprig_model_t* model, const int32_t* tokens, size_t count, char** text,
+                       size_t* length, char** errptr) {
   return Guard(errptr, [&]() -> Status {
     const char* f = "sprig_model_decode";
     if (model == nullptr) return Null(f, "model");
@@ -439,8 +439,8 @@ int sprig_text_decoder_finish(sprig_text_decoder_t* decoder, char** text, size_t
   });
 }
 
-int sprig_session_generate_text(sprig_session_t* session, const char* prompt,
-                                size_t prompt_length, const sprig_generate_options_t* options,
+int sprig_session_generate_text(sprig_session_t* session, const char* prompt, size_t prompt_length,
+                                const sprig_generate_options_t* options,
                                 sprig_text_callback callback, void* user, char** errptr) {
   return Guard(errptr, [&]() -> Status {
     const char* f = "sprig_session_generate_text";

@@ -43,10 +43,9 @@ Result<std::unique_ptr<tokenizer::Tokenizer>> OpenTokenizer(const format::ModelF
 
 Result<const tokenizer::Tokenizer*> Model::Impl::RequireTokenizer(const char* call) const {
   if (tokenizer) return tokenizer.get();
-  return Status::InvalidArgument(std::string(call) + ": " + file->path() +
-                                 " has no tokenizer (its config names tokenizer \"" +
-                                 ToString(file->config().tokenizer) +
-                                 "\"); give token ids instead of text");
+  return Status::InvalidArgument(
+      std::string(call) + ": " + file->path() + " has no tokenizer (its config names tokenizer \"" +
+      ToString(file->config().tokenizer) + "\"); give token ids instead of text");
 }
 
 Model::Model(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}

@@ -21,7 +21,8 @@ Result<std::string> Model::decode(const std::vector<int32_t>& tokens) const {
 Result<std::string> Model::token_piece(int32_t token) const {
   SPRIG_ASSIGN_OR_RETURN(const tokenizer::Tokenizer* t, impl_->RequireTokenizer("token_piece"));
   if (token < 0 || static_cast<uint32_t>(token) >= t->vocab_size()) {
-    return Status::InvalidArgument("token " + std::to_string(token) + " is outside the vocabulary [0, " +
+    return Status::InvalidArgument("token " + std::to_string(token) +
+                                   " is outside the vocabulary [0, " +
                                    std::to_string(t->vocab_size()) + ")");
   }
   return t->Piece(token);
@@ -61,8 +62,9 @@ Status Session::generate_text(
                          Model::Impl::Of(*model_).RequireTokenizer("generate_text"));
   const std::vector<int32_t> ids = t->Encode(prompt);
   if (ids.empty()) {
-    return Status::InvalidArgument("generate_text: the prompt gives no tokens; it needs at least "
-                                   "one");
+    return Status::InvalidArgument(
+        "generate_text: the prompt gives no tokens; it needs at least "
+        "one");
   }
   // The decoder continues the prompt: a generated word's leading space is decoded as text that
   // follows other text, not as the start of a text (where SentencePiece drops it).
