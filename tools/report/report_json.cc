@@ -29,6 +29,7 @@ json MemoryJson(const SideMemory& m) {
   for (const SectionResidency& s : m.residency.sections) {
     sections.push_back({{"name", s.name},
                         {"records", s.records},
+                        {"tokenizer", s.tokenizer},
                         {"layer", s.layer},
                         {"bytes", s.size},
                         {"resident_bytes", s.resident_bytes}});
