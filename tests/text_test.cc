@@ -216,6 +216,8 @@ TEST_F(Text, CApiEncodesDecodesAndStreams) {
   size_t length = 0;
   ASSERT_EQ(sprig_model_decode(model, ids, count, &back, &length, &err), SPRIG_OK);
   EXPECT_EQ(std::string(back, length), text);
+  sprig_free(back);
+  back = nullptr;
   sprig_text_decoder_t* decoder = nullptr;
   ASSERT_EQ(sprig_text_decoder_create(model, &decoder, &err), SPRIG_OK);
   std::string streamed;
