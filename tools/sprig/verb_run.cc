@@ -197,7 +197,7 @@ Result<std::optional<RunResult>> RunTextSequence(const RunArgs& a,
                                                  std::shared_ptr<const Model> model,
                                                  bool want_routes) {
   std::string text = a.text_arg, source = "--text";
-  if (text.empty()) {
+  if (!a.input.empty()) {
     SPRIG_ASSIGN_OR_RETURN(text, io::ReadFileBytes(a.input));
     if (!IsText(text)) return std::optional<RunResult>();
     source = a.input;
@@ -228,7 +228,7 @@ Result<RunResult> RunModel(const RunArgs& a, bool want_routes) {
   const double open_seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   if (a.batch == 0) return Status::InvalidArgument("--batch must be at least 1");
-  if (!a.text_arg.empty() || (!a.text && !a.input.empty())) {
+  if (!a.text) {
     // run: text from --text or a text file is one sequence, encoded with the model's tokenizer.
     SPRIG_ASSIGN_OR_RETURN(std::optional<RunResult> r, RunTextSequence(a, model, want_routes));
     if (r) {
