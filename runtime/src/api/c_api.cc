@@ -105,6 +105,18 @@ bool CopyOut(const std::string& bytes, char** text, size_t* length) {
   return true;
 }
 
+// The C options as the C++ ones; NULL means the defaults.
+GenerateOptions GenerateOptionsFrom(const sprig_generate_options_t* options) {
+  GenerateOptions o;
+  if (options != nullptr) {
+    o.count = options->count;
+    o.temperature = options->temperature;
+    o.top_p = options->top_p;
+    o.seed = options->seed;
+  }
+  return o;
+}
+
 }  // namespace
 }  // namespace sprig
 
@@ -349,13 +361,7 @@ int sprig_session_generate(sprig_session_t* session, const int32_t* prompt, size
     if (session == nullptr) return Null(f, "session");
     if (callback == nullptr) return Null(f, "callback");
     if (sprig::MissingArray(prompt, prompt_len)) return Null(f, "prompt");
-    sprig::GenerateOptions o;
-    if (options != nullptr) {
-      o.count = options->count;
-      o.temperature = options->temperature;
-      o.top_p = options->top_p;
-      o.seed = options->seed;
-    }
+    const sprig::GenerateOptions o = sprig::GenerateOptionsFrom(options);
     const std::vector<int32_t> tokens(prompt, prompt + prompt_len);
     return session->session->generate(tokens, o,
                                       [&](int32_t token) { return callback(token, user) != 0; });
@@ -447,13 +453,7 @@ int sprig_session_generate_text(sprig_session_t* session, const char* prompt, si
     if (session == nullptr) return Null(f, "session");
     if (callback == nullptr) return Null(f, "callback");
     if (sprig::MissingArray(prompt, prompt_length)) return Null(f, "prompt");
-    sprig::GenerateOptions o;
-    if (options != nullptr) {
-      o.count = options->count;
-      o.temperature = options->temperature;
-      o.top_p = options->top_p;
-      o.seed = options->seed;
-    }
+    const sprig::GenerateOptions o = sprig::GenerateOptionsFrom(options);
     return session->session->generate_text(
         std::string(prompt == nullptr ? "" : prompt, prompt_length), o,
         [&](const std::string& text, int32_t token) {
