@@ -282,14 +282,17 @@ TEST_F(TransformerTest, RefusesBadInputs) {
 
   testing::TempDir dir;
   auto bidir = Open(MakeModel(dir, "bidir", kBidirectional), 1);
+  ASSERT_NE(bidir, nullptr);
   st = bidir->append_token(1, out.data());
   EXPECT_NE(st.message().find("not causal"), std::string::npos) << st.message();
   auto cls = Open(MakeModel(dir, "cls", Classifier("mean")), 1);
+  ASSERT_NE(cls, nullptr);
   st = cls->append_token(1, out.data());
   EXPECT_NE(st.message().find("lm head"), std::string::npos) << st.message();
   const std::string stack = R"({"family":"stack","input_dim":4,"layers":[
     {"kind":"dense","width":4,"activation":"relu","out":2}]})";
   auto st_model = Open(MakeModel(dir, "stack", stack), 1);
+  ASSERT_NE(st_model, nullptr);
   EXPECT_FALSE(st_model->forward_tokens(bad, 1, 1, out.data()).ok());
 }
 

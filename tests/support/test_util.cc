@@ -58,7 +58,7 @@ std::string Quote(const std::string& s) {
   return out + "\"";
 }
 
-CommandResult Run(const std::string& command_line) {
+static CommandResult RunOnce(const std::string& command_line) {
   CommandResult r;
   // cmd /c removes the first and the last quote of a line that starts with one; the outer pair
   // added here is what it removes, so the line's own quotes reach the program intact. The line
@@ -73,6 +73,32 @@ CommandResult Run(const std::string& command_line) {
   // Text written by programs through the C runtime's text mode ends lines with \r\n.
   std::string::size_type at = 0;
   while ((at = r.output.find("\r\n", at)) != std::string::npos) r.output.erase(at, 1);
+  return r;
+}
+
+// True when the line starts with a quoted path to a file that exists (a program of ours, as
+// BuiltProgram writes it), so that "not recognized" cannot mean the program is missing.
+static bool StartsWithAnExistingProgram(const std::string& command_line) {
+  if (command_line.empty() || command_line[0] != '"') return false;
+  const size_t end = command_line.find('"', 1);
+  if (end == std::string::npos) return false;
+  std::error_code ec;
+  return std::filesystem::is_regular_file(FsPath(command_line.substr(1, end - 1)), ec);
+}
+
+// Under Wine, cmd.exe now and then fails to start a program that exists (it then says "Can't
+// recognize '<line>' as an internal or external command"), a failure of the emulator seen once
+// in several thousand runs, not of the program under test. Such a line is run again, at most
+// twice more; any other failure is returned as it is.
+CommandResult Run(const std::string& command_line) {
+  CommandResult r;
+  for (int attempt = 0; attempt < 3; ++attempt) {
+    r = RunOnce(command_line);
+    const bool not_started = r.exit_code != 0 && r.output.rfind("Can't recognize '", 0) == 0;
+    if (!not_started || !StartsWithAnExistingProgram(command_line)) break;
+    std::fprintf(stderr, "note: cmd.exe did not start the program (attempt %d): %s\n", attempt + 1,
+                 r.output.c_str());
+  }
   return r;
 }
 #else
@@ -110,6 +136,11 @@ std::string WithEnv(const std::string& name, const std::string& value, const std
 }
 
 std::string BuiltProgram(const std::string& program) {
+#ifdef _WIN32
+  // A build tree on Linux gives POSIX paths; Wine resolves "/x" against the current drive, which
+  // is not always Z: (the drive Wine maps to "/"), so the path is made absolute on Z: here.
+  if (!program.empty() && program[0] == '/') return Quote("Z:" + program);
+#endif
 #ifdef SPRIG_TEST_EMULATOR
   return std::string(SPRIG_TEST_EMULATOR) + " " + Quote(program);
 #else
