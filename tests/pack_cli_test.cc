@@ -117,8 +117,10 @@ TEST_F(PackCli, RenameMapServesOtherNames) {
 }
 
 // An experts layer and two gated dense layers, under names the way common PyTorch code writes
-// them: one module per expert (stacked), fc1 and gate fused into one [2W, in] tensor (split),
-// fc2 stored as nn.Linear's transpose [in, out] in one layer (transposed), names by pattern.
+// them: one module per expert (stacked; the experts' fc2 stored [W, out], so each part is
+// transposed), fc1 and gate fused into one [2W, in] tensor (split by ranges) or its transpose
+// [in, 2W] (split in equal parts along the last axis, each transposed), fc2 stored as
+// [in, out] in one layer (transposed), names by pattern.
 constexpr const char* kMappedConfig = R"({"family":"stack","input_dim":4,"layers":[
   {"kind":"experts","experts":3,"top_k":2,"width":6,"activation":"relu","out":4},
   {"kind":"dense","width":6,"gated":true,"activation":"silu","out":4},
@@ -133,13 +135,13 @@ t = {}
 for e in range(3):
     t[f'moe.experts.{e}.w1.weight'] = w['layers.0.experts.fc1.weight'][e]
     t[f'moe.experts.{e}.w1.bias'] = w['layers.0.experts.fc1.bias'][e]
-    t[f'moe.experts.{e}.w2.weight'] = w['layers.0.experts.fc2.weight'][e]
+    t[f'moe.experts.{e}.w2.weight_t'] = np.ascontiguousarray(w['layers.0.experts.fc2.weight'][e].T)
     t[f'moe.experts.{e}.w2.bias'] = w['layers.0.experts.fc2.bias'][e]
 t['moe.router.weight'] = w['layers.0.router.weight']
 t['moe.router.bias'] = w['layers.0.router.bias']
 for l in (1, 2):
     fused = np.concatenate([w[f'layers.{l}.fc1.weight'], w[f'layers.{l}.gate.weight']])
-    t[f'mlp.{l}.fused'] = fused.astype(np.float64)
+    t[f'mlp.{l}.fused'] = (fused if l == 1 else np.ascontiguousarray(fused.T)).astype(np.float64)
     t[f'mlp.{l}.b1'] = w[f'layers.{l}.fc1.bias']
     t[f'mlp.{l}.bg'] = w[f'layers.{l}.gate.bias']
     t[f'mlp.{l}.b2'] = w[f'layers.{l}.fc2.bias']
@@ -149,12 +151,14 @@ np.savez(sys.argv[2], **t)
 json.dump({
   'moe.experts.{e}.w1.weight': {'stack': 'layers.0.experts.fc1.weight', 'over': 'e'},
   'moe.experts.{e}.w1.bias': {'stack': 'layers.0.experts.fc1.bias', 'over': 'e'},
-  'moe.experts.{e}.w2.weight': {'stack': 'layers.0.experts.fc2.weight', 'over': 'e'},
+  'moe.experts.{e}.w2.weight_t': {'stack': 'layers.0.experts.fc2.weight', 'over': 'e',
+                                  'transpose': True},
   'moe.experts.{e}.w2.bias': {'stack': 'layers.0.experts.fc2.bias', 'over': 'e'},
   'moe.router.weight': 'layers.0.router.weight',
   'moe.router.bias': 'layers.0.router.bias',
   'mlp.1.fused': {'split': {'layers.1.fc1.weight': [0, 6], 'layers.1.gate.weight': [6, 12]}},
-  'mlp.2.fused': {'split': ['layers.2.fc1.weight', 'layers.2.gate.weight'], 'axis': -2},
+  'mlp.2.fused': {'split': ['layers.2.fc1.weight', 'layers.2.gate.weight'], 'axis': -1,
+                  'transpose': True},
   'mlp.{l}.b1': 'layers.{l}.fc1.bias',
   'mlp.{l}.bg': 'layers.{l}.gate.bias',
   'mlp.{l}.b2': 'layers.{l}.fc2.bias',
@@ -266,10 +270,11 @@ TEST_F(PackCliMapping, BadMappingsAreRefusedByName) {
   ExpectRefused("m = '{\"a\": \"b\",}'", {"edited.json", "invalid JSON"});
   // The matching after the mapping still says where a tensor came from.
   ExpectRefused(
-      "t['moe.experts.0.w2.weight'] = np.zeros((4, 7), np.float32)\n"
-      "t['moe.experts.1.w2.weight'] = np.zeros((4, 7), np.float32)\n"
-      "t['moe.experts.2.w2.weight'] = np.zeros((4, 7), np.float32)",
-      {"edited.npz", "layers.0.experts.fc2.weight (stacked from moe.experts.{e}.w2.weight)",
+      "t['moe.experts.0.w2.weight_t'] = np.zeros((7, 4), np.float32)\n"
+      "t['moe.experts.1.w2.weight_t'] = np.zeros((7, 4), np.float32)\n"
+      "t['moe.experts.2.w2.weight_t'] = np.zeros((7, 4), np.float32)",
+      {"edited.npz",
+       "layers.0.experts.fc2.weight (stacked from moe.experts.{e}.w2.weight_t, transposed)",
        "[3, 4, 7]"});
   // A missing mapping file.
   auto r = PackTheirs(dir_.File("m.sprig"), "--map " + Quote(dir_.File("none.json")));
