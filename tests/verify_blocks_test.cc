@@ -1,0 +1,130 @@
+// The transformer block variants against models built directly from torch.nn modules, not from
+// sprig's reference modules (tests/python/torch_nn_blocks.py, Debian python3-torch):
+//   - PyTorch's nn.TransformerEncoderLayer, norm_first=False (post-norm), in an
+//     nn.TransformerEncoder, with a LayerNorm on the embeddings (BERT-style), no final norm and
+//     a masked-language-model head (nn.Linear, nn.GELU, nn.LayerNorm, vocabulary nn.Linear with
+//     bias; once tied to the embedding);
+//   - nn.MultiheadAttention inside a pre-norm causal block with an lm head;
+//   - attention written with nn.Linear q/k/v with bias and the output projection without.
+// Each is saved with NumPy under its own parameter names, packed with its mapping file (renames
+// with {i} placeholders; nn.MultiheadAttention's fused in_proj_weight/in_proj_bias split into
+// q, k, v) and checked with `sprig verify` at f32 and f16 against the module's own forward pass
+// (float64). A config that misdescribes the module must then fail, so each case can fail.
+#include <gtest/gtest.h>
+
+#include <nlohmann/json.hpp>
+#include <string>
+
+#include "support/test_util.h"
+
+namespace sprig {
+namespace {
+
+using testing::Quote;
+
+// Until pack's mapping file splits tensors, the script splits the fused ones with NumPy.
+const char* const kSplitOption = " --numpy-split";
+const char* const kMapOption = " --rename ";
+
+// Writes case `name` of torch_nn_blocks.py into dir/name and returns that directory.
+std::string Build(const testing::TempDir& dir, const std::string& name) {
+  const std::string out = dir.File(name);
+  const auto r =
+      testing::Run(testing::Python() + " " +
+                   Quote(std::string(SPRIG_SOURCE_DIR) + "/tests/python/torch_nn_blocks.py") + " " +
+                   name + " " + Quote(out) + kSplitOption);
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  return out;
+}
+
+testing::CommandResult Pack(const std::string& ref, const std::string& config, const char* dtype,
+                            const std::string& out) {
+  return testing::Run(testing::SprigCli() + " pack " + Quote(config) + " " +
+                      Quote(ref + "/weights.npz") + kMapOption + Quote(ref + "/map.json") +
+                      " --dtype " + dtype + " --force -o " + Quote(out));
+}
+
+// Packs at f32 and f16 and verifies each: both pass, and the figures are printed.
+void ExpectVerifies(const std::string& ref) {
+  for (const char* dtype : {"f32", "f16"}) {
+    SCOPED_TRACE(dtype);
+    const std::string model = ref + "/m_" + dtype + ".sprig";
+    auto r = Pack(ref, ref + "/config.json", dtype, model);
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    r = testing::Run(testing::SprigCli() + " verify " + Quote(model) + " " +
+                     Quote(ref + "/reference.npz") + " --json");
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    const nlohmann::json j = nlohmann::json::parse(r.output, nullptr, false);
+    ASSERT_TRUE(j.is_object()) << r.output;
+    EXPECT_TRUE(j["outputs"]["ok"].get<bool>()) << r.output;
+    EXPECT_EQ(j["outputs"]["rows_compared"], 40) << r.output;
+    std::printf("[ %s %s ] outputs max abs error %.3g, max rel error %.3g\n", ref.c_str(), dtype,
+                j["outputs"]["max_abs_error"].get<double>(),
+                j["outputs"]["max_rel_error"].get<double>());
+  }
+}
+
+// The config with one field replaced, written beside the reference; returns its path.
+std::string ConfigWith(const std::string& ref, const std::string& key, const nlohmann::json& v) {
+  nlohmann::json c = nlohmann::json::parse(testing::ReadFile(ref + "/config.json"));
+  c[key] = v;
+  const std::string path = ref + "/config_" + key + ".json";
+  testing::WriteFile(path, c.dump());
+  return path;
+}
+
+// Verify's exit code for the model packed (f32) with a config that misdescribes the module.
+int VerifyMisdescribed(const std::string& ref, const std::string& key, const nlohmann::json& v) {
+  const std::string model = ref + "/wrong_" + key + ".sprig";
+  auto r = Pack(ref, ConfigWith(ref, key, v), "f32", model);
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  return testing::Run(testing::SprigCli() + " verify " + Quote(model) + " " +
+                      Quote(ref + "/reference.npz"))
+      .exit_code;
+}
+
+// PyTorch's nn.TransformerEncoderLayer, norm_first=False, activation "gelu", in an
+// nn.TransformerEncoder; BERT-style embedding LayerNorm; MLM head with its own vocabulary
+// projection. The same tensors under a pre-norm config compute something else: verify fails.
+TEST(VerifyTorchNnBlocks, PostNormEncoderLayerWithMlmHead) {
+  testing::TempDir dir;
+  const std::string ref = Build(dir, "encoder_gelu");
+  ExpectVerifies(ref);
+  EXPECT_EQ(VerifyMisdescribed(ref, "norm_position", "pre"), 1);
+}
+
+// PyTorch's nn.TransformerEncoderLayer, norm_first=False, activation "relu", two layers; the
+// MLM head's vocabulary projection tied to the token embedding (BERT ties them), so the module's
+// parameters hold it once. Read without the embedding norm, the model fails verify.
+TEST(VerifyTorchNnBlocks, PostNormEncoderLayerWithTiedMlmHead) {
+  testing::TempDir dir;
+  const std::string ref = Build(dir, "encoder_relu");
+  ExpectVerifies(ref);
+  const std::string model = ref + "/no_embed_norm.sprig";
+  auto r = Pack(ref, ConfigWith(ref, "embed_norm", false), "f32", model);
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("embed_norm.weight"), std::string::npos) << r.output;
+}
+
+// nn.MultiheadAttention (fused in_proj split by the mapping file) inside a pre-norm block with a
+// causal attn_mask, final LayerNorm and an lm head. Read as bidirectional, verify fails.
+TEST(VerifyTorchNnBlocks, MultiheadAttentionInAPreNormCausalBlock) {
+  testing::TempDir dir;
+  const std::string ref = Build(dir, "mha_causal");
+  ExpectVerifies(ref);
+  EXPECT_EQ(VerifyMisdescribed(ref, "causal", false), 1);
+}
+
+// Attention of separate nn.Linear projections, q/k/v with bias and the output without; the pack
+// of a config claiming all four biases is refused, naming the output projection's bias.
+TEST(VerifyTorchNnBlocks, QueryKeyValueBiasesWithoutOutputBias) {
+  testing::TempDir dir;
+  const std::string ref = Build(dir, "qkv_bias");
+  ExpectVerifies(ref);
+  auto r = Pack(ref, ConfigWith(ref, "attn_bias", true), "f32", ref + "/all.sprig");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("blocks.0.attn.o.bias"), std::string::npos) << r.output;
+}
+
+}  // namespace
+}  // namespace sprig
