@@ -6,6 +6,7 @@
 #include "converter/config/config_equal.h"
 #include "converter/config/config_json.h"
 #include "format/header_config.h"
+#include "support/test_util.h"
 
 namespace sprig {
 namespace {
@@ -77,6 +78,25 @@ TEST(HeaderConfig, ContradictoryBiasFlagsAreRefused) {
   EXPECT_EQ(c.status().message(),
             "x.sprig: the header's config field attn_bias is true but not every "
             "attn_bias_q/k/v/o flag is");
+}
+
+// A post-norm model's file says format version 2, so a version-1 reader refuses it instead of
+// running its blocks as pre-norm; any other model stays version 1 (schema/README.md).
+TEST(HeaderConfig, PostNormFilesAreFormatVersionTwo) {
+  testing::TempDir dir;
+  const std::string base = R"({"family":"transformer","vocab_size":20,"d_model":8,"n_heads":2,
+    "max_seq":4,"layers":[{"kind":"dense","width":4}],)";
+  for (const auto& [fields, version] :
+       {std::pair<std::string, uint32_t>{R"("norm_position":"post"})", 2},
+        {R"("norm_position":"pre","final_norm":false,"embed_norm":true,"attn_bias":["q"]})", 1}}) {
+    const std::string path =
+        testing::PackSynthesized(dir, "m" + std::to_string(version), base + fields);
+    const std::string bytes = testing::ReadFile(path);
+    ASSERT_GE(bytes.size(), 12u);
+    uint32_t stored = 0;
+    for (int i = 0; i < 4; ++i) stored |= uint32_t{static_cast<uint8_t>(bytes[8 + i])} << (8 * i);
+    EXPECT_EQ(stored, version) << fields;
+  }
 }
 
 }  // namespace

@@ -75,6 +75,10 @@ flatbuffers::Offset<fb::Config> BuildConfig(flatbuffers::FlatBufferBuilder& b,
   return cb.Finish();
 }
 
+uint32_t RequiredFormatVersion(const ModelConfig& config) {
+  return config.norm_position == NormPosition::kPost ? 2 : 1;
+}
+
 Result<ModelConfig> ReadConfig(const fb::Config& f, const std::string& source) {
   ModelConfig c;
   const auto bad = [&](const char* field) {
