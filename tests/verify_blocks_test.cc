@@ -9,7 +9,9 @@
 // Each is saved with NumPy under its own parameter names, packed with its mapping file (renames
 // with {i} placeholders; nn.MultiheadAttention's fused in_proj_weight/in_proj_bias split into
 // q, k, v) and checked with `sprig verify` at f32 and f16 against the module's own forward pass
-// (float64). A config that misdescribes the module must then fail, so each case can fail.
+// (float64). A config that misdescribes the module must then fail, so each case can fail. The
+// script also loads the weights through the same mapping file into sprig's own reference modules
+// (sprig_torch), which must agree with the torch.nn module.
 #include <gtest/gtest.h>
 
 #include <nlohmann/json.hpp>
@@ -22,17 +24,14 @@ namespace {
 
 using testing::Quote;
 
-// Until pack's mapping file splits tensors, the script splits the fused ones with NumPy.
-const char* const kSplitOption = " --numpy-split";
-const char* const kMapOption = " --rename ";
-
 // Writes case `name` of torch_nn_blocks.py into dir/name and returns that directory.
 std::string Build(const testing::TempDir& dir, const std::string& name) {
   const std::string out = dir.File(name);
   const auto r =
-      testing::Run(testing::Python() + " " +
+      testing::Run("PYTHONPATH=" + Quote(std::string(SPRIG_SOURCE_DIR) + "/converter/python") +
+                   " " + testing::Python() + " " +
                    Quote(std::string(SPRIG_SOURCE_DIR) + "/tests/python/torch_nn_blocks.py") + " " +
-                   name + " " + Quote(out) + kSplitOption);
+                   name + " " + Quote(out));
   EXPECT_EQ(r.exit_code, 0) << r.output;
   return out;
 }
@@ -40,12 +39,12 @@ std::string Build(const testing::TempDir& dir, const std::string& name) {
 testing::CommandResult Pack(const std::string& ref, const std::string& config, const char* dtype,
                             const std::string& out) {
   return testing::Run(testing::SprigCli() + " pack " + Quote(config) + " " +
-                      Quote(ref + "/weights.npz") + kMapOption + Quote(ref + "/map.json") +
+                      Quote(ref + "/weights.npz") + " --map " + Quote(ref + "/map.json") +
                       " --dtype " + dtype + " --force -o " + Quote(out));
 }
 
 // Packs at f32 and f16 and verifies each: both pass, and the figures are printed.
-void ExpectVerifies(const std::string& ref) {
+void ExpectVerifies(const std::string& ref, const char* name) {
   for (const char* dtype : {"f32", "f16"}) {
     SCOPED_TRACE(dtype);
     const std::string model = ref + "/m_" + dtype + ".sprig";
@@ -58,7 +57,7 @@ void ExpectVerifies(const std::string& ref) {
     ASSERT_TRUE(j.is_object()) << r.output;
     EXPECT_TRUE(j["outputs"]["ok"].get<bool>()) << r.output;
     EXPECT_EQ(j["outputs"]["rows_compared"], 40) << r.output;
-    std::printf("[ %s %s ] outputs max abs error %.3g, max rel error %.3g\n", ref.c_str(), dtype,
+    std::printf("[ %s %s ] outputs max abs error %.3g, max rel error %.3g\n", name, dtype,
                 j["outputs"]["max_abs_error"].get<double>(),
                 j["outputs"]["max_rel_error"].get<double>());
   }
@@ -89,7 +88,7 @@ int VerifyMisdescribed(const std::string& ref, const std::string& key, const nlo
 TEST(VerifyTorchNnBlocks, PostNormEncoderLayerWithMlmHead) {
   testing::TempDir dir;
   const std::string ref = Build(dir, "encoder_gelu");
-  ExpectVerifies(ref);
+  ExpectVerifies(ref, "encoder_gelu");
   EXPECT_EQ(VerifyMisdescribed(ref, "norm_position", "pre"), 1);
 }
 
@@ -99,7 +98,7 @@ TEST(VerifyTorchNnBlocks, PostNormEncoderLayerWithMlmHead) {
 TEST(VerifyTorchNnBlocks, PostNormEncoderLayerWithTiedMlmHead) {
   testing::TempDir dir;
   const std::string ref = Build(dir, "encoder_relu");
-  ExpectVerifies(ref);
+  ExpectVerifies(ref, "encoder_relu");
   const std::string model = ref + "/no_embed_norm.sprig";
   auto r = Pack(ref, ConfigWith(ref, "embed_norm", false), "f32", model);
   EXPECT_EQ(r.exit_code, 2) << r.output;
@@ -111,7 +110,7 @@ TEST(VerifyTorchNnBlocks, PostNormEncoderLayerWithTiedMlmHead) {
 TEST(VerifyTorchNnBlocks, MultiheadAttentionInAPreNormCausalBlock) {
   testing::TempDir dir;
   const std::string ref = Build(dir, "mha_causal");
-  ExpectVerifies(ref);
+  ExpectVerifies(ref, "mha_causal");
   EXPECT_EQ(VerifyMisdescribed(ref, "causal", false), 1);
 }
 
@@ -120,7 +119,7 @@ TEST(VerifyTorchNnBlocks, MultiheadAttentionInAPreNormCausalBlock) {
 TEST(VerifyTorchNnBlocks, QueryKeyValueBiasesWithoutOutputBias) {
   testing::TempDir dir;
   const std::string ref = Build(dir, "qkv_bias");
-  ExpectVerifies(ref);
+  ExpectVerifies(ref, "qkv_bias");
   auto r = Pack(ref, ConfigWith(ref, "attn_bias", true), "f32", ref + "/all.sprig");
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("blocks.0.attn.o.bias"), std::string::npos) << r.output;

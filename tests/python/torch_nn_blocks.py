@@ -26,10 +26,10 @@ in_proj_weight [3d, d] and in_proj_bias [3d], a split along axis 0 into the q, k
 projections), DIR/config.json and DIR/reference.npz (`inputs`: int64 token ids [B, T];
 `outputs`: the module's own forward in float64 from the float32 weights, [B, T, vocab]).
 
-With --numpy-split, the fused tensors are split here with NumPy instead and map.json holds
-renames only (for a `sprig pack` without the mapping file's split).
-
-Uses Debian's python3-torch and python3-numpy; nothing of sprig computes the reference.
+Nothing of sprig computes the reference (Debian's python3-torch and python3-numpy). Then, as a
+check of sprig's own PyTorch reference modules, the weights are loaded through the same mapping
+file into sprig_torch (export.load_weights; PYTHONPATH must include converter/python), whose
+outputs must agree with the module's (export.check_outputs) or the script fails.
 """
 
 import argparse
@@ -182,7 +182,7 @@ class QwenLike(nn.Module):
         return self.norm(x) @ self.embed_tokens.weight.t()
 
 
-def _qkv_split(prefix, what):
+def _qkv_split(what):
     return {"split": [f"blocks.{{i}}.attn.{p}.{what}" for p in "qkv"], "axis": 0}
 
 
@@ -201,8 +201,8 @@ def _encoder_case(activation, layers, tied, eps):
     mapping = {
         "tok.weight": "embed.weight", "pos_emb.weight": "pos.weight",
         "emb_ln.weight": "embed_norm.weight", "emb_ln.bias": "embed_norm.bias",
-        p + "self_attn.in_proj_weight": _qkv_split(p, "weight"),
-        p + "self_attn.in_proj_bias": _qkv_split(p, "bias"),
+        p + "self_attn.in_proj_weight": _qkv_split("weight"),
+        p + "self_attn.in_proj_bias": _qkv_split("bias"),
         p + "self_attn.out_proj.weight": "blocks.{i}.attn.o.weight",
         p + "self_attn.out_proj.bias": "blocks.{i}.attn.o.bias",
         p + "linear1.weight": "blocks.{i}.ffn.fc1.weight",
@@ -233,8 +233,8 @@ def _mha_case():
     mapping = {
         "wte.weight": "embed.weight", "wpe.weight": "pos.weight",
         p + "ln_1.weight": "blocks.{i}.norm1.weight", p + "ln_1.bias": "blocks.{i}.norm1.bias",
-        p + "attn.in_proj_weight": _qkv_split(p, "weight"),
-        p + "attn.in_proj_bias": _qkv_split(p, "bias"),
+        p + "attn.in_proj_weight": _qkv_split("weight"),
+        p + "attn.in_proj_bias": _qkv_split("bias"),
         p + "attn.out_proj.weight": "blocks.{i}.attn.o.weight",
         p + "attn.out_proj.bias": "blocks.{i}.attn.o.bias",
         p + "ln_2.weight": "blocks.{i}.norm2.weight", p + "ln_2.bias": "blocks.{i}.norm2.bias",
@@ -295,38 +295,10 @@ def _randomize(model, gen):
                 p.copy_(torch.randn(p.shape, generator=gen) / math.sqrt(p.shape[-1]))
 
 
-def _numpy_split(weights, mapping):
-    """Splits each fused tensor named by a split entry with NumPy and keeps only the renames."""
-    import re
-    renames, out = {}, dict(weights)
-    for key, value in mapping.items():
-        if isinstance(value, str):
-            renames[key] = value
-            continue
-        pattern = re.compile("^" + re.escape(key).replace(r"\{i\}", "(0|[1-9][0-9]*)") + "$")
-        for name in list(out):
-            m = pattern.match(name)
-            if not m:
-                continue
-            parts = np.split(out.pop(name), len(value["split"]), axis=value["axis"])
-            for target, part in zip(value["split"], parts):
-                out[target.replace("{i}", m.group(1))] = part
-    # Renames with a placeholder, expanded for the indices present.
-    expanded = {}
-    for key, value in renames.items():
-        pattern = re.compile("^" + re.escape(key).replace(r"\{i\}", "(0|[1-9][0-9]*)") + "$")
-        for name in out:
-            m = pattern.match(name)
-            if m:
-                expanded[name] = value.replace("{i}", m.group(1)) if m.groups() else value
-    return out, expanded
-
-
 def main(argv):
     parser = argparse.ArgumentParser()
     parser.add_argument("case", choices=sorted(CASES))
     parser.add_argument("out")
-    parser.add_argument("--numpy-split", action="store_true")
     args = parser.parse_args(argv)
     torch.manual_seed(0)
     model, config, mapping = CASES[args.case]()
@@ -340,8 +312,11 @@ def main(argv):
     with torch.no_grad():
         # float64 from the float32 weights: the exact model of the stored numbers.
         outputs = model.to(torch.float64)(torch.from_numpy(ids)).numpy().astype(np.float32)
-    if args.numpy_split:
-        weights, mapping = _numpy_split(weights, mapping)
+    # sprig's reference modules, given the same weights through the same mapping file, must
+    # compute what the torch.nn module computes.
+    from sprig_torch.export import check_outputs, load_weights, reference_arrays
+    ours = load_weights(config, weights, mapping)
+    check_outputs(reference_arrays(ours, ids)["outputs"], outputs)
     os.makedirs(args.out, exist_ok=True)
     with open(os.path.join(args.out, "config.json"), "w", encoding="utf-8") as f:
         json.dump(config, f, indent=1)
