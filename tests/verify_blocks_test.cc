@@ -4,7 +4,8 @@
 //     nn.TransformerEncoder, with a LayerNorm on the embeddings (BERT-style), no final norm and
 //     a masked-language-model head (nn.Linear, nn.GELU, nn.LayerNorm, vocabulary nn.Linear with
 //     bias; once tied to the embedding);
-//   - nn.MultiheadAttention inside a pre-norm causal block with an lm head;
+//   - nn.MultiheadAttention inside a pre-norm causal block with an lm head, one block's MLP a
+//     leaf tree of torch.nn modules (routes checked);
 //   - attention written with nn.Linear q/k/v with bias and the output projection without.
 // Each is saved with NumPy under its own parameter names, packed with its mapping file (renames
 // with {i} placeholders; nn.MultiheadAttention's fused in_proj_weight/in_proj_bias split into
@@ -57,6 +58,10 @@ void ExpectVerifies(const std::string& ref, const char* name) {
     ASSERT_TRUE(j.is_object()) << r.output;
     EXPECT_TRUE(j["outputs"]["ok"].get<bool>()) << r.output;
     EXPECT_EQ(j["outputs"]["rows_compared"], 40) << r.output;
+    // A routed block (the causal case's tree) agrees on every row.
+    for (const nlohmann::json& layer : j["routing"]) {
+      EXPECT_EQ(layer["agreement_percent"], 100.0) << r.output;
+    }
     std::printf("[ %s %s ] outputs max abs error %.3g, max rel error %.3g\n", name, dtype,
                 j["outputs"]["max_abs_error"].get<double>(),
                 j["outputs"]["max_rel_error"].get<double>());
@@ -106,11 +111,21 @@ TEST(VerifyTorchNnBlocks, PostNormEncoderLayerWithTiedMlmHead) {
 }
 
 // nn.MultiheadAttention (fused in_proj split by the mapping file) inside a pre-norm block with a
-// causal attn_mask, final LayerNorm and an lm head. Read as bidirectional, verify fails.
+// causal attn_mask, final LayerNorm and an lm head; the second block's MLP is a leaf tree. Read
+// as bidirectional, verify fails.
 TEST(VerifyTorchNnBlocks, MultiheadAttentionInAPreNormCausalBlock) {
   testing::TempDir dir;
   const std::string ref = Build(dir, "mha_causal");
   ExpectVerifies(ref, "mha_causal");
+  // Its second block's feed-forward is a leaf tree of torch.nn modules, stacked by the mapping
+  // file: routes are required and checked.
+  auto r = testing::Run(testing::SprigCli() + " verify " + Quote(ref + "/m_f16.sprig") + " " +
+                        Quote(ref + "/reference.npz") + " --require-routes --json");
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  const nlohmann::json j = nlohmann::json::parse(r.output, nullptr, false);
+  ASSERT_TRUE(j.is_object()) << r.output;
+  ASSERT_EQ(j["routing"].size(), 1u) << r.output;
+  EXPECT_EQ(j["routing"][0]["layer"], 1);
   EXPECT_EQ(VerifyMisdescribed(ref, "causal", false), 1);
 }
 

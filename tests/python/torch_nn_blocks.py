@@ -14,7 +14,9 @@ CASE is one of:
                  to the token embedding (decoder.weight is tok.weight, as BERT ties them).
   mha_causal     nn.MultiheadAttention (batch_first=True) inside a pre-norm block written as
                  GPT-style training code writes it (ln_1, attn with a causal attn_mask, ln_2, an
-                 nn.Sequential MLP), a final LayerNorm and an lm head nn.Linear without bias.
+                 nn.Sequential MLP), a final LayerNorm and an lm head nn.Linear without bias; the
+                 second block's MLP is a leaf tree (nn.Linear nodes, an nn.ModuleList of
+                 leaves, stacked by the mapping file), whose routes and margins are written.
   qkv_bias       attention written with separate nn.Linear projections, q/k/v with a bias and
                  the output projection without (as Qwen-style attention has), pre-norm, a gated
                  SiLU MLP without biases, causal, the lm head tied to the embedding.
@@ -24,7 +26,8 @@ float32 NumPy arrays; a tied weight appears once, under the embedding's name), D
 (their names → sprig's: renames with `{i}` placeholders and, for nn.MultiheadAttention's fused
 in_proj_weight [3d, d] and in_proj_bias [3d], a split along axis 0 into the q, k and v
 projections), DIR/config.json and DIR/reference.npz (`inputs`: int64 token ids [B, T];
-`outputs`: the module's own forward in float64 from the float32 weights, [B, T, vocab]).
+`outputs`: the module's own forward in float64 from the float32 weights, [B, T, vocab]; for a
+routed block i, `routes.layer{i}` and `margins.layer{i}`).
 
 Nothing of sprig computes the reference (Debian's python3-torch and python3-numpy). Then, as a
 check of sprig's own PyTorch reference modules, the weights are loaded through the same mapping
@@ -92,6 +95,35 @@ class PreNormBlock(nn.Module):
         return x + self.mlp(self.ln_2(x))
 
 
+class LeafTreeMlp(nn.Module):
+    """A binary tree of nn.Linear routing nodes over an nn.ModuleList of small MLPs, as
+    fast-feedforward code writes it: each row descends from the root, going right when its node's
+    logit is > 0, and is computed by the one leaf it reaches. `routes` and `margins` (the
+    smallest |logit| on the row's path) are kept from the last call."""
+
+    def __init__(self, depth, width):
+        super().__init__()
+        self.depth = depth
+        self.nodes = nn.Linear(D, 2**depth - 1)
+        self.leaves = nn.ModuleList(
+            nn.Sequential(nn.Linear(D, width), nn.GELU(), nn.Linear(width, D))
+            for _ in range(2**depth))
+
+    def forward(self, x):
+        rows = x.reshape(-1, D)
+        logits = self.nodes(rows)
+        node = torch.zeros(rows.shape[0], dtype=torch.long)
+        margin = torch.full((rows.shape[0],), math.inf, dtype=rows.dtype)
+        for _ in range(self.depth):
+            logit = logits.gather(1, node[:, None])[:, 0]
+            margin = torch.minimum(margin, logit.abs())
+            node = 2 * node + 1 + (logit > 0).long()
+        leaf = node - (2**self.depth - 1)
+        out = torch.stack([self.leaves[int(j)](r) for j, r in zip(leaf, rows)])
+        self.routes, self.margins = leaf, margin
+        return out.reshape(x.shape)
+
+
 class GptLike(nn.Module):
 
     def __init__(self, layers):
@@ -99,6 +131,8 @@ class GptLike(nn.Module):
         self.wte = nn.Embedding(VOCAB, D)
         self.wpe = nn.Embedding(MAX_SEQ, D)
         self.h = nn.ModuleList(PreNormBlock() for _ in range(layers))
+        # The last block's feed-forward is routed.
+        self.h[-1].mlp = LeafTreeMlp(depth=2, width=16)
         self.ln_f = nn.LayerNorm(D)
         self.lm_head = nn.Linear(D, VOCAB, bias=False)
 
@@ -110,6 +144,10 @@ class GptLike(nn.Module):
         for block in self.h:
             x = block(x, mask)
         return self.lm_head(self.ln_f(x))
+
+    def routed(self):
+        """{block index: its routed feed-forward module}."""
+        return {i: b.mlp for i, b in enumerate(self.h) if isinstance(b.mlp, LeafTreeMlp)}
 
 
 class RmsNorm(nn.Module):
@@ -227,7 +265,9 @@ def _mha_case():
         "vocab_size": VOCAB, "d_model": D, "n_heads": HEADS, "max_seq": MAX_SEQ,
         "norm": "layernorm", "positions": "learned", "causal": True, "attn_bias": True,
         "head": {"kind": "lm"},
-        "layers": [{"kind": "dense", "width": FF, "activation": "gelu"}] * 2,
+        "layers": [{"kind": "dense", "width": FF, "activation": "gelu"},
+                   {"kind": "tree", "mode": "leaf", "depth": 2, "leaf_width": 16,
+                    "activation": "gelu"}],
     }
     p = "h.{i}."
     mapping = {
@@ -240,6 +280,13 @@ def _mha_case():
         p + "ln_2.weight": "blocks.{i}.norm2.weight", p + "ln_2.bias": "blocks.{i}.norm2.bias",
         p + "mlp.0.weight": "blocks.{i}.ffn.fc1.weight", p + "mlp.0.bias": "blocks.{i}.ffn.fc1.bias",
         p + "mlp.2.weight": "blocks.{i}.ffn.fc2.weight", p + "mlp.2.bias": "blocks.{i}.ffn.fc2.bias",
+        # The routed block's tree: its leaves' MLPs stacked into one tensor per parameter.
+        p + "mlp.nodes.weight": "blocks.{i}.ffn.nodes.weight",
+        p + "mlp.nodes.bias": "blocks.{i}.ffn.nodes.bias",
+        p + "mlp.leaves.{j}.0.weight": {"stack": "blocks.{i}.ffn.leaves.fc1.weight", "over": "j"},
+        p + "mlp.leaves.{j}.0.bias": {"stack": "blocks.{i}.ffn.leaves.fc1.bias", "over": "j"},
+        p + "mlp.leaves.{j}.2.weight": {"stack": "blocks.{i}.ffn.leaves.fc2.weight", "over": "j"},
+        p + "mlp.leaves.{j}.2.bias": {"stack": "blocks.{i}.ffn.leaves.fc2.bias", "over": "j"},
         "ln_f.weight": "norm.weight", "ln_f.bias": "norm.bias", "lm_head.weight": "head.weight",
     }
     return model, config, mapping
@@ -285,7 +332,7 @@ def _randomize(model, gen):
     misplaced one shows), embeddings of unit scale."""
     with torch.no_grad():
         for name, p in model.named_parameters():
-            if p.dim() == 1 and ("norm" in name or "ln" in name):
+            if p.dim() == 1 and ("norm" in name or "ln" in name) and name.endswith("weight"):
                 p.copy_(1.0 + 0.1 * torch.randn(p.shape, generator=gen))
             elif p.dim() == 1:
                 p.copy_(0.1 * torch.randn(p.shape, generator=gen))
@@ -312,6 +359,11 @@ def main(argv):
     with torch.no_grad():
         # float64 from the float32 weights: the exact model of the stored numbers.
         outputs = model.to(torch.float64)(torch.from_numpy(ids)).numpy().astype(np.float32)
+    reference = {"inputs": ids, "outputs": outputs}
+    # A routed block's choices and margins, its tokens in batch-major order as verify reads them.
+    for i, mlp in (model.routed() if hasattr(model, "routed") else {}).items():
+        reference[f"routes.layer{i}"] = mlp.routes.numpy().astype(np.int32)
+        reference[f"margins.layer{i}"] = mlp.margins.numpy().astype(np.float32)
     # sprig's reference modules, given the same weights through the same mapping file, must
     # compute what the torch.nn module computes.
     from sprig_torch.export import check_outputs, load_weights, reference_arrays
@@ -323,7 +375,7 @@ def main(argv):
     with open(os.path.join(args.out, "map.json"), "w", encoding="utf-8") as f:
         json.dump(mapping, f, indent=1)
     np.savez(os.path.join(args.out, "weights.npz"), **weights)
-    np.savez(os.path.join(args.out, "reference.npz"), inputs=ids, outputs=outputs)
+    np.savez(os.path.join(args.out, "reference.npz"), **reference)
     return 0
 
 
