@@ -285,8 +285,8 @@ TEST_F(PackCliMapping, BadMappingsAreRefusedByName) {
 TEST(PackCliExporter, LoadWeightsGetsWhatPackGets) {
   const std::string src = SPRIG_SOURCE_DIR;
   auto r = testing::Run("SPRIG_CLI=" + Quote(testing::SprigCli()) + " PYTHONPATH=" +
-                        Quote(src + "/converter/python") + " " + testing::Python() +
-                        " -m unittest -v " + Quote(src + "/tests/python/test_mapping.py"));
+                        Quote(src + "/converter/python") + " " + testing::Python() + " " +
+                        Quote(src + "/tests/python/test_mapping.py") + " -v");
   EXPECT_EQ(r.exit_code, 0) << r.output;
   // The comparison with pack ran: it skips itself only without SPRIG_CLI.
   EXPECT_NE(r.output.find("test_pack_gets_what_load_weights_gets"), std::string::npos) << r.output;

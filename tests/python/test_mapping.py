@@ -27,6 +27,7 @@ _PACKAGE_DIR = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", ".
 sys.path.insert(0, os.path.normpath(_PACKAGE_DIR))
 
 from sprig_torch.export import load_weights, random_model, weight_arrays  # noqa: E402
+from sprig_torch.mapping import Mapping  # noqa: E402
 
 CONFIG = {"family": "transformer", "vocab_size": 32, "d_model": 8, "n_heads": 2, "max_seq": 16,
           "layers": [{"kind": "experts", "experts": 3, "top_k": 2, "width": 6, "gated": True},
@@ -196,6 +197,19 @@ class MappingTest(unittest.TestCase):
                          "tensor 'blocks.0.ffn.experts.fc1.weight' (stacked from "
                          "layers.0.moe.experts.{e}.w1.weight) has shape [3, 7, 8], expected "
                          "[3, 6, 8]")
+
+    def test_placeholders_match_whole_numbers(self):
+        mapping = Mapping({"l{a}.e{b}": "x.{b}.{a}", "h.{i}.w": "b.{i}"})
+        self.assertEqual(list(mapping.apply({"l10.e3": 1, "h.07.w": 2, "h.12.w": 3, "h.x.w": 4})),
+                         ["x.3.10", "h.07.w", "b.12", "h.x.w"])
+        # A key that could divide a run of digits in very many ways fails in polynomial time.
+        key = "w" + "".join(f"{{p{i}}}1" for i in range(16))
+        value = "x" + "".join(f".{{p{i}}}" for i in range(16))
+        self.assertEqual(list(Mapping({key: value}).apply({"w" + "1" * 400 + "2": 1})),
+                         ["w" + "1" * 400 + "2"])
+        with self.assertRaises(ValueError) as caught:
+            Mapping({key + "{p16}": value + ".{p16}"})
+        self.assertIn("has more than 16 placeholders", str(caught.exception))
 
     @unittest.skipUnless(os.environ.get("SPRIG_CLI"), "SPRIG_CLI does not name the sprig program")
     def test_pack_gets_what_load_weights_gets(self):

@@ -16,9 +16,10 @@ import re
 
 import numpy as np
 
+# As the converter's limit (converter/config/mapping.cc).
+_MAX_PLACEHOLDERS = 16
 _PLACEHOLDER_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
-# A placeholder's value: a decimal integer without leading zeros.
-_INDEX = r"0|[1-9][0-9]*"
+_DIGITS = "0123456789"
 _FIELDS = {"to": ("to", "transpose"), "stack": ("stack", "over", "transpose"),
            "split": ("split", "axis", "transpose")}
 
@@ -53,6 +54,8 @@ def _parse_pattern(text, where):
         if tokens and tokens[-1][0]:
             raise ValueError(f"{where}: {_q(text)} has two placeholders with nothing between them")
         tokens.append((True, name))
+        if len(_placeholders(tokens)) > _MAX_PLACEHOLDERS:
+            raise ValueError(f"{where}: {_q(text)} has more than {_MAX_PLACEHOLDERS} placeholders")
         i = close + 1
     if literal:
         tokens.append((False, literal))
@@ -63,8 +66,42 @@ def _placeholders(tokens):
     return [t for p, t in tokens if p]
 
 
-def _regex(tokens):
-    return re.compile("".join(f"(?P<{t}>{_INDEX})" if p else re.escape(t) for p, t in tokens))
+class _Matcher:
+    """Matches names against a pattern as the converter does (converter/config/mapping.cc):
+    each placeholder takes a decimal integer without leading zeros, longest first, and a
+    (token, position) that failed once is not tried again, so no key costs exponential time (a
+    regular expression would backtrack through every way to divide a run of digits)."""
+
+    def __init__(self, tokens):
+        self.tokens = tokens
+
+    def fullmatch(self, name):
+        failed, values = set(), {}
+
+        def match(t, pos):
+            if t == len(self.tokens):
+                return pos == len(name)
+            if (t, pos) in failed:
+                return False
+            placeholder, text = self.tokens[t]
+            if not placeholder:
+                if name.startswith(text, pos) and match(t + 1, pos + len(text)):
+                    return True
+            else:
+                end = pos
+                while end < len(name) and name[end] in _DIGITS:
+                    end += 1
+                if end > pos and name[pos] == "0":
+                    end = pos + 1  # "0" alone; "07" is not a number here
+                for stop in range(end, pos, -1):
+                    values[text] = name[pos:stop]
+                    if match(t + 1, stop):
+                        return True
+                values.pop(text, None)
+            failed.add((t, pos))
+            return False
+
+        return dict(values) if match(0, 0) else None
 
 
 def _substitute(tokens, values):
@@ -187,8 +224,8 @@ class _Entry:
                     raise ValueError(f"{self.where}: {_q(v)} does not use the key's {{{name}}}, "
                                      "so every tensor it matches would get that one name")
             self.value_tokens.append(tokens)
-        self.key_regex = _regex(self.key_tokens)
-        self.value_regexes = [_regex(t) for t in self.value_tokens]
+        self.key_matcher = _Matcher(self.key_tokens)
+        self.value_matchers = [_Matcher(t) for t in self.value_tokens]
 
     def error(self, detail):
         return ValueError(f"{self.where}: {detail}")
@@ -250,14 +287,14 @@ class Mapping:
                                      f"both produce {_q(name)}")
                 producer[name] = e.key
 
-    def _claim(self, name, regexes):
+    def _claim(self, name, matchers):
         """(entry, values) of the one entry whose pattern matches `name`, or None."""
         found = []
         for e in self.entries:
-            for r in regexes(e):
-                m = r.fullmatch(name)
-                if m:
-                    found.append((e, m.groupdict()))
+            for r in matchers(e):
+                values = r.fullmatch(name)
+                if values is not None:
+                    found.append((e, values))
                     break
         if len(found) > 1:
             raise ValueError(f"{self.source}: {name} matches both entry {_q(found[0][0].key)} and "
@@ -271,7 +308,7 @@ class Mapping:
         outputs = []  # (our name, array, origin, entry or None, their name)
         stacks = {}   # (entry key, our name) -> [pattern, position, {index: (their name, array)}]
         for name, a in arrays.items():
-            claim = self._claim(name, lambda e: [e.key_regex])
+            claim = self._claim(name, lambda e: [e.key_matcher])
             if claim is None:
                 outputs.append((name, a, None, None, name))
                 continue
@@ -356,7 +393,7 @@ class Mapping:
         for ours, a in arrays.items():
             if ours in done:
                 continue
-            claim = self._claim(ours, lambda e: e.value_regexes)
+            claim = self._claim(ours, lambda e: e.value_matchers)
             if claim is None:
                 put(ours, a)
                 continue
