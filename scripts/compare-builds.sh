@@ -182,6 +182,17 @@ model tf-none-head '{"family":"transformer","name":"hidden states","vocab_size":
   "attn_bias":false,"head":{"kind":"none"},"layers":[
   {"kind":"experts","experts":6,"top_k":2,"width":16,"activation":"gelu","gated":true},
   {"kind":"tree","mode":"leaf","depth":4,"leaf_width":8,"activation":"gelu_tanh"}]}'
+model tf-post-norm-mlm-head '{"family":"transformer","name":"post-norm, embedding norm, mlm head",
+  "vocab_size":90,"d_model":32,"n_heads":4,"max_seq":24,"norm":"layernorm","positions":"learned",
+  "causal":false,"norm_position":"post","final_norm":false,"embed_norm":true,
+  "attn_bias":["q","k","v"],"head":{"kind":"lm","transform":{"activation":"gelu"},"bias":true},
+  "layers":[{"kind":"dense","width":64,"activation":"gelu"},
+  {"kind":"tree","mode":"leaf","depth":3,"leaf_width":8,"activation":"relu"}]}'
+model tf-post-norm-tied-transform '{"family":"transformer","name":"post-norm, tied, transform",
+  "vocab_size":256,"tokenizer":"byte","d_model":32,"n_heads":4,"n_kv_heads":2,"max_seq":32,
+  "norm":"rmsnorm","positions":"rope","norm_position":"post","tie_embeddings":true,
+  "attn_bias":["o"],"head":{"kind":"lm","transform":{"activation":"silu","norm":false},
+  "bias":true},"layers":[{"kind":"experts","experts":4,"top_k":2,"width":16,"activation":"silu"}]}'
 
 SAMPLES=(lm/tree lm/dense)
 # Storage options of `sprig pack`: each storage type, and int8 records under float32 routing

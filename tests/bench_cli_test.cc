@@ -263,6 +263,28 @@ TEST_F(BenchCli, TransformerReportsPrefillAndDecode) {
   EXPECT_EQ(r["input"]["prompts"], 3);
 }
 
+// The dense twin and the floor are the model's own blocks with dense layers: a post-norm model
+// with a norm on the embeddings, no final norm, biases on some projections and an lm head with
+// a transform keeps all of them (the twin is packed with the model's tensors as donor, so a
+// tensor the twin lacked or added would fail to build), and the head transform's 2·d² FLOPs
+// are counted on every side.
+TEST_F(BenchCli, DenseTwinKeepsTheBlockVariants) {
+  const std::string config = R"({"family":"transformer","vocab_size":50,"d_model":32,
+    "n_heads":4,"max_seq":32,"norm_position":"post","final_norm":false,"embed_norm":true,
+    "attn_bias":["q","k","v"],"head":{"kind":"lm","transform":{"activation":"gelu"},"bias":true},
+    "layers":[{"kind":"tree","mode":"leaf","depth":3,"leaf_width":4,"activation":"gelu"}]})";
+  const std::string model = testing::PackSynthesized(*dir_, "variants", config);
+  const json r = Bench(Quote(model) + " --repeat 1 --prompt-tokens 8 --decode-tokens 4", "v");
+  ASSERT_TRUE(r.is_object());
+  const uint64_t d = 32, v = 50, context = 4;
+  const uint64_t other = 4 * 2 * d * d + 2 * 2 * context * d + 2 * v * d + 2 * d * d;
+  for (const char* side : kSides) {
+    EXPECT_EQ(r["sides"][side]["flops"][0]["other"], other) << side;
+  }
+  const json& twin = r["sides"]["baseline"];
+  EXPECT_EQ(twin["flops"][0]["ffn"], 2 * 32 * (d + d)) << twin.dump();
+}
+
 // The same file on both sides: the same inputs give the same FLOPs, the same records touched
 // and the same page-cache sections (one file, one page cache).
 TEST_F(BenchCli, ModelAgainstItselfReportsEqualSides) {

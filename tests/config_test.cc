@@ -184,7 +184,12 @@ TEST(ConfigParse, TransformerFillsDefaults) {
   EXPECT_EQ(c->rope_base, 10000.0f);
   EXPECT_TRUE(c->causal);
   EXPECT_FALSE(c->tie_embeddings);
-  EXPECT_TRUE(c->attn_bias);
+  EXPECT_TRUE(c->attn_bias.all());
+  EXPECT_EQ(c->norm_position, NormPosition::kPre);
+  EXPECT_TRUE(c->final_norm);
+  EXPECT_FALSE(c->embed_norm);
+  EXPECT_FALSE(c->head.transform);
+  EXPECT_FALSE(c->head.bias);
   EXPECT_EQ(c->tokenizer, Tokenizer::kNone);
   EXPECT_EQ(c->head.kind, HeadKind::kLm);
   EXPECT_EQ(c->layers[0].in, 64u);
@@ -215,7 +220,7 @@ TEST(ConfigParse, TransformerExplicitFields) {
   EXPECT_EQ(c->positions, Positions::kRope);
   EXPECT_EQ(c->rope_base, 500000.0f);
   EXPECT_FALSE(c->causal);
-  EXPECT_FALSE(c->attn_bias);
+  EXPECT_TRUE(c->attn_bias.none());
   EXPECT_EQ(c->tokenizer, Tokenizer::kByte);
   EXPECT_EQ(c->head.kind, HeadKind::kClassifier);
   EXPECT_EQ(c->head.classes, 3u);
@@ -235,6 +240,67 @@ TEST(ConfigParse, TransformerExplicitFields) {
   c = Parse(j);
   ASSERT_TRUE(c.ok()) << c.status().message();
   EXPECT_TRUE(c->tie_embeddings);
+}
+
+// The block variants: post-norm, no final norm, a norm on the embeddings, biases on some
+// projections only, and an lm head with a transform and a bias.
+TEST(ConfigParse, TransformerBlockVariants) {
+  json j = BaseTransformer();
+  j["norm_position"] = "post";
+  j["final_norm"] = false;
+  j["embed_norm"] = true;
+  j["attn_bias"] = json::parse(R"(["q","k","v"])");
+  j["head"] = json::parse(R"({"kind":"lm","transform":{"activation":"relu","norm":false},
+                              "bias":true})");
+  auto c = Parse(j);
+  ASSERT_TRUE(c.ok()) << c.status().message();
+  EXPECT_EQ(c->norm_position, NormPosition::kPost);
+  EXPECT_FALSE(c->final_norm);
+  EXPECT_TRUE(c->embed_norm);
+  EXPECT_TRUE(c->attn_bias.q && c->attn_bias.k && c->attn_bias.v);
+  EXPECT_FALSE(c->attn_bias.o);
+  EXPECT_TRUE(c->head.transform);
+  EXPECT_EQ(c->head.transform_activation, Activation::kRelu);
+  EXPECT_FALSE(c->head.transform_norm);
+  EXPECT_TRUE(c->head.bias);
+  // The transform's fields default to gelu and a norm.
+  j["head"] = json::parse(R"({"kind":"lm","transform":{}})");
+  c = Parse(j);
+  ASSERT_TRUE(c.ok()) << c.status().message();
+  EXPECT_EQ(c->head.transform_activation, Activation::kGelu);
+  EXPECT_TRUE(c->head.transform_norm);
+  EXPECT_FALSE(c->head.bias);
+  j["attn_bias"] = json::array();
+  c = Parse(j);
+  ASSERT_TRUE(c.ok()) << c.status().message();
+  EXPECT_TRUE(c->attn_bias.none());
+}
+
+TEST(ConfigParse, TransformerBlockVariantErrors) {
+  json j = BaseTransformer();
+  j["norm_position"] = "middle";
+  EXPECT_EQ(ErrorOf(j),
+            "config.json: norm_position must be one of \"pre\" or \"post\", got \"middle\"");
+  j = BaseTransformer();
+  j["attn_bias"] = json::parse(R"(["q","q"])");
+  EXPECT_EQ(ErrorOf(j),
+            "config.json: attn_bias must be true, false or a list of distinct \"q\", \"k\", "
+            "\"v\", \"o\", got [\"q\",\"q\"]");
+  j["attn_bias"] = json::parse(R"(["query"])");
+  EXPECT_NE(ErrorOf(j).find("attn_bias must be"), std::string::npos);
+  j["attn_bias"] = "q";
+  EXPECT_NE(ErrorOf(j).find("attn_bias must be"), std::string::npos);
+  j = BaseTransformer();
+  j["head"] = json::parse(R"({"kind":"classifier","classes":2,"bias":true})");
+  EXPECT_EQ(ErrorOf(j),
+            "config.json: head: field \"bias\" does not apply to the classifier head (its "
+            "fields are kind, classes, pool)");
+  j["head"] = json::parse(R"({"kind":"lm","transform":{"activation":"tanh"}})");
+  EXPECT_NE(ErrorOf(j).find("head.transform.activation must be one of"), std::string::npos);
+  j["head"] = json::parse(R"({"kind":"lm","transform":{"dense":true}})");
+  EXPECT_NE(ErrorOf(j).find("head.transform: unknown field \"dense\""), std::string::npos);
+  j["head"] = json::parse(R"({"kind":"lm","transform":true})");
+  EXPECT_NE(ErrorOf(j).find("head.transform must be an object"), std::string::npos);
 }
 
 // A whole number written with a fraction part (as Python writes 256.0) is still an integer.
@@ -269,6 +335,10 @@ std::vector<ModelConfig> RoundTripConfigs() {
       R"({"family":"transformer","vocab_size":100,"d_model":16,"n_heads":2,"max_seq":4,
           "positions":"none","tie_embeddings":true,"norm_eps":1.4e-45,
           "layers":[{"kind":"tree","depth":2,"leaf_width":4}]})",
+      R"({"family":"transformer","vocab_size":30,"d_model":16,"n_heads":2,"max_seq":4,
+          "norm_position":"post","final_norm":false,"embed_norm":true,"attn_bias":["k","o"],
+          "tie_embeddings":true,"head":{"kind":"lm","transform":{"activation":"silu"},"bias":true},
+          "layers":[{"kind":"dense","width":8}]})",
   };
   std::vector<ModelConfig> out;
   for (const std::string& t : texts) {
@@ -281,7 +351,7 @@ std::vector<ModelConfig> RoundTripConfigs() {
 
 TEST(ConfigRoundTrip, ParseOfCanonicalIsEqual) {
   const auto configs = RoundTripConfigs();
-  ASSERT_EQ(configs.size(), 5u);
+  ASSERT_EQ(configs.size(), 6u);
   for (const ModelConfig& c : configs) {
     const std::string text = ConfigToJson(c);
     auto again = ParseConfig(text, "canonical.json");
@@ -296,9 +366,11 @@ TEST(ConfigRoundTrip, EveryFieldIsExplicit) {
   auto c = Parse(BaseTransformer());
   ASSERT_TRUE(c.ok());
   const json j = json::parse(ConfigToJson(*c));
-  for (const char* key : {"family", "name", "description", "vocab_size", "d_model", "n_heads",
-                          "n_kv_heads", "max_seq", "norm", "norm_eps", "positions", "rope_base",
-                          "causal", "tie_embeddings", "attn_bias", "tokenizer", "head", "layers"}) {
+  for (const char* key :
+       {"family",     "name",           "description", "vocab_size",    "d_model",    "n_heads",
+        "n_kv_heads", "max_seq",        "norm",        "norm_eps",      "positions",  "rope_base",
+        "causal",     "tie_embeddings", "attn_bias",   "norm_position", "final_norm", "embed_norm",
+        "tokenizer",  "head",           "layers"}) {
     EXPECT_TRUE(j.contains(key)) << key;
   }
   EXPECT_EQ(j["n_kv_heads"], 4);
@@ -492,7 +564,7 @@ TEST(ConfigErrors, HeadFields) {
   j["head"] = json::parse(R"({"kind":"lm","classes":3})");
   EXPECT_EQ(ErrorOf(j),
             "config.json: head: field \"classes\" does not apply to the lm head (its fields are "
-            "kind)");
+            "kind, transform, bias)");
   j["head"] = json::parse(R"({"kind":"classifier","classes":0})");
   EXPECT_EQ(ErrorOf(j), "config.json: head.classes must be between 1 and 16777216, got 0");
   j["head"] = json::parse(R"({"kind":"classifier","classes":2,"pool":"max"})");

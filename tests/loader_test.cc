@@ -90,8 +90,10 @@ TEST_F(LoaderTest, BadMagic) {
 }
 
 TEST_F(LoaderTest, NewerVersionIsRefusedClearly) {
-  const std::string msg = OpenBytes(WithPreamble([](format::Preamble& p) { p.version = 2; }));
-  EXPECT_NE(msg.find("version 2"), std::string::npos) << msg;
+  const std::string msg =
+      OpenBytes(WithPreamble([](format::Preamble& p) { p.version = format::kFormatVersion + 1; }));
+  EXPECT_NE(msg.find("version " + std::to_string(format::kFormatVersion + 1)), std::string::npos)
+      << msg;
   EXPECT_NE(msg.find("upgrade sprig"), std::string::npos) << msg;
 }
 

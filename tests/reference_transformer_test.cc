@@ -2,9 +2,11 @@
 // Debian python3-torch): a covering set of configs over norm (layernorm, rmsnorm) × positions
 // (learned, rope, none) × grouped key/value heads × causal or bidirectional × head (lm tied or
 // untied, classifier mean/first/last, none) × feed-forward kind (dense, tree leaf, tree path,
-// experts). sprig's outputs must be within rtol 1e-4 / atol 1e-5 of the reference's float64
-// hard-mode outputs and its routes identical except rows whose deciding margin is below 1e-5
-// (counted and printed). One and two threads must give bit-identical results.
+// experts), and the block variants (post-norm, embedding norm, no final norm, per-projection
+// attention biases, an lm head with a transform and a bias). sprig's outputs must be within rtol
+// 1e-4 / atol 1e-5 of the reference's float64 hard-mode outputs and its routes identical except
+// rows whose deciding margin is below 1e-5 (counted and printed). One and two threads must give
+// bit-identical results.
 #include <gtest/gtest.h>
 
 #include <string>
@@ -115,6 +117,28 @@ std::vector<Case> Cases() {
        R"("vocab_size":40,"d_model":36,"n_heads":6,"n_kv_heads":3,"max_seq":24,"norm":"rmsnorm","positions":"learned","causal":true,"tie_embeddings":true,"head":{"kind":"lm"})",
        {kExpertsNoBias, kDense, kLeaf},
        24},
+      // Block variants: post-norm, a norm on the embeddings, no final norm, biases on some
+      // projections only, an lm head with a transform (dense, activation, norm) and a bias.
+      {"post_ln_embed_norm_mlm_head",
+       base +
+           R"("norm":"layernorm","positions":"learned","causal":false,"norm_position":"post","final_norm":false,"embed_norm":true,"attn_bias":["q","k","v"],"head":{"kind":"lm","transform":{"activation":"gelu"},"bias":true})",
+       {kDense, kLeaf},
+       26},
+      {"post_rms_rope_tied_transform",
+       base +
+           R"("n_kv_heads":2,"norm":"rmsnorm","positions":"rope","causal":true,"norm_position":"post","tie_embeddings":true,"attn_bias":["o"],"head":{"kind":"lm","transform":{"activation":"relu","norm":false},"bias":true})",
+       {kExperts, kPath},
+       29},
+      {"pre_ln_no_final_norm_kv_bias_mean",
+       base +
+           R"("norm":"layernorm","positions":"none","causal":false,"final_norm":false,"attn_bias":["k","v"],"head":{"kind":"classifier","classes":3,"pool":"mean"})",
+       {kLeaf},
+       21},
+      {"post_ln_embed_norm_hidden",
+       base +
+           R"("n_kv_heads":1,"norm":"layernorm","positions":"learned","causal":true,"norm_position":"post","embed_norm":true,"head":{"kind":"none"})",
+       {kPath, kExpertsNoBias},
+       23},
   };
 }
 

@@ -43,6 +43,13 @@ constexpr const char* kTransformer = R"({"family":"transformer","vocab_size":64,
  {"kind":"tree","mode":"path","depth":4,"activation":"gelu"},
  {"kind":"experts","experts":4,"top_k":2,"width":8,"activation":"silu","gated":true}]})";
 
+// The block variants' header fields and tensors: post-norm, a norm on the embeddings, no final
+// norm, some attention biases, an lm head with a transform and a bias.
+constexpr const char* kTransformerVariants = R"({"family":"transformer","vocab_size":48,
+ "d_model":16,"n_heads":2,"max_seq":12,"head":{"kind":"lm","transform":{},"bias":true},
+ "norm_position":"post","final_norm":false,"embed_norm":true,"attn_bias":["q","v"],
+ "layers":[{"kind":"tree","mode":"leaf","depth":2,"leaf_width":4,"activation":"gelu"}]})";
+
 std::string CheckScript() {
   return std::string(SPRIG_SOURCE_DIR) + "/tests/python/schema_layout_check.py";
 }
@@ -131,6 +138,7 @@ INSTANTIATE_TEST_SUITE_P(
     ::testing::Values(Case{"stack", kStack, "f32", false, true}, Case{"stack", kStack, "f16"},
                       Case{"stack", kStack, "bf16"}, Case{"transformer", kTransformer, "f32"},
                       Case{"transformer", kTransformer, "f16"},
+                      Case{"transformer_variants", kTransformerVariants, "f16"},
                       Case{"stack64", kStack, "f16", true}, Case{"stack64", kStack, "f32", true},
                       // int8: every stack layer kind, a float64 source (rounded to float32
                       // before the scale), rounding ties, the transformer, and i8 records

@@ -116,6 +116,49 @@ TEST_F(TransformerTest, DecodeWithCacheMatchesWholeSequence) {
   }
 }
 
+// The decode path through the block variants: post-norm blocks, a norm on the embeddings, no
+// final norm, biases on some projections only, and an lm head with a transform and a bias
+// (tied and untied). The cached, one-token path must give the whole-sequence logits.
+TEST(TransformerVariants, DecodeWithCacheMatchesWholeSequence) {
+  testing::TempDir dir;
+  const std::string common = R"({"family":"transformer","vocab_size":40,"d_model":24,
+    "n_heads":4,"n_kv_heads":2,"max_seq":20,"causal":true,"norm_position":"post",
+    "final_norm":false,"embed_norm":true,)";
+  const std::string layers = R"(,"layers":[{"kind":"dense","width":16,"activation":"gelu"},
+    {"kind":"tree","mode":"leaf","depth":2,"leaf_width":8}]})";
+  const std::vector<std::string> configs = {
+      common + R"("attn_bias":["q","v"],"positions":"learned",
+        "head":{"kind":"lm","transform":{"activation":"gelu"},"bias":true})" +
+          layers,
+      common + R"("attn_bias":["k","o"],"norm":"rmsnorm","positions":"rope","tie_embeddings":true,
+        "head":{"kind":"lm","transform":{"activation":"relu","norm":false},"bias":true})" +
+          layers,
+  };
+  for (size_t c = 0; c < configs.size(); ++c) {
+    const std::string path = MakeModel(dir, "variant" + std::to_string(c), configs[c]);
+    auto s = Open(path);
+    ASSERT_TRUE(s);
+    const size_t v = 40, t = 20;
+    const std::vector<int32_t> tokens = Tokens(t, 40, 11);
+    std::vector<float> whole(t * v), step(v);
+    ASSERT_TRUE(s->forward_tokens(tokens.data(), 1, t, whole.data()).ok());
+    for (size_t i = 0; i < t; ++i) {
+      ASSERT_TRUE(s->append_token(tokens[i], step.data()).ok());
+      ExpectClose(step.data(), whole.data() + i * v, v, 1e-5f,
+                  "config " + std::to_string(c) + " position " + std::to_string(i));
+    }
+    // inspect names the variant.
+    auto r = testing::Run(testing::SprigCli() + " inspect " + Quote(path));
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    const char* expected[] = {
+        "blocks       post-norm, norm on the embeddings, attention biases q v, no final norm, "
+        "head transform gelu + norm, head bias\n",
+        "blocks       post-norm, norm on the embeddings, attention biases k o, no final norm, "
+        "head transform relu, head bias, tied embeddings\n"};
+    EXPECT_NE(r.output.find(expected[c]), std::string::npos) << r.output;
+  }
+}
+
 // Half-precision storage: the embedding rows, attention and head matrices are read through the
 // f16/bf16 kernels; decoding must still agree with the whole-sequence pass on the same weights,
 // and the logits stay near the float32 model's (the weights differ by their rounding only).

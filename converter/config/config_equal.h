@@ -14,7 +14,13 @@ inline bool operator==(const LayerConfig& a, const LayerConfig& b) {
 }
 
 inline bool operator==(const HeadConfig& a, const HeadConfig& b) {
-  return a.kind == b.kind && a.classes == b.classes && a.pool == b.pool;
+  return a.kind == b.kind && a.classes == b.classes && a.pool == b.pool &&
+         a.transform == b.transform && a.transform_activation == b.transform_activation &&
+         a.transform_norm == b.transform_norm && a.bias == b.bias;
+}
+
+inline bool operator==(const ProjectionBias& a, const ProjectionBias& b) {
+  return a.q == b.q && a.k == b.k && a.v == b.v && a.o == b.o;
 }
 
 inline bool operator==(const ModelConfig& a, const ModelConfig& b) {
@@ -24,7 +30,8 @@ inline bool operator==(const ModelConfig& a, const ModelConfig& b) {
          a.max_seq == b.max_seq && a.norm == b.norm && a.norm_eps == b.norm_eps &&
          a.positions == b.positions && a.rope_base == b.rope_base && a.causal == b.causal &&
          a.tie_embeddings == b.tie_embeddings && a.attn_bias == b.attn_bias &&
-         a.tokenizer == b.tokenizer && a.head == b.head;
+         a.norm_position == b.norm_position && a.final_norm == b.final_norm &&
+         a.embed_norm == b.embed_norm && a.tokenizer == b.tokenizer && a.head == b.head;
 }
 
 }  // namespace sprig

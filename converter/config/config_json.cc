@@ -22,8 +22,10 @@ using nlohmann::json;
 const std::vector<const char*> kCommonFields = {"family", "name", "description"};
 const std::vector<const char*> kStackFields = {"input_dim"};
 const std::vector<const char*> kTransformerFields = {
-    "vocab_size", "d_model",   "n_heads", "n_kv_heads",     "max_seq",   "norm",      "norm_eps",
-    "positions",  "rope_base", "causal",  "tie_embeddings", "attn_bias", "tokenizer", "head"};
+    "vocab_size",     "d_model",   "n_heads",       "n_kv_heads", "max_seq",
+    "norm",           "norm_eps",  "positions",     "rope_base",  "causal",
+    "tie_embeddings", "attn_bias", "norm_position", "final_norm", "embed_norm",
+    "tokenizer",      "head"};
 const std::vector<const char*> kAllLayerFields = {
     "kind",        "mode",       "width", "depth", "leaf_width", "experts", "top_k",
     "renormalize", "activation", "gated", "bias",  "in",         "out"};
@@ -177,6 +179,27 @@ Status ParseLayers(const json& root, const std::string& source, ModelConfig* con
   return Status::Ok();
 }
 
+// head.transform of an lm head: {"activation": "gelu", "norm": true}.
+Status ParseHeadTransform(const json& head, const std::string& source, HeadConfig* out) {
+  auto it = head.find("transform");
+  if (it == head.end()) return Status::Ok();
+  if (!it->is_object()) {
+    return Status::InvalidArgument(
+        source + ": head.transform must be an object such as {\"activation\":\"gelu\"}, got " +
+        internal::DescribeJson(*it));
+  }
+  FieldReader r(*it, "head.transform", source);
+  SPRIG_RETURN_IF_ERROR(
+      r.CheckKeys({"activation", "norm"}, {"activation", "norm"}, "the head's transform"));
+  out->transform = true;
+  SPRIG_RETURN_IF_ERROR(
+      r.Enum<Activation>("activation",
+                         {Choice(Activation::kRelu), Choice(Activation::kGelu),
+                          Choice(Activation::kGeluTanh), Choice(Activation::kSilu)},
+                         Activation::kGelu, &out->transform_activation));
+  return r.Bool("norm", true, &out->transform_norm);
+}
+
 Status ParseHead(const json& root, const std::string& source, HeadConfig* head) {
   auto it = root.find("head");
   if (it == root.end()) {
@@ -193,14 +216,49 @@ Status ParseHead(const json& root, const std::string& source, HeadConfig* head) 
   SPRIG_RETURN_IF_ERROR(r.Enum<HeadKind>(
       "kind", {Choice(HeadKind::kLm), Choice(HeadKind::kClassifier), Choice(HeadKind::kNone)},
       std::nullopt, &head->kind));
-  const std::vector<const char*> all = {"kind", "classes", "pool"};
+  const std::vector<const char*> all = {"kind", "classes", "pool", "transform", "bias"};
+  if (head->kind == HeadKind::kLm) {
+    SPRIG_RETURN_IF_ERROR(r.CheckKeys({"kind", "transform", "bias"}, all, "the lm head"));
+    SPRIG_RETURN_IF_ERROR(r.Bool("bias", false, &head->bias));
+    return ParseHeadTransform(*it, source, head);
+  }
   if (head->kind != HeadKind::kClassifier) {
     return r.CheckKeys({"kind"}, all, std::string("the ") + ToString(head->kind) + " head");
   }
-  SPRIG_RETURN_IF_ERROR(r.CheckKeys(all, all, "the classifier head"));
+  SPRIG_RETURN_IF_ERROR(r.CheckKeys({"kind", "classes", "pool"}, all, "the classifier head"));
   SPRIG_RETURN_IF_ERROR(r.Uint("classes", 1, kMaxDimension, std::nullopt, &head->classes));
   return r.Enum<Pool>("pool", {Choice(Pool::kMean), Choice(Pool::kFirst), Choice(Pool::kLast)},
                       Pool::kMean, &head->pool);
+}
+
+// attn_bias: true or false for all four projections, or the list of those that have a bias,
+// such as ["q", "k", "v"] (BERT-style attention has all four; some models drop the output's).
+Status ParseAttnBias(const json& root, const FieldReader& r, ProjectionBias* out) {
+  auto it = root.find("attn_bias");
+  if (it == root.end() || it->is_boolean()) {
+    bool all = true;
+    SPRIG_RETURN_IF_ERROR(r.Bool("attn_bias", true, &all));
+    *out = ProjectionBias{all, all, all, all};
+    return Status::Ok();
+  }
+  const std::string expected = "true, false or a list of distinct \"q\", \"k\", \"v\", \"o\"";
+  if (!it->is_array()) {
+    return r.Error("attn_bias must be " + expected + ", got " + internal::DescribeJson(*it));
+  }
+  *out = ProjectionBias{false, false, false, false};
+  for (const json& e : *it) {
+    const std::string name = e.is_string() ? e.get<std::string>() : "";
+    bool* flag = name == "q"   ? &out->q
+                 : name == "k" ? &out->k
+                 : name == "v" ? &out->v
+                 : name == "o" ? &out->o
+                               : nullptr;
+    if (flag == nullptr || *flag) {
+      return r.Error("attn_bias must be " + expected + ", got " + internal::DescribeJson(*it));
+    }
+    *flag = true;
+  }
+  return Status::Ok();
 }
 
 Status ParseTransformerFields(const json& root, const FieldReader& r, const std::string& source,
@@ -222,7 +280,12 @@ Status ParseTransformerFields(const json& root, const FieldReader& r, const std:
   SPRIG_RETURN_IF_ERROR(r.PositiveFloat("rope_base", 10000.0f, &c->rope_base));
   SPRIG_RETURN_IF_ERROR(r.Bool("causal", true, &c->causal));
   SPRIG_RETURN_IF_ERROR(r.Bool("tie_embeddings", false, &c->tie_embeddings));
-  SPRIG_RETURN_IF_ERROR(r.Bool("attn_bias", true, &c->attn_bias));
+  SPRIG_RETURN_IF_ERROR(ParseAttnBias(root, r, &c->attn_bias));
+  SPRIG_RETURN_IF_ERROR(r.Enum<NormPosition>(
+      "norm_position", {Choice(NormPosition::kPre), Choice(NormPosition::kPost)},
+      NormPosition::kPre, &c->norm_position));
+  SPRIG_RETURN_IF_ERROR(r.Bool("final_norm", true, &c->final_norm));
+  SPRIG_RETURN_IF_ERROR(r.Bool("embed_norm", false, &c->embed_norm));
   SPRIG_RETURN_IF_ERROR(r.Enum<Tokenizer>(
       "tokenizer",
       {Choice(Tokenizer::kByte), Choice(Tokenizer::kSentencePiece), Choice(Tokenizer::kNone)},

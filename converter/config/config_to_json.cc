@@ -65,6 +65,16 @@ ojson HeadToJson(const HeadConfig& head) {
     j["classes"] = head.classes;
     j["pool"] = ToString(head.pool);
   }
+  if (head.kind == HeadKind::kLm) {
+    // Written only when present, so that the configs of models without them read as before.
+    if (head.transform) {
+      ojson t;
+      t["activation"] = ToString(head.transform_activation);
+      t["norm"] = head.transform_norm;
+      j["transform"] = t;
+    }
+    if (head.bias) j["bias"] = true;
+  }
   return j;
 }
 
@@ -89,7 +99,19 @@ ojson TopLevelToJson(const ModelConfig& c) {
   j["rope_base"] = FloatForJson(c.rope_base);
   j["causal"] = c.causal;
   j["tie_embeddings"] = c.tie_embeddings;
-  j["attn_bias"] = c.attn_bias;
+  if (c.attn_bias.all() || c.attn_bias.none()) {
+    j["attn_bias"] = c.attn_bias.all();
+  } else {
+    ojson list = ojson::array();
+    if (c.attn_bias.q) list.push_back("q");
+    if (c.attn_bias.k) list.push_back("k");
+    if (c.attn_bias.v) list.push_back("v");
+    if (c.attn_bias.o) list.push_back("o");
+    j["attn_bias"] = list;
+  }
+  j["norm_position"] = ToString(c.norm_position);
+  j["final_norm"] = c.final_norm;
+  j["embed_norm"] = c.embed_norm;
   j["tokenizer"] = ToString(c.tokenizer);
   j["head"] = HeadToJson(c.head);
   return j;

@@ -399,6 +399,7 @@ Result<PackSummary> PackTensors(const ModelConfig& config,
     return Status::InvalidArgument("internal: the header grew after layout planning");
   }
   format::Preamble pre;
+  pre.version = format::RequiredFormatVersion(config);
   pre.header_offset = format::kPreambleSize;
   pre.header_size = header.size();
   pre.file_size = file.size();

@@ -31,6 +31,10 @@ config classifier '{"family":"transformer","vocab_size":8,"d_model":4,"n_heads":
  "norm":"layernorm","positions":"learned","causal":false,"attn_bias":false,
  "head":{"kind":"classifier","classes":3,"pool":"mean"},"layers":[
  {"kind":"experts","experts":2,"top_k":1,"width":2,"activation":"relu"}]}'
+config lm_variants '{"family":"transformer","vocab_size":8,"d_model":4,"n_heads":2,"max_seq":4,
+ "norm_position":"post","final_norm":false,"embed_norm":true,"attn_bias":["q","v"],
+ "head":{"kind":"lm","transform":{"activation":"gelu"},"bias":true},"layers":[
+ {"kind":"dense","width":2,"activation":"relu"}]}'
 config hidden '{"family":"transformer","vocab_size":8,"d_model":2,"n_heads":1,"max_seq":4,
  "positions":"none","head":{"kind":"none"},"layers":[
  {"kind":"tree","mode":"leaf","depth":1,"leaf_width":2,"activation":"relu"}]}'

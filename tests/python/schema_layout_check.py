@@ -92,7 +92,7 @@ def check_preamble(data):
          f"bytes 0-7 are {data[0:8].hex(' ')}")
     version, pre_size, hdr_off, hdr_size, file_size, hdr_crc, bom = struct.unpack_from(
         "<IIQQQII", data, 8)
-    rule(version == 1, "preamble.version", f"format version {version}, expected 1")
+    rule(version in (1, 2), "preamble.version", f"format version {version}, expected 1 or 2")
     rule(pre_size == 64, "preamble.preamble_size", f"preamble size {pre_size}, expected 64")
     rule(hdr_off == 64, "preamble.header_offset", f"header offset {hdr_off}, expected 64")
     rule(file_size == len(data), "preamble.file_size",
@@ -252,6 +252,7 @@ def check(data, weights, folder):
     summary = {"preamble_fields": 10}
 
     hdr_off, hdr_size = check_preamble(data)
+    version = struct.unpack_from("<I", data, 8)[0]
     buf = bytearray(data[hdr_off:hdr_off + hdr_size])
     rule(hm.Header.HeaderBufferHasIdentifier(buf, 0), "header.file_identifier",
          f"header bytes 4-7 are {bytes(buf[4:8])!r}, expected b'SPRH'")
@@ -269,6 +270,10 @@ def check(data, weights, folder):
     rule(all(slots.values()), "header.scalars_written",
          "found no scalar accessors in the generated code")
     cfg = h.Config()
+    post_norm = cfg.NormPosition() == 1
+    rule(version == (2 if post_norm else 1), "preamble.version",
+         f"format version {version} for a {'post' if post_norm else 'pre'}-norm model, expected "
+         f"{2 if post_norm else 1}")
     check_scalars_written(cfg, slots["Config"], "config")
     for i in range(cfg.LayersLength()):
         check_scalars_written(cfg.Layers(i), slots["Layer"], f"config.layers[{i}]")

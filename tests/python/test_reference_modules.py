@@ -405,13 +405,29 @@ def _expected_transformer_tensors(cfg):
     kv = cfg.get("n_kv_heads", cfg["n_heads"]) * d // cfg["n_heads"]
     layernorm = cfg.get("norm", "layernorm") == "layernorm"
     head = cfg.get("head", {"kind": "lm"})
-    names = {"embed.weight": (v, d), "norm.weight": (d,)}
-    if layernorm:
-        names["norm.bias"] = (d,)
+    names = {"embed.weight": (v, d)}
+
+    def add_norm(n):
+        names[f"{n}.weight"] = (d,)
+        if layernorm:
+            names[f"{n}.bias"] = (d,)
+
+    if cfg.get("final_norm", True):
+        add_norm("norm")
+    if cfg.get("embed_norm", False):
+        add_norm("embed_norm")
     if cfg.get("positions", "learned") == "learned":
         names["pos.weight"] = (cfg["max_seq"], d)
     if head["kind"] == "lm" and not cfg.get("tie_embeddings", False):
         names["head.weight"] = (v, d)
+    if head["kind"] == "lm" and head.get("bias", False):
+        names["head.bias"] = (v,)
+    if head["kind"] == "lm" and "transform" in head:
+        names.update({"head.transform.weight": (d, d), "head.transform.bias": (d,)})
+        if head["transform"].get("norm", True):
+            add_norm("head.transform_norm")
+    bias = cfg.get("attn_bias", True)
+    biased = {"q", "k", "v", "o"} if bias is True else set(bias or ())
     if head["kind"] == "classifier":
         names.update({"head.weight": (head["classes"], d), "head.bias": (head["classes"],)})
     for b, layer in enumerate(cfg["layers"]):
@@ -422,7 +438,7 @@ def _expected_transformer_tensors(cfg):
                 names[f"{p}{norm}.bias"] = (d,)
         for proj, rows in (("q", d), ("k", kv), ("v", kv), ("o", d)):
             names[f"{p}attn.{proj}.weight"] = (rows, d)
-            if cfg.get("attn_bias", True):
+            if proj in biased:
                 names[f"{p}attn.{proj}.bias"] = (rows,)
         for name, shape in _expected_layer_tensors(layer, d, d).items():
             names[f"{p}ffn.{name}"] = shape
@@ -450,6 +466,10 @@ _TRANSFORMERS = [
                  layers=[{"kind": "tree", "mode": "path", "depth": 3}]),
     _transformer(positions="none", head={"kind": "classifier", "classes": 3, "pool": "mean"}),
     _transformer(head={"kind": "none"}, tokenizer="byte", vocab_size=256),
+    _transformer(norm_position="post", final_norm=False, embed_norm=True, attn_bias=["q", "v"],
+                 head={"kind": "lm", "transform": {"activation": "gelu"}, "bias": True}),
+    _transformer(norm_position="post", norm="rmsnorm", tie_embeddings=True, attn_bias=["o"],
+                 head={"kind": "lm", "transform": {"norm": False}, "bias": True}),
 ]
 
 

@@ -4,6 +4,7 @@
 #include <memory>
 #include <nlohmann/json.hpp>
 #include <string>
+#include <utility>
 
 #include "cli.h"
 #include "format/preamble.h"
@@ -38,6 +39,32 @@ std::string Describe(const LayerConfig& l) {
   }
   s += buf;
   s += std::string(", ") + ToString(l.activation) + (l.gated ? ", gated" : "");
+  return s;
+}
+
+// "pre-norm, attention biases q k v o, final norm": the block variant and, for an lm head, its
+// transform and bias (docs/model-semantics.md).
+std::string DescribeBlocks(const ModelConfig& c) {
+  std::string s = std::string(ToString(c.norm_position)) + "-norm";
+  if (c.embed_norm) s += ", norm on the embeddings";
+  const ProjectionBias& b = c.attn_bias;
+  if (b.none()) {
+    s += ", no attention biases";
+  } else {
+    s += ", attention biases";
+    for (const auto& [name, on] : {std::pair{" q", b.q}, {" k", b.k}, {" v", b.v}, {" o", b.o}}) {
+      if (on) s += name;
+    }
+  }
+  s += c.final_norm ? ", final norm" : ", no final norm";
+  if (c.head.kind == HeadKind::kLm) {
+    if (c.head.transform) {
+      s += std::string(", head transform ") + ToString(c.head.transform_activation) +
+           (c.head.transform_norm ? " + norm" : "");
+    }
+    if (c.head.bias) s += ", head bias";
+    if (c.tie_embeddings) s += ", tied embeddings";
+  }
   return s;
 }
 
@@ -131,6 +158,7 @@ void PrintHuman(const Model& f, bool list_tensors) {
         "max_seq %u, %s, %s positions, head %s, tokenizer %s\n",
         c.layers.size(), c.d_model, c.n_heads, c.n_kv_heads, c.vocab_size, c.max_seq,
         ToString(c.norm), ToString(c.positions), ToString(c.head.kind), ToString(c.tokenizer));
+    std::printf("  blocks       %s\n", DescribeBlocks(c).c_str());
   }
   std::printf("  file         %s (header %s)\n", HumanBytes(f.file_size()).c_str(),
               HumanBytes(f.header_size()).c_str());

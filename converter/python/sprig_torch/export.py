@@ -37,8 +37,8 @@ import torch
 
 from sprig_torch.layers import DenseFF, ExpertsFF, TreeFF
 from sprig_torch.mapping import read_mapping
-from sprig_torch.models import (Attention, LayerNorm, RMSNorm, StackModel, TransformerModel,
-                                build_model)
+from sprig_torch.models import (Attention, LayerNorm, LmHead, RMSNorm, StackModel,
+                                TransformerModel, build_model)
 
 # Spread of "small" random biases: enough to matter, small beside the weight terms.
 _BIAS_STD = 0.05
@@ -241,8 +241,16 @@ def random_model(config, seed):
         _normal_(model.embed.weight, 1.0, gen)
         if model.pos is not None:
             _normal_(model.pos.weight, 0.3, gen)
-        if model.head is not None:
-            _init_linear(model.head, model.head.weight.shape[1], gen)
+        head = model.head
+        if isinstance(head, LmHead):
+            if head.weight is not None:
+                _init_linear(head, head.weight.shape[1], gen)
+            elif head.bias is not None:
+                _normal_(head.bias, _BIAS_STD, gen)
+            if head.transform is not None:
+                _init_linear(head.transform, head.transform.in_features, gen)
+        elif head is not None:
+            _init_linear(head, head.weight.shape[1], gen)
     return model.eval()
 
 

@@ -28,19 +28,21 @@ import torch
 import torch.nn.functional as F
 from torch import nn
 
-from sprig_torch.layers import Params, build_layer
+from sprig_torch.layers import ACTIVATIONS, Params, activation, build_layer
 
 _STACK_KEYS = {"family", "name", "description", "input_dim", "layers"}
 _TRANSFORMER_KEYS = {
     "family", "name", "description", "vocab_size", "d_model", "n_heads", "n_kv_heads",
     "max_seq", "norm", "norm_eps", "positions", "rope_base", "causal", "tie_embeddings",
-    "attn_bias", "tokenizer", "head", "layers"
+    "attn_bias", "norm_position", "final_norm", "embed_norm", "tokenizer", "head", "layers"
 }
 _TRANSFORMER_DEFAULTS = {
     "norm": "layernorm", "norm_eps": 1e-5, "positions": "learned", "rope_base": 10000.0,
-    "causal": True, "tie_embeddings": False, "attn_bias": True, "tokenizer": "none",
-    "head": {"kind": "lm"}
+    "causal": True, "tie_embeddings": False, "attn_bias": True, "norm_position": "pre",
+    "final_norm": True, "embed_norm": False, "tokenizer": "none", "head": {"kind": "lm"}
 }
+_PROJECTIONS = ("q", "k", "v", "o")
+
 
 
 def _check_keys(config, allowed, what):
@@ -160,6 +162,7 @@ class Attention(nn.Module):
 
     Input and output [B, T, d_model]; q/k/v/o are nn.Linear layers (`attn.q.weight`, …), k and
     v of n_kv_heads * head_dim outputs. Scores q·k / sqrt(head_dim), causal mask optional.
+    `bias` is a bool for all four projections or the set of those with a bias ({"q", "v"}).
     """
 
     def __init__(self, d_model, n_heads, n_kv_heads, bias, causal, rope_base=None):
@@ -168,10 +171,11 @@ class Attention(nn.Module):
         self.head_dim = d_model // n_heads
         self.causal, self.rope_base = causal, rope_base
         kv = n_kv_heads * self.head_dim
-        self.q = nn.Linear(d_model, d_model, bias=bias)
-        self.k = nn.Linear(d_model, kv, bias=bias)
-        self.v = nn.Linear(d_model, kv, bias=bias)
-        self.o = nn.Linear(d_model, d_model, bias=bias)
+        biased = set(_PROJECTIONS) if bias is True else set(bias or ())
+        self.q = nn.Linear(d_model, d_model, bias="q" in biased)
+        self.k = nn.Linear(d_model, kv, bias="k" in biased)
+        self.v = nn.Linear(d_model, kv, bias="v" in biased)
+        self.o = nn.Linear(d_model, d_model, bias="o" in biased)
 
     def _heads(self, t, count):
         b, n, _ = t.shape
@@ -196,28 +200,40 @@ class Attention(nn.Module):
         return self.o(out.transpose(1, 2).reshape(b, t, d))
 
 
+def _norm_class(config):
+    return LayerNorm if config["norm"] == "layernorm" else RMSNorm
+
+
 class Block(nn.Module):
-    """Pre-norm block: h = x + attn(norm1(x)); x = h + ffn(norm2(h))."""
+    """Pre-norm block: h = x + attn(norm1(x)); x = h + ffn(norm2(h)).
+    Post-norm block (norm_position "post"): h = norm1(x + attn(x)); x = norm2(h + ffn(h))."""
 
     def __init__(self, config, ffn_config):
         super().__init__()
         d = config["d_model"]
-        norm = LayerNorm if config["norm"] == "layernorm" else RMSNorm
+        norm = _norm_class(config)
         self.norm1 = norm(d, config["norm_eps"])
         rope = config["rope_base"] if config["positions"] == "rope" else None
         self.attn = Attention(d, config["n_heads"], config["n_kv_heads"], config["attn_bias"],
                               config["causal"], rope)
         self.norm2 = norm(d, config["norm_eps"])
         self.ffn = build_layer(ffn_config, in_features=d, out_features=d)
+        self.post = config["norm_position"] == "post"
 
     def forward(self, x, hard=None, trace=None):
         """x [B, T, D] -> (x, routes, margins), the ffn's routes/margins over [B*T] rows (None
         for a dense ffn). `trace`, a list, receives (ffn input, block output) as [B*T, D]."""
-        h = x + self.attn(self.norm1(x))
-        b, t, d = h.shape
-        ffn_in = self.norm2(h).reshape(b * t, d)
+        b, t, d = x.shape
+        if self.post:
+            h = self.norm1(x + self.attn(x))
+            ffn_in = h.reshape(b * t, d)
+        else:
+            h = x + self.attn(self.norm1(x))
+            ffn_in = self.norm2(h).reshape(b * t, d)
         y, routes, margins = self.ffn(ffn_in, hard=hard, return_routes=True)
         out = h + y.reshape(b, t, d)
+        if self.post:
+            out = self.norm2(out)
         if trace is not None:
             trace.extend([ffn_in, out.reshape(b * t, d)])
         return out, routes, margins
@@ -255,8 +271,30 @@ def normalize_transformer_config(config):
         _int_field(head, "classes")
         head.setdefault("pool", "mean")
         _choice(head, "pool", ["mean", "first", "last"])
+    if head["kind"] == "lm":
+        _check_keys(head, {"kind", "transform", "bias"}, "lm head")
+        if not isinstance(head.setdefault("bias", False), bool):
+            raise ValueError(f"head.bias must be true or false, got {head['bias']!r}")
+        if "transform" in head:
+            t = head["transform"]
+            if not isinstance(t, dict):
+                raise ValueError(f"head.transform must be a dict, got {t!r}")
+            _check_keys(t, {"activation", "norm"}, "head.transform")
+            t.setdefault("activation", "gelu")
+            t.setdefault("norm", True)
+            _choice(t, "activation", sorted(ACTIVATIONS))
     if c["tie_embeddings"] and head["kind"] != "lm":
         raise ValueError("tie_embeddings needs head kind 'lm'")
+    _choice(c, "norm_position", ["pre", "post"])
+    for key in ("final_norm", "embed_norm"):
+        if not isinstance(c[key], bool):
+            raise ValueError(f"config field {key!r} must be true or false, got {c[key]!r}")
+    bias = c["attn_bias"]
+    if not isinstance(bias, bool):
+        if (not isinstance(bias, list) or len(set(bias)) != len(bias)
+                or not set(bias) <= set(_PROJECTIONS)):
+            raise ValueError(f"attn_bias must be true, false or a list of distinct "
+                             f"'q', 'k', 'v', 'o', got {bias!r}")
     if not c.get("layers"):
         raise ValueError("config field 'layers' must be a non-empty list")
     for i, entry in enumerate(c["layers"]):
@@ -265,9 +303,39 @@ def normalize_transformer_config(config):
     return c
 
 
+class LmHead(nn.Module):
+    """The lm head: logits = W · norm(act(T x + t)) + b, the transform and the bias optional.
+
+    Tensors `head.weight` [V, D] (absent when tied: W is the embedding), `head.bias` [V],
+    `head.transform.weight` [D, D] and `.bias` [D], `head.transform_norm.*` (the model's norm).
+    """
+
+    def __init__(self, config):
+        super().__init__()
+        c, head = config, config["head"]
+        d, v = c["d_model"], c["vocab_size"]
+        self.weight = None if c["tie_embeddings"] else nn.Parameter(torch.zeros(v, d))
+        self.bias = nn.Parameter(torch.zeros(v)) if head["bias"] else None
+        t = head.get("transform")
+        self.transform = nn.Linear(d, d) if t else None
+        self.transform_norm = (_norm_class(c)(d, c["norm_eps"])
+                               if t and t["norm"] else None)
+        self.activation = activation(t["activation"]) if t else None
+
+    def forward(self, x, embed_weight):
+        if self.transform is not None:
+            x = self.activation(self.transform(x))
+            if self.transform_norm is not None:
+                x = self.transform_norm(x)
+        w = embed_weight if self.weight is None else self.weight
+        y = x @ w.t()
+        return y if self.bias is None else y + self.bias
+
+
 class TransformerModel(nn.Module):
     """`family: transformer`: tokens [B, T] (or [T], read as B = 1) through embedding,
-    positions, one pre-norm block per `layers` entry, the final norm and the head.
+    positions, the optional embedding norm, one pre- or post-norm block per `layers` entry, the
+    optional final norm and the head.
 
     Output: lm logits [B, T, V], classifier logits [B, C] or hidden states [B, T, D].
     """
@@ -279,6 +347,8 @@ class TransformerModel(nn.Module):
         d, v = c["d_model"], c["vocab_size"]
         self.embed = Params(weight=(v, d))
         self.pos = Params(weight=(c["max_seq"], d)) if c["positions"] == "learned" else None
+        norm = _norm_class(c)
+        self.embed_norm = norm(d, c["norm_eps"]) if c["embed_norm"] else None
         blocks = []
         for i, entry in enumerate(c["layers"]):
             try:
@@ -286,10 +356,12 @@ class TransformerModel(nn.Module):
             except ValueError as e:
                 raise ValueError(f"layers[{i}]: {e}") from None
         self.blocks = nn.ModuleList(blocks)
-        self.norm = (LayerNorm if c["norm"] == "layernorm" else RMSNorm)(d, c["norm_eps"])
+        self.norm = norm(d, c["norm_eps"]) if c["final_norm"] else None
         head = c["head"]
         if head["kind"] == "lm":
-            self.head = None if c["tie_embeddings"] else Params(weight=(v, d))
+            plain = not head["bias"] and "transform" not in head
+            # A plain tied head holds no tensor of its own.
+            self.head = None if c["tie_embeddings"] and plain else LmHead(c)
         elif head["kind"] == "classifier":
             self.head = nn.Linear(d, head["classes"])
         else:
@@ -310,20 +382,23 @@ class TransformerModel(nn.Module):
         x = F.embedding(tokens.long(), self.embed.weight)
         if self.pos is not None:
             x = x + self.pos.weight[:t]
+        if self.embed_norm is not None:
+            x = self.embed_norm(x)
         routes, margins = {}, {}
         for i, block in enumerate(self.blocks):
             seen = [] if trace is not None else None
             x = _collect(block(x, hard=hard, trace=seen), i, routes, margins)
             if trace is not None:
                 trace[i] = tuple(seen)
-        y = self._head(self.norm(x))
+        y = self._head(x if self.norm is None else self.norm(x))
         return (y, routes, margins) if return_routes else y
 
     def _head(self, x):
         head = self.full_config["head"]
         if head["kind"] == "lm":
-            w = self.embed.weight if self.head is None else self.head.weight
-            return x @ w.t()
+            if self.head is None:
+                return x @ self.embed.weight.t()
+            return self.head(x, self.embed.weight)
         if head["kind"] == "classifier":
             pooled = {"mean": lambda: x.mean(dim=1), "first": lambda: x[:, 0],
                       "last": lambda: x[:, -1]}[head["pool"]]()

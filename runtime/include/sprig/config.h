@@ -20,6 +20,9 @@ enum class NormKind : uint8_t { kLayerNorm, kRmsNorm };
 enum class Positions : uint8_t { kLearned, kRope, kNone };
 enum class HeadKind : uint8_t { kLm, kClassifier, kNone };
 enum class Pool : uint8_t { kMean, kFirst, kLast };
+// Where a transformer block normalises: kPre, x + Attn(Norm1(x)) then x + FFN(Norm2(x)); kPost,
+// Norm1(x + Attn(x)) then Norm2(x + FFN(x)) (docs/model-semantics.md).
+enum class NormPosition : uint8_t { kPre, kPost };
 // kByte: one token per UTF-8 byte (vocab_size 256). kSentencePiece: a SentencePiece vocabulary
 // (BPE or unigram) stored in the file's tokenizer section.
 enum class Tokenizer : uint8_t { kNone, kByte, kSentencePiece };
@@ -48,6 +51,20 @@ struct HeadConfig {
   HeadKind kind = HeadKind::kNone;
   uint32_t classes = 0;     // classifier only
   Pool pool = Pool::kMean;  // classifier only
+  // lm only: a transform before the vocabulary projection, as masked-language-model heads
+  // have: Norm(act(T x + t)) with `head.transform.*` and, when transform_norm, the model's norm
+  // kind in `head.transform_norm.*`.
+  bool transform = false;
+  Activation transform_activation = Activation::kGelu;
+  bool transform_norm = true;
+  bool bias = false;  // lm only: a `head.bias` [vocab_size] added to the logits
+};
+
+// Which attention projections of a transformer block have a bias tensor.
+struct ProjectionBias {
+  bool q = true, k = true, v = true, o = true;
+  bool all() const { return q && k && v && o; }
+  bool none() const { return !q && !k && !v && !o; }
 };
 
 struct SPRIG_API ModelConfig {
@@ -71,7 +88,10 @@ struct SPRIG_API ModelConfig {
   float rope_base = 10000.0f;
   bool causal = true;
   bool tie_embeddings = false;
-  bool attn_bias = true;
+  ProjectionBias attn_bias;
+  NormPosition norm_position = NormPosition::kPre;
+  bool final_norm = true;   // `norm.*` applied before the head
+  bool embed_norm = false;  // `embed_norm.*` applied to token + position embeddings
   Tokenizer tokenizer = Tokenizer::kNone;
   HeadConfig head;
 
@@ -88,6 +108,7 @@ SPRIG_API const char* ToString(NormKind v);
 SPRIG_API const char* ToString(Positions v);
 SPRIG_API const char* ToString(HeadKind v);
 SPRIG_API const char* ToString(Pool v);
+SPRIG_API const char* ToString(NormPosition v);
 SPRIG_API const char* ToString(Tokenizer v);
 SPRIG_API const char* ToString(DType v);
 

@@ -55,12 +55,28 @@ flatbuffers::Offset<fb::Config> BuildConfig(flatbuffers::FlatBufferBuilder& b,
   cb.add_rope_base(c.rope_base);
   cb.add_causal(c.causal);
   cb.add_tie_embeddings(c.tie_embeddings);
-  cb.add_attn_bias(c.attn_bias);
+  // Readers that predate the per-projection flags see the old field: true only when all four.
+  cb.add_attn_bias(c.attn_bias.all());
   cb.add_tokenizer(static_cast<fb::Tokenizer>(c.tokenizer));
   cb.add_head_kind(static_cast<fb::HeadKind>(c.head.kind));
   cb.add_head_classes(c.head.classes);
   cb.add_head_pool(static_cast<fb::Pool>(c.head.pool));
+  cb.add_attn_bias_q(c.attn_bias.q);
+  cb.add_attn_bias_k(c.attn_bias.k);
+  cb.add_attn_bias_v(c.attn_bias.v);
+  cb.add_attn_bias_o(c.attn_bias.o);
+  cb.add_norm_position(static_cast<fb::NormPosition>(c.norm_position));
+  cb.add_final_norm(c.final_norm);
+  cb.add_embed_norm(c.embed_norm);
+  cb.add_head_transform(c.head.transform);
+  cb.add_head_transform_activation(static_cast<fb::Activation>(c.head.transform_activation));
+  cb.add_head_transform_norm(c.head.transform_norm);
+  cb.add_head_bias(c.head.bias);
   return cb.Finish();
+}
+
+uint32_t RequiredFormatVersion(const ModelConfig& config) {
+  return config.norm_position == NormPosition::kPost ? 2 : 1;
 }
 
 Result<ModelConfig> ReadConfig(const fb::Config& f, const std::string& source) {
@@ -105,11 +121,31 @@ Result<ModelConfig> ReadConfig(const fb::Config& f, const std::string& source) {
   c.rope_base = f.rope_base();
   c.causal = f.causal();
   c.tie_embeddings = f.tie_embeddings();
-  c.attn_bias = f.attn_bias();
+  c.attn_bias = {f.attn_bias_q(), f.attn_bias_k(), f.attn_bias_v(), f.attn_bias_o()};
+  // attn_bias is written true exactly when all four flags are. A file from before the flags
+  // reads them as their default, true: with attn_bias false it then means no bias at all,
+  // a combination no newer writer produces.
+  if (f.attn_bias() && !c.attn_bias.all()) {
+    return Status::Corruption(source +
+                              ": the header's config field attn_bias is true but not every "
+                              "attn_bias_q/k/v/o flag is");
+  }
+  if (!f.attn_bias() && c.attn_bias.all()) c.attn_bias = {false, false, false, false};
+  if (!MapEnum(f.norm_position(), NormPosition::kPost, &c.norm_position)) {
+    return bad("norm_position");
+  }
+  c.final_norm = f.final_norm();
+  c.embed_norm = f.embed_norm();
   if (!MapEnum(f.tokenizer(), Tokenizer::kSentencePiece, &c.tokenizer)) return bad("tokenizer");
   if (!MapEnum(f.head_kind(), HeadKind::kNone, &c.head.kind)) return bad("head_kind");
   c.head.classes = f.head_classes();
   if (!MapEnum(f.head_pool(), Pool::kLast, &c.head.pool)) return bad("head_pool");
+  c.head.transform = f.head_transform();
+  if (!MapEnum(f.head_transform_activation(), Activation::kSilu, &c.head.transform_activation)) {
+    return bad("head_transform_activation");
+  }
+  c.head.transform_norm = f.head_transform_norm();
+  c.head.bias = f.head_bias();
   return c;
 }
 

@@ -12,6 +12,12 @@ namespace sprig::format {
 flatbuffers::Offset<fb::Config> BuildConfig(flatbuffers::FlatBufferBuilder& b,
                                             const ModelConfig& config);
 
+// The oldest format version whose readers run `config` as it means: 2 for post-norm blocks,
+// which a version-1 reader would run as pre-norm without noticing (their tensors are the same);
+// 1 otherwise. The other block variants change the tensor set, which a version-1 reader
+// refuses by name, so they need no new version.
+uint32_t RequiredFormatVersion(const ModelConfig& config);
+
 // Reads a verified FlatBuffers config; refuses enum values this build does not know.
 // Does not run ValidateConfig; the caller does.
 Result<ModelConfig> ReadConfig(const fb::Config& config, const std::string& source);

@@ -9,7 +9,9 @@
 namespace sprig::format {
 
 inline constexpr uint8_t kMagic[8] = {'S', 'P', 'R', 'I', 'G', 0x00, 0x0D, 0x0A};
-inline constexpr uint32_t kFormatVersion = 1;
+// The newest format version this build reads; a file is written with the oldest version whose
+// readers compute its model correctly (RequiredFormatVersion, format/header_config.h).
+inline constexpr uint32_t kFormatVersion = 2;
 inline constexpr uint32_t kPreambleSize = 64;
 inline constexpr uint32_t kByteOrderMark = 0x01020304;
 inline constexpr uint64_t kPageSize = 4096;     // section alignment

@@ -89,6 +89,16 @@ const char* ToString(Pool v) {
   return "?";
 }
 
+const char* ToString(NormPosition v) {
+  switch (v) {
+    case NormPosition::kPre:
+      return "pre";
+    case NormPosition::kPost:
+      return "post";
+  }
+  return "?";
+}
+
 const char* ToString(Tokenizer v) {
   switch (v) {
     case Tokenizer::kNone:

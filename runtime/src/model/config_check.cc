@@ -109,6 +109,9 @@ Status CheckTransformer(const ModelConfig& c, const std::string& s) {
   if (c.head.kind == HeadKind::kClassifier) {
     SPRIG_RETURN_IF_ERROR(CheckDim(c.head.classes, s + ": head.classes"));
   }
+  if (c.head.kind != HeadKind::kLm && (c.head.transform || c.head.bias)) {
+    return Status::InvalidArgument(s + ": head.transform and head.bias need head kind lm");
+  }
   for (size_t i = 0; i < c.layers.size(); ++i) {
     if (c.layers[i].in != c.d_model || c.layers[i].out != c.d_model) {
       return Status::InvalidArgument(s + ": layers[" + std::to_string(i) +

@@ -69,6 +69,7 @@ ModelCost CostOf(const ModelConfig& config, uint64_t context) {
     m.other_flops = config.layers.size() * (proj + attend);
     if (config.head.kind == HeadKind::kLm) {
       m.other_flops += 2 * v * d;
+      if (config.head.transform) m.other_flops += 2 * d * d;
     } else if (config.head.kind == HeadKind::kClassifier) {
       m.other_flops += 2 * uint64_t{config.head.classes} * d;
     }

@@ -84,6 +84,13 @@ std::vector<TensorSpec> ExpectedTensors(const ModelConfig& config) {
     const bool layer_norm = config.norm == NormKind::kLayerNorm;
     out.push_back({"embed.weight", {v, d}});
     if (config.positions == Positions::kLearned) out.push_back({"pos.weight", {config.max_seq, d}});
+    auto add_model_norm = [&](const std::string& n) {
+      out.push_back({n + ".weight", {d}});
+      if (layer_norm) out.push_back({n + ".bias", {d}});
+    };
+    if (config.embed_norm) add_model_norm("embed_norm");
+    const bool has_bias[4] = {config.attn_bias.q, config.attn_bias.k, config.attn_bias.v,
+                              config.attn_bias.o};
     for (size_t i = 0; i < config.layers.size(); ++i) {
       const std::string b = "blocks." + std::to_string(i) + ".";
       const int li = static_cast<int>(i);
@@ -96,16 +103,21 @@ std::vector<TensorSpec> ExpectedTensors(const ModelConfig& config) {
       const char* names[4] = {"q", "k", "v", "o"};
       for (int p = 0; p < 4; ++p) {
         out.push_back({b + "attn." + names[p] + ".weight", {rows[p], d}, li});
-        if (config.attn_bias) out.push_back({b + "attn." + names[p] + ".bias", {rows[p]}, li});
+        if (has_bias[p]) out.push_back({b + "attn." + names[p] + ".bias", {rows[p]}, li});
       }
       add_norm("norm2");
       auto ffn = LayerTensors(config.layers[i], b + "ffn.", li);
       out.insert(out.end(), ffn.begin(), ffn.end());
     }
-    out.push_back({"norm.weight", {d}});
-    if (layer_norm) out.push_back({"norm.bias", {d}});
-    if (config.head.kind == HeadKind::kLm && !config.tie_embeddings) {
-      out.push_back({"head.weight", {v, d}});
+    if (config.final_norm) add_model_norm("norm");
+    if (config.head.kind == HeadKind::kLm) {
+      if (config.head.transform) {
+        out.push_back({"head.transform.weight", {d, d}});
+        out.push_back({"head.transform.bias", {d}});
+        if (config.head.transform_norm) add_model_norm("head.transform_norm");
+      }
+      if (!config.tie_embeddings) out.push_back({"head.weight", {v, d}});
+      if (config.head.bias) out.push_back({"head.bias", {v}});
     } else if (config.head.kind == HeadKind::kClassifier) {
       out.push_back({"head.weight", {config.head.classes, d}});
       out.push_back({"head.bias", {config.head.classes}});

@@ -1,4 +1,4 @@
-// The transformer family: binding its tensors, the pre-norm blocks and the heads.
+// The transformer family: binding its tensors, the pre- and post-norm blocks and the heads.
 #include "transformer/transformer.h"
 
 #include <algorithm>
@@ -151,19 +151,27 @@ Result<std::unique_ptr<network::Network>> TransformerNetwork::Bind(const format:
     Block b;
     SPRIG_RETURN_IF_ERROR(f.Norm(p + "norm1", layer_norm, &b.norm1));
     SPRIG_RETURN_IF_ERROR(f.Norm(p + "norm2", layer_norm, &b.norm2));
-    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.q", c.attn_bias, &b.q));
-    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.k", c.attn_bias, &b.k));
-    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.v", c.attn_bias, &b.v));
-    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.o", c.attn_bias, &b.o));
+    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.q", c.attn_bias.q, &b.q));
+    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.k", c.attn_bias.k, &b.k));
+    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.v", c.attn_bias.v, &b.v));
+    SPRIG_RETURN_IF_ERROR(f.Linear(p + "attn.o", c.attn_bias.o, &b.o));
     b.ffn = t->layers_[i].get();
     t->blocks_.push_back(b);
   }
-  SPRIG_RETURN_IF_ERROR(f.Norm("norm", layer_norm, &t->final_norm_));
+  if (c.embed_norm) SPRIG_RETURN_IF_ERROR(f.Norm("embed_norm", layer_norm, &t->embed_norm_));
+  if (c.final_norm) SPRIG_RETURN_IF_ERROR(f.Norm("norm", layer_norm, &t->final_norm_));
   if (c.head.kind == HeadKind::kLm) {
     if (c.tie_embeddings) {
       t->lm_head_ = t->embed_;
     } else {
       SPRIG_RETURN_IF_ERROR(f.Matrix("head.weight", &t->lm_head_));
+    }
+    if (c.head.bias) SPRIG_RETURN_IF_ERROR(f.Floats("head.bias", true, &t->lm_bias_));
+    if (c.head.transform) {
+      SPRIG_RETURN_IF_ERROR(f.Linear("head.transform", true, &t->head_transform_));
+      if (c.head.transform_norm) {
+        SPRIG_RETURN_IF_ERROR(f.Norm("head.transform_norm", layer_norm, &t->head_transform_norm_));
+      }
     }
   } else if (c.head.kind == HeadKind::kClassifier) {
     SPRIG_RETURN_IF_ERROR(f.Linear("head", true, &t->classifier_));
@@ -213,6 +221,11 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
   Grow(ws.proj, rows * d);
   Grow(ws.ffn, rows * d);
   Embed(e, tokens, rows, length, start, ws.x.data());
+  if (config_->embed_norm) {
+    NormRows(e, embed_norm_, ws.x.data(), rows, ws.normed.data());
+    std::copy(ws.normed.begin(), ws.normed.begin() + rows * d, ws.x.begin());
+  }
+  const bool post = config_->norm_position == NormPosition::kPost;
   const bool rope = config_->positions == Positions::kRope;
   if (rope) {
     // One table for the positions of this call, shared by every block, head and sequence.
@@ -231,10 +244,15 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
   for (size_t i = 0; i < blocks_.size(); ++i) {
     const Block& b = blocks_[i];
     float* x = ws.x.data();
-    NormRows(e, b.norm1, x, rows, ws.normed.data());
-    Project(e, b.q, ws.normed.data(), rows, ws.q.data());
-    Project(e, b.k, ws.normed.data(), rows, ws.k.data());
-    Project(e, b.v, ws.normed.data(), rows, ws.v.data());
+    // Pre-norm blocks project the normalised stream, post-norm blocks the stream itself.
+    const float* attn_in = x;
+    if (!post) {
+      NormRows(e, b.norm1, x, rows, ws.normed.data());
+      attn_in = ws.normed.data();
+    }
+    Project(e, b.q, attn_in, rows, ws.q.data());
+    Project(e, b.k, attn_in, rows, ws.k.data());
+    Project(e, b.v, attn_in, rows, ws.v.data());
     if (rope) {
       for (size_t r = 0; r < rows; ++r) {
         const float* cs = ws.rope_cos.data() + (r % length) * hd / 2;
@@ -261,10 +279,17 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
     Attend(e, ws, sequences, length, start, keys, values, stride);
     Project(e, b.o, ws.attn.data(), rows, ws.proj.data());
     AddInPlace(x, ws.proj.data(), rows * d);
-    NormRows(e, b.norm2, x, rows, ws.normed.data());
+    // The feed-forward input: Norm2(x) before it (pre), or h = Norm1(x + Attn(x)) (post).
+    NormRows(e, post ? b.norm1 : b.norm2, x, rows, ws.normed.data());
     b.ffn->Forward(e, ws.normed.data(), rows, ws.ffn.data(),
                    recorder.RoutesOf(i, b.ffn->route_width(), rows));
-    AddInPlace(x, ws.ffn.data(), rows * d);
+    if (post) {
+      // x = Norm2(h + FFN(h)); the sum goes through ws.ffn, since a norm does not run in place.
+      AddInPlace(ws.ffn.data(), ws.normed.data(), rows * d);
+      NormRows(e, b.norm2, ws.ffn.data(), rows, x);
+    } else {
+      AddInPlace(x, ws.ffn.data(), rows * d);
+    }
     recorder.Trace(i, ws.normed.data(), d, x, d, rows);
   }
 }
@@ -272,11 +297,14 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
 void TransformerNetwork::Head(const Exec& e, TransformerWorkspace& ws, size_t sequences,
                               size_t length, float* output) const {
   const size_t rows = sequences * length, d = d_;
-  NormRows(e, final_norm_, ws.x.data(), rows, ws.normed.data());
-  const float* h = ws.normed.data();
+  const float* h = ws.x.data();
+  if (config_->final_norm) {
+    NormRows(e, final_norm_, ws.x.data(), rows, ws.normed.data());
+    h = ws.normed.data();
+  }
   switch (config_->head.kind) {
     case HeadKind::kLm:
-      Project(e, lm_head_, nullptr, h, rows, output);
+      LmLogits(e, ws, h, rows, output);
       return;
     case HeadKind::kNone:
       std::copy(h, h + rows * d, output);
@@ -308,6 +336,23 @@ void TransformerNetwork::Head(const Exec& e, TransformerWorkspace& ws, size_t se
   Project(e, classifier_, ws.out.data(), sequences, output);
 }
 
+void TransformerNetwork::LmLogits(const Exec& e, TransformerWorkspace& ws, const float* h,
+                                  size_t rows, float* logits) const {
+  if (config_->head.transform) {
+    // Norm(act(T h + t)), as masked-language-model heads transform before the vocabulary.
+    Grow(ws.proj, rows * d_);
+    Project(e, head_transform_, h, rows, ws.proj.data());
+    e.k->activate(config_->head.transform_activation, ws.proj.data(), rows * d_);
+    h = ws.proj.data();
+    if (config_->head.transform_norm) {
+      Grow(ws.out, rows * d_);
+      NormRows(e, head_transform_norm_, ws.proj.data(), rows, ws.out.data());
+      h = ws.out.data();
+    }
+  }
+  Project(e, lm_head_, lm_bias_, h, rows, logits);
+}
+
 void TransformerNetwork::Forward(const Exec& e, network::Workspace& workspace,
                                  const network::Input& input, float* output,
                                  network::Recorder& recorder) const {
@@ -331,8 +376,11 @@ void TransformerNetwork::Append(const Exec& e, network::Workspace& workspace,
   if (logits == nullptr) return;
   // Only the last token's logits are wanted: normalise and project that row alone.
   const float* last = ws.x.data() + (count - 1) * d_;
-  NormRows(e, final_norm_, last, 1, ws.normed.data());
-  Project(e, lm_head_, nullptr, ws.normed.data(), 1, logits);
+  if (config_->final_norm) {
+    NormRows(e, final_norm_, last, 1, ws.normed.data());
+    last = ws.normed.data();
+  }
+  LmLogits(e, ws, last, 1, logits);
 }
 
 }  // namespace sprig::transformer

@@ -1,6 +1,8 @@
 // The transformer family (model semantics: docs/model-semantics.md; the executable
 // reference is converter/python/sprig_torch/models.py): token embedding, optional learned
-// positions, pre-norm blocks of attention and a feed-forward layer, the final norm and a head.
+// positions, an optional norm on the embeddings, pre- or post-norm blocks of attention and a
+// feed-forward layer, the optional final norm and a head (an lm head optionally with a
+// transform before the vocabulary projection).
 //
 // A TransformerNetwork holds pointers into a model's mapping and its bound feed-forward layers;
 // it is bound once when the model opens, immutable, and shared by any number of threads.
@@ -96,13 +98,19 @@ class TransformerNetwork final : public network::Network, public network::Decode
                 float* y) const;
   void Head(const layers::Exec& exec, TransformerWorkspace& ws, size_t sequences, size_t length,
             float* output) const;
+  // The lm logits [rows, V] of hidden rows h (already through the final norm, if any); uses
+  // ws.proj and ws.out.
+  void LmLogits(const layers::Exec& exec, TransformerWorkspace& ws, const float* h, size_t rows,
+                float* logits) const;
 
   const ModelConfig* config_ = nullptr;
   size_t d_ = 0, head_dim_ = 0, kv_dim_ = 0, group_ = 1;
   layers::MatrixView embed_, pos_, lm_head_;
+  const float* lm_bias_ = nullptr;  // null: the lm head has no bias
   bool has_pos_ = false;
   Linear classifier_;
-  Norm final_norm_;
+  Linear head_transform_;
+  Norm final_norm_, embed_norm_, head_transform_norm_;
   std::vector<Block> blocks_;
 };
 
