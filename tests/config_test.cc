@@ -1,11 +1,12 @@
-// config.json parsing and validation (docs/input-contract.md), ConfigToJson and the rename
-// map.
+// config.json parsing and validation (docs/input-contract.md), ConfigToJson, and files of plain
+// renames read as mapping files (the mapping file's other forms: mapping_test.cc).
 #include <gtest/gtest.h>
 
 #include <cstdio>
 #include <cstring>
 #include <filesystem>
 #include <fstream>
+#include <map>
 #include <random>
 #include <string>
 #include <vector>
@@ -15,6 +16,7 @@
 #include "converter/config/config_equal.h"
 #include "converter/config/config_json.h"
 #include "converter/config/config_limits.h"
+#include "converter/config/mapping.h"
 #include "support/test_util.h"
 
 namespace sprig::convert {
@@ -699,45 +701,59 @@ TEST(ConfigFile, ReadsAndNamesThePath) {
   EXPECT_STARTS_WITH(m.status().message(), missing + ": cannot open the config file");
 }
 
+// A file of plain renames, the only form there was before the mapping file grew, reads as it
+// always did (docs/mapping.md, form 1).
 TEST(ConfigRenameMap, ParsesPairs) {
-  auto m = ParseRenameMap(R"({"model.fc1.weight":"layers.0.fc1.weight","b":"a","a":"b"})",
-                          "rename.json");
+  auto m =
+      ParseMapping(R"({"model.fc1.weight":"layers.0.fc1.weight","b":"a","a":"b"})", "rename.json");
   ASSERT_TRUE(m.ok()) << m.status().message();
-  EXPECT_EQ(m->size(), 3u);
-  EXPECT_EQ(m->at("model.fc1.weight"), "layers.0.fc1.weight");
-  EXPECT_EQ(m->at("a"), "b");  // a swap is fine: targets are distinct
-  auto empty = ParseRenameMap("{}", "rename.json");
+  ASSERT_EQ(m->entries.size(), 3u);
+  std::map<std::string, std::string> renames;
+  for (const MappingEntry& e : m->entries) {
+    EXPECT_EQ(e.kind, MappingEntry::Kind::kRename);
+    EXPECT_FALSE(e.transpose);
+    renames[e.key] = e.to;
+  }
+  EXPECT_EQ(renames.at("model.fc1.weight"), "layers.0.fc1.weight");
+  EXPECT_EQ(renames.at("a"), "b");  // a swap is fine: targets are distinct
+  auto empty = ParseMapping("{}", "rename.json");
   ASSERT_TRUE(empty.ok());
   EXPECT_TRUE(empty->empty());
 }
 
 TEST(ConfigRenameMap, Errors) {
   auto error = [](const std::string& text) {
-    auto m = ParseRenameMap(text, "rename.json");
+    auto m = ParseMapping(text, "rename.json");
     return m.ok() ? std::string("OK") : m.status().message();
   };
   EXPECT_STARTS_WITH(error(R"(["a","b"])"),
-                     "rename.json: a rename map must be a JSON object of \"their name\": \"our "
-                     "name\" pairs, got [\"a\",\"b\"]");
-  EXPECT_EQ(error(R"({"a": 3})"), "rename.json: the new name for \"a\" must be a string, got 3");
+                     "rename.json: a mapping file must be a JSON object of their tensor names (or "
+                     "patterns) to ours, got [\"a\",\"b\"]");
+  EXPECT_EQ(error(R"({"a": 3})"),
+            "rename.json: entry \"a\": the value must be our name or an object with \"to\", "
+            "\"stack\" or \"split\", got 3");
   EXPECT_EQ(error(R"({"a": "x", "b": "x"})"),
-            "rename.json: both \"a\" and \"b\" are renamed to \"x\"");
+            "rename.json: entries \"a\" and \"b\" both produce \"x\"");
   EXPECT_EQ(error(R"({"a": "x", "a": "y"})"),
             "rename.json: field \"a\" appears twice in the same object");
-  EXPECT_EQ(error(R"({"a": ""})"), "rename.json: \"a\" maps to or from an empty name");
+  EXPECT_EQ(error(R"({"a": ""})"),
+            "rename.json: entry \"a\": \"to\" must be a non-empty string, got \"\"");
+  EXPECT_EQ(error(R"({"": "a"})"), "rename.json: an entry has an empty name");
   EXPECT_STARTS_WITH(error("{\"a\": \"x\",\n}"), "rename.json: invalid JSON at line 2, column 1");
 }
 
 TEST(ConfigRenameMap, ReadsFile) {
   TempDir dir;
-  auto m = ReadRenameMap(dir.Write("rename.json", R"({"x":"y"})"));
+  auto m = ReadMapping(dir.Write("rename.json", R"({"x":"y"})"));
   ASSERT_TRUE(m.ok()) << m.status().message();
-  EXPECT_EQ(m->at("x"), "y");
+  ASSERT_EQ(m->entries.size(), 1u);
+  EXPECT_EQ(m->entries[0].to, "y");
+  EXPECT_EQ(m->source, dir.Path("rename.json"));
   const std::string missing = dir.Path("none.json");
-  auto n = ReadRenameMap(missing);
+  auto n = ReadMapping(missing);
   ASSERT_FALSE(n.ok());
   EXPECT_EQ(n.status().code(), Status::Code::kNotFound);
-  EXPECT_STARTS_WITH(n.status().message(), missing + ": cannot open the rename map file");
+  EXPECT_STARTS_WITH(n.status().message(), missing + ": cannot open the mapping file");
 }
 
 }  // namespace

@@ -7,6 +7,7 @@
 #include <cstring>
 #include <filesystem>
 #include <fstream>
+#include <map>
 #include <random>
 #include <string>
 #include <vector>
@@ -63,9 +64,11 @@ std::vector<NdArray> ArraysFor(const ModelConfig& config, ElementType type = Ele
   return arrays;
 }
 
+using RenameMap = std::map<std::string, std::string>;
+
 std::string ErrorOf(const ModelConfig& config, const std::vector<NdArray>& arrays,
                     const RenameMap& rename = {}) {
-  auto r = MatchTensors(config, arrays, "weights.npz", rename);
+  auto r = MatchTensors(config, arrays, "weights.npz", RenameMapping(rename, "map.json"));
   if (r.ok()) return "OK";
   EXPECT_EQ(r.status().code(), Status::Code::kInvalidArgument);
   return r.status().message();
@@ -161,7 +164,7 @@ TEST(TensorMatch, PrefixedNamesSuggestRename) {
                     "weights.npz: tensor layers.0.fc1.weight with shape [8, 4] is missing; "
                     "the file has " +
                         prefix + "layers.0.fc1.weight");
-    EXPECT_CONTAINS(msg, "--rename");
+    EXPECT_CONTAINS(msg, "--map FILE");
     EXPECT_CONTAINS(msg, "{\"" + prefix + "layers.0.fc1.weight\": \"layers.0.fc1.weight\"}");
     EXPECT_CONTAINS(msg, "prefix \"" + prefix + "\"");
     // Every expected tensor is missing and every array unexpected.
@@ -178,10 +181,11 @@ TEST(TensorMatch, CloseNameSuggestsRename) {
   const ModelConfig config = SmallStack();
   auto arrays = ArraysFor(config);
   Find(arrays, "layers.0.fc2.bias")->name = "layers.0.fc2.biass";
-  EXPECT_EQ(ErrorOf(config, arrays),
-            "weights.npz: tensor layers.0.fc2.bias with shape [3] is missing; the file has "
-            "layers.0.fc2.biass: map its names to ours with --rename FILE, a JSON object such as "
-            "{\"layers.0.fc2.biass\": \"layers.0.fc2.bias\"} (and 1 more problem)");
+  EXPECT_EQ(
+      ErrorOf(config, arrays),
+      "weights.npz: tensor layers.0.fc2.bias with shape [3] is missing; the file has "
+      "layers.0.fc2.biass: map its names to ours with --map FILE, a JSON object such as "
+      "{\"layers.0.fc2.biass\": \"layers.0.fc2.bias\"} (docs/mapping.md) (and 1 more problem)");
   // Nothing close: no hint.
   Find(arrays, "layers.0.fc2.biass")->name = "unrelated";
   EXPECT_EQ(ErrorOf(config, arrays),
@@ -290,25 +294,25 @@ TEST(TensorMatch, RenameMap) {
   EXPECT_EQ(ErrorOf(config, arrays, {{"encoder.w1", "layers.0.fc1.weight"}, {"absent", "x"}}),
             "OK");
   EXPECT_EQ(ErrorOf(config, arrays, {{"encoder.w1", "layers.0.fc9.weight"}}),
-            "weights.npz: tensor layers.0.fc1.weight with shape [8, 4] is missing; the rename "
-            "map renames encoder.w1 to layers.0.fc9.weight: should that be layers.0.fc1.weight? "
+            "weights.npz: tensor layers.0.fc1.weight with shape [8, 4] is missing; the mapping "
+            "file renames encoder.w1 to layers.0.fc9.weight: should that be layers.0.fc1.weight? "
             "(and 1 more problem)");
   // A target outside the config, when nothing else is wrong.
   arrays.push_back(Zeros("spare", ElementType::kF32, {1}));
   Find(arrays, "encoder.w1")->name = "layers.0.fc1.weight";
   EXPECT_EQ(ErrorOf(config, arrays, {{"spare", "layers.9.fc1.weight"}}),
-            "weights.npz: the rename map renames spare to layers.9.fc1.weight, which is not a "
+            "weights.npz: the mapping file renames spare to layers.9.fc1.weight, which is not a "
             "tensor this config has");
   // Renamed onto a name the file already has.
   EXPECT_EQ(ErrorOf(config, arrays, {{"spare", "layers.0.fc1.weight"}}),
             "weights.npz: both layers.0.fc1.weight and layers.0.fc1.weight (renamed from spare) "
-            "would be tensor layers.0.fc1.weight; check the rename map");
-  // Two sources renamed to one target (a map file refuses this; an in-memory map may not).
+            "would be tensor layers.0.fc1.weight; check the mapping file");
+  // Two sources renamed to one target: the mapping refuses it, naming both entries.
   Find(arrays, "layers.0.fc1.weight")->name = "a";
   EXPECT_EQ(
       ErrorOf(config, arrays, {{"a", "layers.0.fc1.weight"}, {"spare", "layers.0.fc1.weight"}}),
-      "weights.npz: both layers.0.fc1.weight (renamed from a) and layers.0.fc1.weight "
-      "(renamed from spare) would be tensor layers.0.fc1.weight; check the rename map");
+      "map.json: entries \"a\" and \"spare\" both give layers.0.fc1.weight (from a and spare); "
+      "each of our names may be produced once");
   // The renamed array's shape is checked under both names.
   Find(arrays, "a")->shape = {4, 8};
   arrays.pop_back();
@@ -358,11 +362,12 @@ TEST(TensorMatch, ArchiveOverloadNamesTheFile) {
   auto matched = MatchTensors(config, *archive, {});
   ASSERT_TRUE(matched.ok()) << matched.status().message();
   EXPECT_EQ(matched->front().source, archive->Find(matched->front().spec.name));
-  auto renamed = MatchTensors(config, *archive, {{"layers.0.fc1.weight", "layers.0.fc1.weigth"}});
+  auto renamed = MatchTensors(config, *archive,
+                              RenameMapping({{"layers.0.fc1.weight", "layers.0.fc1.weigth"}}));
   ASSERT_FALSE(renamed.ok());
   EXPECT_EQ(renamed.status().message(),
             path +
-                ": tensor layers.0.fc1.weight with shape [8, 4] is missing; the rename map "
+                ": tensor layers.0.fc1.weight with shape [8, 4] is missing; the mapping file "
                 "renames layers.0.fc1.weight to layers.0.fc1.weigth: should that be "
                 "layers.0.fc1.weight? (and 1 more problem)");
 }

@@ -1,9 +1,8 @@
-// config.json: parsing and validation against the input contract, and the rename map.
+// config.json: parsing and validation against the input contract.
 //
 // All functions are pure (no global state) and safe to call from any thread.
 #pragma once
 
-#include <map>
 #include <string>
 
 #include "converter/config/config_limits.h"
@@ -29,12 +28,5 @@ Result<ModelConfig> ReadConfigFile(const std::string& path);
 // Writes the canonical JSON form of a validated config (all fields, defaults explicit; one
 // line per layer). ParseConfig(ConfigToJson(c)) == c.
 std::string ConfigToJson(const ModelConfig& config);
-
-// A rename map: {"their.name": "our.name", ...}.
-using RenameMap = std::map<std::string, std::string>;
-// The file must hold one JSON object whose values are strings; empty names, repeated keys and
-// two names renamed to the same target are refused.
-Result<RenameMap> ReadRenameMap(const std::string& path);
-Result<RenameMap> ParseRenameMap(const std::string& json_text, const std::string& source);
 
 }  // namespace sprig::convert

@@ -12,7 +12,7 @@
 //   elements of any one tensor                                 at most 2^36
 //   elements of all tensors together                           at most 2^38
 //   name / description                                         1 KiB / 64 KiB of UTF-8
-//   config.json / rename map file                              16 MiB / 64 MiB
+//   config.json / mapping file                                 16 MiB / 64 MiB
 //
 // Why these numbers: 2^38 elements of the widest input type (float64, 8 bytes) is 2^41 bytes,
 // so every byte count, offset and padded size derived from a valid config stays below 2^42,
@@ -41,6 +41,6 @@ using ::sprig::kMaxTotalElements;
 inline constexpr size_t kMaxNameBytes = 1024;
 inline constexpr size_t kMaxDescriptionBytes = 64 * 1024;
 inline constexpr uint64_t kMaxConfigFileBytes = 16 * 1024 * 1024;
-inline constexpr uint64_t kMaxRenameFileBytes = 64 * 1024 * 1024;
+inline constexpr uint64_t kMaxMappingFileBytes = 64 * 1024 * 1024;
 
 }  // namespace sprig::convert

@@ -1,4 +1,4 @@
-// Helpers shared by the config and rename-map readers: strict JSON parsing with located errors,
+// Helpers shared by the config and mapping-file readers: strict JSON parsing with located errors,
 // bounded file reading, and short descriptions of JSON values for error messages.
 #pragma once
 
@@ -17,7 +17,7 @@ namespace sprig::convert::internal {
 Result<nlohmann::json> ParseJsonText(const std::string& text, const std::string& source);
 
 // Reads a whole file of at most `max_bytes` bytes. `what` names the file's role in errors
-// ("config", "rename map").
+// ("config", "mapping").
 Result<std::string> ReadTextFile(const std::string& path, uint64_t max_bytes, const char* what);
 
 // A value as it appears in JSON, shortened to about 40 characters: "\"six\"", "-3", "[1,2]".

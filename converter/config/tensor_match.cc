@@ -4,6 +4,7 @@
 #include <functional>
 #include <unordered_map>
 
+#include "base/status_macros.h"
 #include "converter/config/finite_check.h"
 #include "converter/config/json_util.h"
 
@@ -57,21 +58,22 @@ size_t EditDistance(const std::string& a, const std::string& b) {
   return row[b.size()];
 }
 
-// An array no expected tensor claims: its name in the file and after renaming.
+// An array no expected tensor claims: its name after mapping, and what the mapping did to it
+// ("renames x to"; empty when nothing).
 struct Unused {
-  std::string theirs;
   std::string ours;
+  std::string action;
 };
 
 // The hint for a missing tensor `expected` once `close` was found to stand for it.
 std::string HintFor(const std::string& expected, const Unused& close) {
-  if (close.theirs != close.ours) {
-    return "; the rename map renames " + Name(close.theirs) + " to " + Name(close.ours) +
-           ": should that be " + Name(expected) + "?";
+  if (!close.action.empty()) {
+    return "; the mapping file " + close.action + " " + Name(close.ours) + ": should that be " +
+           Name(expected) + "?";
   }
-  return "; the file has " + Name(close.theirs) + ": map its names to ours with --rename FILE, " +
-         "a JSON object such as {" + internal::Quote(close.theirs) + ": " +
-         internal::Quote(expected) + "}";
+  return "; the file has " + Name(close.ours) + ": map its names to ours with --map FILE, " +
+         "a JSON object such as {" + internal::Quote(close.ours) + ": " +
+         internal::Quote(expected) + "} (docs/mapping.md)";
 }
 
 // A hint for a missing tensor `expected` when an unused array's name (after renaming) is close
@@ -118,45 +120,44 @@ std::string MoreProblems(size_t n) {
 
 Result<std::vector<MatchedTensor>> MatchTensors(const ModelConfig& config,
                                                 const io::TensorArchive& archive,
-                                                const RenameMap& rename) {
-  return MatchTensors(config, archive.arrays(), archive.path(), rename);
+                                                const Mapping& mapping) {
+  return MatchTensors(config, archive.arrays(), archive.path(), mapping);
 }
 
 Result<std::vector<MatchedTensor>> MatchTensors(const ModelConfig& config,
-                                                const std::vector<io::NdArray>& arrays,
+                                                const std::vector<io::NdArray>& input,
                                                 const std::string& source_name,
-                                                const RenameMap& rename) {
+                                                const Mapping& mapping) {
+  SPRIG_ASSIGN_OR_RETURN(std::vector<MappedTensor> mapped, ApplyMapping(mapping, input));
   const std::vector<TensorSpec> specs = ExpectedTensors(config);
   std::unordered_map<std::string, size_t> spec_index;
   for (size_t s = 0; s < specs.size(); ++s) spec_index.emplace(specs[s].name, s);
 
   std::vector<Problem> problems;
-  std::vector<std::string> ours(arrays.size());  // each array's name after renaming
-  std::vector<Unused> unused;                    // arrays no spec claims
+  std::vector<Unused> unused;  // arrays no spec claims
   std::vector<int64_t> claimed(specs.size(), -1);
-  auto shown = [&](size_t a) {  // an array's name in messages: ours, and theirs if renamed
-    const std::string& theirs = arrays[a].name;
-    return ours[a] == theirs ? Name(theirs)
-                             : Name(ours[a]) + " (renamed from " + Name(theirs) + ")";
+  auto array_of = [&](size_t a) -> const io::NdArray& { return *mapped[a].array; };
+  auto shown = [&](size_t a) {  // a tensor's name in messages: ours, and where it came from
+    const MappedTensor& m = mapped[a];
+    return m.origin.empty() ? Name(m.name) : Name(m.name) + " (" + m.origin + ")";
   };
 
-  for (size_t a = 0; a < arrays.size(); ++a) {
-    auto r = rename.find(arrays[a].name);
-    const bool renamed = r != rename.end();
-    ours[a] = renamed ? r->second : arrays[a].name;
-    auto s = spec_index.find(ours[a]);
+  for (size_t a = 0; a < mapped.size(); ++a) {
+    const MappedTensor& m = mapped[a];
+    auto s = spec_index.find(m.name);
     const uint64_t late = specs.size() + a;
     if (s == spec_index.end()) {
-      unused.push_back({arrays[a].name, ours[a]});
-      if (renamed) {
+      unused.push_back({m.name, m.action});
+      if (!m.action.empty()) {
         problems.push_back({late, [&, a] {
-                              return "the rename map renames " + Name(arrays[a].name) + " to " +
-                                     Name(ours[a]) + ", which is not a tensor this config has";
+                              return "the mapping file " + mapped[a].action + " " +
+                                     Name(mapped[a].name) +
+                                     ", which is not a tensor this config has";
                             }});
       } else {
         problems.push_back({late, [&, a] {
-                              return "unexpected tensor " + Name(arrays[a].name) + " with shape " +
-                                     ShapeToString(arrays[a].shape) +
+                              return "unexpected tensor " + Name(mapped[a].name) + " with shape " +
+                                     ShapeToString(array_of(a).shape) +
                                      ": the config has no tensor of that name";
                             }});
       }
@@ -167,7 +168,8 @@ Result<std::vector<MatchedTensor>> MatchTensors(const ModelConfig& config,
       const size_t first = static_cast<size_t>(claimed[spec]);
       problems.push_back({spec, [&, first, a] {
                             return "both " + shown(first) + " and " + shown(a) +
-                                   " would be tensor " + Name(ours[a]) + "; check the rename map";
+                                   " would be tensor " + Name(mapped[a].name) +
+                                   "; check the mapping file";
                           }});
       continue;
     }
@@ -185,10 +187,10 @@ Result<std::vector<MatchedTensor>> MatchTensors(const ModelConfig& config,
       continue;
     }
     const size_t a = static_cast<size_t>(claimed[s]);
-    const io::NdArray& array = arrays[a];
+    const io::NdArray& array = *mapped[a].array;
     if (array.shape != spec.shape) {
       problems.push_back({s, [&, s, a] {
-                            return shown(a) + " has shape " + ShapeToString(arrays[a].shape) +
+                            return shown(a) + " has shape " + ShapeToString(array_of(a).shape) +
                                    " but the config needs " + ShapeToString(specs[s].shape);
                           }});
       continue;
@@ -196,7 +198,7 @@ Result<std::vector<MatchedTensor>> MatchTensors(const ModelConfig& config,
     if (!IsWeightType(array.type)) {
       problems.push_back({s, [&, a] {
                             return shown(a) + " has element type " +
-                                   io::ElementTypeName(arrays[a].type) +
+                                   io::ElementTypeName(array_of(a).type) +
                                    ", but weights must be float64, float32, float16 or bfloat16";
                           }});
       continue;
@@ -228,7 +230,8 @@ Result<std::vector<MatchedTensor>> MatchTensors(const ModelConfig& config,
   std::vector<MatchedTensor> matched;
   matched.reserve(specs.size());
   for (size_t s = 0; s < specs.size(); ++s) {
-    matched.push_back({specs[s], &arrays[static_cast<size_t>(claimed[s])]});
+    MappedTensor& m = mapped[static_cast<size_t>(claimed[s])];
+    matched.push_back({specs[s], m.array, std::move(m.made)});
   }
   return matched;
 }

@@ -435,7 +435,7 @@ Result<PackSummary> PackFiles(const std::string& config_path, const std::string&
   }
   SPRIG_ASSIGN_OR_RETURN(io::TensorArchive archive, io::TensorArchive::Open(weights_path));
   SPRIG_ASSIGN_OR_RETURN(std::vector<MatchedTensor> matched,
-                         MatchTensors(config, archive, options.rename));
+                         MatchTensors(config, archive, options.mapping));
   SPRIG_ASSIGN_OR_RETURN(PackSummary summary,
                          PackTensors(config, matched, out_path, with_tokenizer));
   // Report the whole job: reading and checking the inputs included.

@@ -18,7 +18,7 @@ namespace sprig::convert {
 struct PackOptions {
   StoragePlan storage;     // storage type of each part (all f32 by default)
   bool overwrite = false;  // replace an existing output
-  RenameMap rename;        // their tensor name → ours
+  Mapping mapping;         // their tensor names → ours (the --map file)
   // A SentencePiece model file (.model) for a config with tokenizer "sentencepiece": PackFiles
   // reads it and stores its vocabulary and rules in the file's tokenizer section. Required for
   // such a config, refused for any other.

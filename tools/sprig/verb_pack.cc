@@ -1,5 +1,6 @@
 // sprig pack CONFIG WEIGHTS -o OUT [--dtype f32|f16|bf16|i8] [--dtype-nodes T] [--dtype-records T]
-//   [--dtype-dense T] [--rename MAP] [--tokenizer FILE.model] [--force]
+//   [--dtype-dense T] [--map FILE] [--tokenizer FILE.model] [--force]   (--rename FILE = --map
+//   FILE)
 
 #include <cstdio>
 #include <cstdlib>
@@ -14,7 +15,7 @@ namespace sprig::cli {
 namespace {
 
 struct PackArgs {
-  std::string config, weights, out, dtype = "f32", rename, tokenizer;
+  std::string config, weights, out, dtype = "f32", mapping, tokenizer;
   std::string dtype_nodes, dtype_records, dtype_dense;  // empty: as --dtype
   bool force = false;
 };
@@ -59,10 +60,10 @@ int RunPack(const PackArgs& a) {
   options.storage = *storage;
   options.overwrite = a.force;
   options.tokenizer_model = a.tokenizer;
-  if (!a.rename.empty()) {
-    auto map = convert::ReadRenameMap(a.rename);
-    if (!map.ok()) return Fail("pack", map.status());
-    options.rename = std::move(*map);
+  if (!a.mapping.empty()) {
+    auto mapping = convert::ReadMapping(a.mapping);
+    if (!mapping.ok()) return Fail("pack", mapping.status());
+    options.mapping = std::move(*mapping);
   }
   Progress progress("packing " + a.out);
   options.progress = [&](uint64_t done, uint64_t total) { progress.Update(done, total); };
@@ -110,8 +111,11 @@ Verb AddPack(CLI::App& app) {
   c->add_option("--dtype-dense", args->dtype_dense,
                 "storage type of every other weight (dense layers, attention, embeddings, "
                 "head); default --dtype");
-  c->add_option("--rename", args->rename,
-                "JSON file mapping the weights' tensor names to sprig's names");
+  // --rename is the option's first name, kept so that existing scripts work; it takes the same
+  // file (a file of plain renames is a mapping file).
+  c->add_option("--map,--rename", args->mapping,
+                "mapping file: JSON mapping the weights' tensor names to sprig's (rename by "
+                "pattern, transpose, stack, split; docs/mapping.md)");
   c->add_option("--tokenizer", args->tokenizer,
                 "a SentencePiece model (.model, BPE or unigram) to store in the file, for a "
                 "config with \"tokenizer\": \"sentencepiece\"");
