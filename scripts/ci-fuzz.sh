@@ -7,7 +7,7 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 SECONDS_PER_TARGET="${SPRIG_FUZZ_SECONDS:-45}"
 JOBS="${JOBS:-2}"
-TARGETS=(model npy npz safetensors config tokenizer)
+TARGETS=(model npy npz safetensors config mapping tokenizer)
 
 bash scripts/install-deps.sh
 mkdir -p build-fuzz

@@ -152,6 +152,20 @@ TEST(Mapping, RenamesByPatternWithoutCopying) {
   EXPECT_EQ(two[0].name, "x.3.10");
 }
 
+// A key whose placeholders can divide a long run of digits in very many ways is matched in
+// polynomial time (a failed match is not retried from the same place).
+TEST(Mapping, HostilePatternsMatchQuickly) {
+  std::string key = "w", value = "x";
+  for (int i = 0; i < 16; ++i) {
+    key += "{p" + std::to_string(i) + "}1";
+    value += ".{p" + std::to_string(i) + "}";
+  }
+  const std::vector<NdArray> arrays = {Iota("w" + std::string(400, '1') + "2", {1})};
+  auto r = ApplyMapping(Parse("{\"" + key + "\": \"" + value + "\"}"), arrays);
+  ASSERT_TRUE(r.ok()) << r.status().message();
+  EXPECT_EQ((*r)[0].name, arrays[0].name);  // no match: the name ends in 2
+}
+
 TEST(Mapping, TransposesTheLastTwoAxes) {
   const auto mapped = Apply(R"({"w": {"to": "ours.w", "transpose": true},
                                "b": {"to": "ours.b", "transpose": true}})",
@@ -340,6 +354,13 @@ TEST(Mapping, RefusesBadPlaceholders) {
   EXPECT_EQ(ParseError(R"({"h.{i}{j}": "b.{i}.{j}"})"),
             "map.json: entry \"h.{i}{j}\": \"h.{i}{j}\" has two placeholders with nothing between "
             "them");
+  std::string many = "w", many_value = "x";
+  for (int i = 0; i < 17; ++i) {
+    many += ".{p" + std::to_string(i) + "}";
+    many_value += ".{p" + std::to_string(i) + "}";
+  }
+  EXPECT_EQ(ParseError("{\"" + many + "\": \"" + many_value + "\"}"),
+            "map.json: entry \"" + many + "\": \"" + many + "\" has more than 16 placeholders");
   // In a value too, since the exporter matches values against our names to invert the mapping.
   EXPECT_EQ(ParseError(R"({"h.{i}.{j}": "b.{i}{j}"})"),
             "map.json: entry \"h.{i}.{j}\": \"b.{i}{j}\" has two placeholders with nothing "

@@ -279,6 +279,20 @@ TEST_F(PackCliMapping, BadMappingsAreRefusedByName) {
   EXPECT_FALSE(std::filesystem::exists(dir_.File("m.sprig")));
 }
 
+// The exporter reads the same mapping file as pack: tests/python/test_mapping.py checks
+// load_weights and weight_arrays against NumPy and, given the program, that the weights
+// load_weights makes pack byte for byte into the file pack makes with --map.
+TEST(PackCliExporter, LoadWeightsGetsWhatPackGets) {
+  const std::string src = SPRIG_SOURCE_DIR;
+  auto r = testing::Run("SPRIG_CLI=" + Quote(testing::SprigCli()) + " PYTHONPATH=" +
+                        Quote(src + "/converter/python") + " " + testing::Python() + " " +
+                        Quote(src + "/tests/python/test_mapping.py") + " -v");
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+  // The comparison with pack ran: it skips itself only without SPRIG_CLI.
+  EXPECT_NE(r.output.find("test_pack_gets_what_load_weights_gets"), std::string::npos) << r.output;
+  EXPECT_EQ(r.output.find("skipped"), std::string::npos) << r.output;
+}
+
 TEST_F(PackCli, SynthIsDeterministicAndRoutesSpread) {
   const std::string again = dir_.File("again.npz"), other = dir_.File("other.npz");
   ASSERT_EQ(testing::Run(testing::SprigCli() + " synth " + Quote(config_) + " -o " + Quote(again))

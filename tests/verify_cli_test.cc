@@ -287,7 +287,8 @@ with torch.no_grad():
 rename = dict(own_module.RENAME)
 try:
     load_weights(own_module.CONFIG, net.state_dict(),
-                 dict(rename, hidden_b='layers.0.leaves.fc2.bias'))
+                 dict(rename, hidden_b='layers.0.leaves.fc2.bias',
+                      out_b='layers.0.leaves.fc1.bias'))
     print('no error for a misshaped map'); sys.exit(1)
 except ValueError as e:
     print('refused:', e)

@@ -29,9 +29,18 @@ using Pattern = std::vector<Token>;
 // Placeholder values in the order the key names them: ("i", "12").
 using Captures = std::vector<std::pair<std::string, std::string>>;
 
+// Placeholders in one name: far more than any model's names have (a layer, an expert, a head),
+// and few enough that matching stays cheap and shallow (MatchFrom recurses once per token).
+constexpr size_t kMaxPlaceholders = 16;
+
 bool IsNameChar(char c, bool first) {
   return (c >= 'a' && c <= 'z') || (c >= 'A' && c <= 'Z') || c == '_' ||
          (!first && c >= '0' && c <= '9');
+}
+
+size_t PlaceholderCount(const Pattern& pattern) {
+  return static_cast<size_t>(
+      std::count_if(pattern.begin(), pattern.end(), [](const Token& t) { return t.placeholder; }));
 }
 
 // Splits `text` at its placeholders; `where` starts the error message ("map.json: entry ...").
@@ -72,6 +81,10 @@ Result<Pattern> ParsePattern(const std::string& text, const std::string& where) 
                                      " has two placeholders with nothing between them");
     }
     pattern.push_back({true, name});
+    if (PlaceholderCount(pattern) > kMaxPlaceholders) {
+      return Status::InvalidArgument(where + ": " + Quote(text) + " has more than " +
+                                     std::to_string(kMaxPlaceholders) + " placeholders");
+    }
     i = close;
   }
   if (!literal.empty()) pattern.push_back({false, std::move(literal)});
@@ -91,27 +104,41 @@ bool Contains(const std::vector<std::string>& names, const std::string& name) {
 }
 
 // Whether `name` matches `pattern` from token `t` and position `pos`, recording the
-// placeholders' values. A placeholder matches a decimal integer without leading zeros.
+// placeholders' values. A placeholder matches a decimal integer without leading zeros. Whether
+// the rest matches depends only on (t, pos), so each pair that failed is remembered in
+// `failed`: a hostile key with many placeholders then costs tokens × length² steps at most,
+// not an exponential number.
 bool MatchFrom(const Pattern& pattern, size_t t, const std::string& name, size_t pos,
-               Captures& captures) {
+               Captures& captures, std::vector<bool>& failed) {
   if (t == pattern.size()) return pos == name.size();
+  const size_t state = t * (name.size() + 1) + pos;
+  if (failed[state]) return false;
   const Token& token = pattern[t];
   if (!token.placeholder) {
-    if (name.compare(pos, token.text.size(), token.text) != 0) return false;
-    return MatchFrom(pattern, t + 1, name, pos + token.text.size(), captures);
+    if (name.compare(pos, token.text.size(), token.text) == 0 &&
+        MatchFrom(pattern, t + 1, name, pos + token.text.size(), captures, failed)) {
+      return true;
+    }
+    failed[state] = true;
+    return false;
   }
   size_t digits = 0;
   while (pos + digits < name.size() && name[pos + digits] >= '0' && name[pos + digits] <= '9') {
     ++digits;
   }
-  if (digits == 0) return false;
-  if (name[pos] == '0') digits = 1;  // "0" alone; "07" is not a number here
+  if (digits > 0 && name[pos] == '0') digits = 1;  // "0" alone; "07" is not a number here
   for (size_t n = digits; n > 0; --n) {
     captures.emplace_back(token.text, name.substr(pos, n));
-    if (MatchFrom(pattern, t + 1, name, pos + n, captures)) return true;
+    if (MatchFrom(pattern, t + 1, name, pos + n, captures, failed)) return true;
     captures.pop_back();
   }
+  failed[state] = true;
   return false;
+}
+
+bool Match(const Pattern& pattern, const std::string& name, Captures& captures) {
+  std::vector<bool> failed(pattern.size() * (name.size() + 1), false);
+  return MatchFrom(pattern, 0, name, 0, captures, failed);
 }
 
 std::string Substitute(const Pattern& pattern, const Captures& captures) {
@@ -695,7 +722,7 @@ Result<std::vector<MappedTensor>> Applier::Run() {
       claims.push_back({it->second, {}});
     for (size_t e : pattern_keys) {
       Captures captures;
-      if (MatchFrom(keys_[e], 0, name, 0, captures)) claims.push_back({e, std::move(captures)});
+      if (Match(keys_[e], name, captures)) claims.push_back({e, std::move(captures)});
     }
     if (claims.size() > 1) {
       return Status::InvalidArgument(mapping_.source + ": " + Name(name) + " matches both entry " +

@@ -10,7 +10,7 @@ HERE="$(cd "$(dirname "$0")" && pwd)"
 OUT="$HERE/corpus"
 TMP="$(mktemp -d)"
 trap 'rm -rf "$TMP"' EXIT
-mkdir -p "$OUT"/{model,npy,npz,safetensors,config}
+mkdir -p "$OUT"/{model,npy,npz,safetensors,config,mapping}
 
 # Small configs covering every layer kind, option and head; dimensions tiny so each packed model
 # stays a few pages.
@@ -37,6 +37,14 @@ config classifier '{"family":"transformer","vocab_size":8,"d_model":4,"n_heads":
 config hidden '{"family":"transformer","vocab_size":8,"d_model":2,"n_heads":1,"max_seq":4,
  "positions":"none","head":{"kind":"none"},"layers":[
  {"kind":"tree","mode":"leaf","depth":1,"leaf_width":2,"activation":"relu"}]}'
+
+# Mapping files of every form (docs/mapping.md), over the names mapping_fuzz.cc gives them.
+mapping() { printf '%s\n' "$2" > "$OUT/mapping/$1.json"; }
+mapping rename '{"h.{i}.w": "blocks.{i}.w", "bias": "b"}'
+mapping transpose '{"h.{i}.w": {"to": "t.{i}", "transpose": true}, "bias": {"to": "b", "transpose": false}}'
+mapping stack '{"moe.{l}.experts.{e}.w1": {"stack": "layers.{l}.fc1", "over": "e", "transpose": true}}'
+mapping split_ranges '{"in_proj": {"split": {"q": [0, 4], "k": [4, 8], "v": [8, 12]}, "axis": 0}}'
+mapping split_equal '{"in_proj": {"split": ["a", "b"], "axis": -1, "transpose": true}, "7": {"split": ["x"], "axis": 2}}'
 
 dtypes=(f32 f16 bf16)
 i=0

@@ -111,8 +111,8 @@ Verb AddPack(CLI::App& app) {
   c->add_option("--dtype-dense", args->dtype_dense,
                 "storage type of every other weight (dense layers, attention, embeddings, "
                 "head); default --dtype");
-  // --rename is the option's first name, kept so that existing scripts work; it takes the same
-  // file (a file of plain renames is a mapping file).
+  // --rename is the option's older name, kept so that existing scripts work: a file of plain
+  // renames is a mapping file.
   c->add_option("--map,--rename", args->mapping,
                 "mapping file: JSON mapping the weights' tensor names to sprig's (rename by "
                 "pattern, transpose, stack, split; docs/mapping.md)");

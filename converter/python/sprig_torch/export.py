@@ -36,6 +36,7 @@ import numpy as np
 import torch
 
 from sprig_torch.layers import DenseFF, ExpertsFF, TreeFF
+from sprig_torch.mapping import read_mapping
 from sprig_torch.models import (Attention, LayerNorm, RMSNorm, StackModel, TransformerModel,
                                 build_model)
 
@@ -43,27 +44,24 @@ from sprig_torch.models import (Attention, LayerNorm, RMSNorm, StackModel, Trans
 _BIAS_STD = 0.05
 
 
-def weight_arrays(model, rename=None):
+def _mapping_arg(mapping, rename):
+    """`rename` is the older name of the `mapping` argument, kept so existing callers work."""
+    if mapping is not None and rename is not None:
+        raise ValueError("give the mapping once: rename is another name for mapping")
+    return read_mapping(mapping if mapping is not None else rename)
+
+
+def weight_arrays(model, mapping=None, *, rename=None):
     """The state dict as float32 NumPy arrays, keyed by our tensor names.
 
-    `rename` maps a name written in the file to our name (the direction of `sprig pack
-    --rename`): each of our tensors named as a value is written under its key instead.
+    `mapping` is a mapping file's content (a dict) or its path, in the direction of `sprig pack
+    --map` (their names -> ours); our tensors are then written under their names, each entry
+    undone: stacked tensors unstacked, split ones concatenated, transposed ones transposed back
+    (docs/mapping.md). `rename=` is a synonym of `mapping=`.
     """
     arrays = {name: t.detach().to(torch.float32).cpu().numpy()
               for name, t in model.state_dict().items()}
-    if not rename:
-        return arrays
-    theirs_for_ours = {}
-    for theirs, ours in rename.items():
-        if ours not in arrays:
-            raise ValueError(f"rename maps {theirs!r} to {ours!r}, which is not a tensor")
-        if ours in theirs_for_ours:
-            raise ValueError(f"rename maps two names to {ours!r}")
-        theirs_for_ours[ours] = theirs
-    out = {theirs_for_ours.get(name, name): a for name, a in arrays.items()}
-    if len(out) != len(arrays):
-        raise ValueError("rename makes two tensors share one name")
-    return out
+    return _mapping_arg(mapping, rename).invert(arrays)
 
 
 def _routed_layers(model):
@@ -101,29 +99,41 @@ def reference_arrays(model, inputs):
     return arrays
 
 
-def load_weights(config, state_dict, rename=None):
+def _as_array(value):
+    """A tensor or array as a NumPy array (bfloat16, which NumPy lacks, widened exactly to
+    float32: the reference model is float32 anyway)."""
+    if torch.is_tensor(value):
+        value = value.detach().cpu()
+        if value.dtype == torch.bfloat16:
+            value = value.to(torch.float32)
+        return value.numpy()
+    return np.asarray(value)
+
+
+def load_weights(config, state_dict, mapping=None, *, rename=None):
     """Builds the reference model for `config` and loads a trained model's weights into it.
 
     `state_dict` maps names to tensors or arrays, as the trained module's ``state_dict()``;
-    `rename` maps those names to ours (the same map ``sprig pack --rename`` takes). Every tensor
-    of the config must be given exactly once with its shape: a missing, extra or misshaped
-    tensor is a ValueError that names it.
+    `mapping` maps those names to ours: the mapping file ``sprig pack --map`` takes, as a dict
+    or a path (rename, transpose, stack, split; docs/mapping.md), applied as pack applies it.
+    Every tensor of the config must be given exactly once with its shape: a missing, extra or
+    misshaped tensor is a ValueError that names it and where it came from, as is every refusal
+    of the mapping. `rename=` is a synonym of `mapping=`.
     """
     model = build_model(config)
     ours = model.state_dict()
-    rename = rename or {}
+    mapped = _mapping_arg(mapping, rename).apply(
+        {name: _as_array(value) for name, value in state_dict.items()})
     loaded = {}
-    for name, value in state_dict.items():
-        target = rename.get(name, name)
+    for target, (value, origin) in mapped.items():
+        shown = repr(target) + (f" ({origin})" if origin else "")
         if target not in ours:
-            raise ValueError(f"tensor {name!r} (as {target!r}) is not a tensor of this config; "
-                             f"expected one of {sorted(ours)}")
-        if target in loaded:
-            raise ValueError(f"two tensors map to {target!r}")
-        t = torch.as_tensor(np.asarray(value.detach().cpu() if torch.is_tensor(value) else value))
+            raise ValueError(f"tensor {shown} is not a tensor of this config; expected one of "
+                             f"{sorted(ours)}")
+        t = torch.as_tensor(np.ascontiguousarray(value))
         if tuple(t.shape) != tuple(ours[target].shape):
-            raise ValueError(f"tensor {name!r} has shape {list(t.shape)}, expected "
-                             f"{list(ours[target].shape)} for {target!r}")
+            raise ValueError(f"tensor {shown} has shape {list(t.shape)}, expected "
+                             f"{list(ours[target].shape)}")
         loaded[target] = t.to(ours[target].dtype)
     missing = sorted(set(ours) - set(loaded))
     if missing:
@@ -146,17 +156,19 @@ def check_outputs(reference, expected, rtol=1e-4, atol_rms=1e-4):
         row = int(np.unravel_index(np.argmax(err), err.shape)[0])
         raise ValueError(f"the trained module's outputs differ from the reference model's in "
                          f"{int(bad.sum())} values (max abs error {float(err.max()):.3g} at row "
-                         f"{row}): the config or the rename map does not describe the module")
+                         f"{row}): the config or the mapping does not describe the module")
 
 
-def export(model, out_dir, inputs, *, config=None, rename=None, expected_outputs=None):
+def export(model, out_dir, inputs, *, config=None, mapping=None, rename=None,
+           expected_outputs=None):
     """Writes config.json, weights.npz and reference.npz for `model` into `out_dir`.
 
-    `config` overrides the written config (default: the model's own); `rename` is as in
-    `weight_arrays`. `expected_outputs`, when given, are the trained module's own hard-mode
-    outputs on `inputs`; they must agree with the reference model's (check_outputs) or nothing
-    is written. Returns the paths written.
+    `config` overrides the written config (default: the model's own); `mapping` (or its synonym
+    `rename`) is as in `weight_arrays`. `expected_outputs`, when given, are the trained module's
+    own hard-mode outputs on `inputs`; they must agree with the reference model's (check_outputs)
+    or nothing is written. Returns the paths written.
     """
+    mapping = _mapping_arg(mapping, rename)
     references = reference_arrays(model, inputs)
     if expected_outputs is not None:
         check_outputs(references["outputs"], expected_outputs)
@@ -166,7 +178,7 @@ def export(model, out_dir, inputs, *, config=None, rename=None, expected_outputs
     with open(paths["config.json"], "w", encoding="utf-8") as f:
         json.dump(model.config if config is None else config, f, indent=2)
         f.write("\n")
-    np.savez(paths["weights.npz"], **weight_arrays(model, rename))
+    np.savez(paths["weights.npz"], **weight_arrays(model, mapping))
     np.savez(paths["reference.npz"], **references)
     return paths
 
