@@ -10,7 +10,9 @@
 // mapping file stacks each expert's tensors (`sprig pack --map`). Each case must verify with
 // routes required at f32 (every route agreeing) and at f16 (every disagreement explained by
 // rounding); a config that misdescribes the module (another scoring, renormalising or not) must
-// fail verify.
+// fail verify. The Python exporter's load_weights and weight_arrays take the same mapping file:
+// the reference module it builds must match the torch.nn module, and the arrays it writes back
+// must be the module's own.
 #include <gtest/gtest.h>
 
 #include <cstdio>
@@ -64,6 +66,13 @@ TEST_P(ExpertsTorchNn, VerifiesAtF32AndF16) {
                         Quote(ref + "/weights.npz") + " -o " + Quote(dir.File("plain.sprig")));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("layers.0.router.weight"), std::string::npos) << r.output;
+  // The Python exporter takes the same mapping file both ways.
+  r = testing::Run(
+      "PYTHONPATH=" + Quote(std::string(SPRIG_SOURCE_DIR) + "/converter/python") + " " +
+      testing::Python() + " " +
+      Quote(std::string(SPRIG_SOURCE_DIR) + "/tests/python/experts_torch_reference.py") +
+      " exporter " + Quote(ref));
+  EXPECT_EQ(r.exit_code, 0) << r.output;
   for (const std::string dtype : {"f32", "f16"}) {
     const std::string model = dir.File(dtype + ".sprig");
     r = Pack(ref, ref + "/config.json", model, dtype);

@@ -1,6 +1,12 @@
 """Mixture-of-experts layers written as common MoE training code writes them, for `sprig verify`.
 
     experts_torch_reference.py CASE DIR     # CASE: one of CASES below, or "list"
+    experts_torch_reference.py exporter DIR # sprig's Python exporter on what CASE DIR holds
+
+The second form is the one use of sprig here (PYTHONPATH=converter/python): the exporter's
+`load_weights` with the same mapping file must rebuild a reference module whose outputs and
+routes match the torch.nn module's (`check_outputs`), and `weight_arrays` with that file must
+give back the module's own arrays, each under its own name, unchanged.
 
 Nothing of sprig builds or runs these models. Each is a torch.nn.Module in the form MoE training
 code uses: a router `nn.Linear(d, E, bias=False)`, experts as an `nn.ModuleList` of small MLP
@@ -217,8 +223,35 @@ def write_case(name, out):
                 "margin_norms.layer0": norms.astype(f32), "layer_inputs.layer0": x.numpy()})
 
 
+def check_exporter(out):
+    from sprig_torch.export import check_outputs, load_weights, weight_arrays
+
+    with open(os.path.join(out, "config.json"), encoding="utf-8") as f:
+        config = json.load(f)
+    mapping = os.path.join(out, "mapping.json")
+    weights = dict(np.load(os.path.join(out, "weights.npz")))
+    ref = np.load(os.path.join(out, "reference.npz"))
+    model = load_weights(config, weights, mapping).double()
+    with torch.no_grad():
+        y, routes, _ = model(torch.from_numpy(ref["inputs"]).double(), hard=True,
+                             return_routes=True)
+    check_outputs(y.numpy(), ref["outputs"])
+    if not np.array_equal(routes[0].numpy(), ref["routes.layer0"]):
+        raise SystemExit("the exporter's reference module routes differently from the module")
+    back = weight_arrays(model.float(), mapping)
+    if sorted(back) != sorted(weights):
+        raise SystemExit(f"weight_arrays names {sorted(set(back) ^ set(weights))} differ")
+    for name, a in weights.items():
+        if not np.array_equal(back[name], a):
+            raise SystemExit(f"weight_arrays changed {name}")
+    print(json.dumps({"tensors": len(weights), "max_abs_error":
+                      float(np.abs(y.numpy() - ref["outputs"]).max())}))
+
+
 if __name__ == "__main__":
     if sys.argv[1] == "list":
         print("\n".join(CASES))
+    elif sys.argv[1] == "exporter":
+        check_exporter(sys.argv[2])
     else:
         write_case(sys.argv[1], sys.argv[2])
