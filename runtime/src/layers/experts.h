@@ -31,8 +31,8 @@ class ExpertsLayer final : public FeedForward {
   // under softmax scoring); writes indices and mixing weights in descending weight order, ties
   // to the lower index.
   void Choose(const kernels::KernelTable& k, float* logits, int32_t* chosen, float* weights) const;
-  // Adds the shared experts to rows [first, first + count) of y: y += g(x) * sum_s shared_s(x),
-  // `shared` holding each shared expert's output, [shared_experts, count, out].
+  // Adds the shared experts to the `count` rows of y: y += g(x) * sum_s shared_s(x), `shared`
+  // holding each shared expert's output on x, [shared_experts, count, out].
   void AddShared(const Exec& exec, const float* x, size_t count, const float* shared,
                  float* y) const;
   static constexpr size_t kMaxExpertsOnStack = 256;
