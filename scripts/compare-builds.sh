@@ -14,7 +14,8 @@ inputs, byte for byte:
 
   models   the sample models samples/lm/tree and samples/lm/dense (their weights.npz), and
            synthesized models covering every layer kind (dense gated and ungated, leaf tree,
-           path tree, experts; relu, gelu, gelu_tanh, silu; with and without biases) in stacks
+           path tree, experts with each router scoring and with shared experts; relu, gelu,
+           gelu_tanh, silu; with and without biases) in stacks
            and transformers (learned, rope and no positions; layernorm and rmsnorm; lm,
            classifier and none heads; grouped key/value heads; attention biases)
   synth    `sprig synth CONFIG --seed 7` by both programs: the weights must be identical
@@ -144,6 +145,14 @@ model stack-experts '{"family":"stack","name":"experts","input_dim":24,"layers":
   {"kind":"experts","experts":6,"top_k":6,"width":5,"activation":"gelu","out":24},
   {"kind":"experts","experts":8,"top_k":3,"width":12,"activation":"gelu_tanh","gated":true,
    "bias":false,"out":7}]}'
+model stack-experts-variants '{"family":"stack","name":"experts variants","input_dim":24,"layers":[
+  {"kind":"experts","experts":6,"top_k":2,"width":8,"activation":"silu","gated":true,
+   "router_scoring":"sigmoid","shared_experts":1,"shared_gate":true,"out":24},
+  {"kind":"experts","experts":5,"top_k":2,"width":8,"activation":"gelu",
+   "router_scoring":"sigmoid","renormalize":false,"shared_experts":2,"shared_width":6,"out":24},
+  {"kind":"experts","experts":4,"top_k":3,"width":6,"activation":"relu","bias":false,
+   "router_scoring":"softmax_chosen","shared_experts":1,"shared_width":5,"shared_gate":true,
+   "out":7}]}'
 model stack-all-kinds '{"family":"stack","name":"all kinds","input_dim":24,"layers":[
   {"kind":"dense","width":40,"activation":"gelu","out":24},
   {"kind":"tree","mode":"leaf","depth":3,"leaf_width":8,"activation":"relu","out":19},

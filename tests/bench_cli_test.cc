@@ -234,6 +234,24 @@ TEST_F(BenchCli, FlopsFollowTheCostFormulas) {
                    static_cast<double>(twin) / static_cast<double>(dense0));
 }
 
+// An experts layer with shared experts: the model runs the router, k experts, every shared
+// expert and the gate's dot product (2·in); its dense twin holds every routed and every shared
+// unit, W = 4·8 + 2·6 (model/flops.h), and no router or gate.
+TEST_F(BenchCli, DenseTwinOfSharedExpertsHoldsTheirUnits) {
+  const std::string model = testing::PackSynthesized(
+      *dir_, "shared",
+      R"({"family":"stack","input_dim":16,"layers":[{"kind":"experts","experts":4,"top_k":2,)"
+      R"("width":8,"activation":"silu","router_scoring":"sigmoid","shared_experts":2,)"
+      R"("shared_width":6,"shared_gate":true,"out":10}]})");
+  const json r = Bench(Quote(model) + " --repeat 1 --rows 8 --batch 8", "shared");
+  ASSERT_TRUE(r.is_object());
+  const uint64_t flops = 2 * 4 * 16 + 2 * (2 * 8 * (16 + 10)) + 2 * (2 * 6 * (16 + 10)) + 2 * 16;
+  const uint64_t twin = 2 * (4 * 8 + 2 * 6) * (16 + 10);
+  EXPECT_EQ(r["sides"]["model"]["flops"][0]["total"], flops);
+  EXPECT_EQ(r["sides"]["model"]["flops"][0]["ffn_if_dense"], twin);
+  EXPECT_EQ(r["sides"]["baseline"]["flops"][0]["total"], twin);
+}
+
 TEST_F(BenchCli, TransformerReportsPrefillAndDecode) {
   const json r =
       Bench(Quote(*transformer_) + " --repeat 2 --prompt-tokens 12 --decode-tokens 10 --cold", "t");

@@ -80,17 +80,29 @@ TEST(HeaderConfig, ContradictoryBiasFlagsAreRefused) {
             "attn_bias_q/k/v/o flag is");
 }
 
-// A post-norm model's file says format version 2, so a version-1 reader refuses it instead of
-// running its blocks as pre-norm; any other model stays version 1 (schema/README.md).
-TEST(HeaderConfig, PostNormFilesAreFormatVersionTwo) {
+// A post-norm model's file, and one with a router scored otherwise than by softmax, says format
+// version 2, so a version-1 reader refuses it instead of running its blocks as pre-norm or its
+// router as softmax; any other model stays version 1 (schema/README.md).
+TEST(HeaderConfig, FilesAVersionOneReaderWouldMisreadAreFormatVersionTwo) {
   testing::TempDir dir;
   const std::string base = R"({"family":"transformer","vocab_size":20,"d_model":8,"n_heads":2,
-    "max_seq":4,"layers":[{"kind":"dense","width":4}],)";
-  for (const auto& [fields, version] :
-       {std::pair<std::string, uint32_t>{R"("norm_position":"post"})", 2},
-        {R"("norm_position":"pre","final_norm":false,"embed_norm":true,"attn_bias":["q"]})", 1}}) {
-    const std::string path =
-        testing::PackSynthesized(dir, "m" + std::to_string(version), base + fields);
+    "max_seq":4,)";
+  const std::string dense = R"("layers":[{"kind":"dense","width":4}])";
+  const std::string experts = R"("layers":[{"kind":"experts","experts":2,"top_k":1,"width":4,)";
+  const std::pair<std::string, uint32_t> cases[] = {
+      {R"("norm_position":"post",)" + dense + "}", 2},
+      {R"("norm_position":"pre","final_norm":false,"embed_norm":true,"attn_bias":["q"],)" + dense +
+           "}",
+       1},
+      {experts + R"("router_scoring":"sigmoid"}]})", 2},
+      {experts + R"("router_scoring":"softmax_chosen"}]})", 2},
+      {experts + R"("shared_experts":1,"shared_gate":true}]})", 1},
+  };
+  int n = 0;
+  for (const auto& [fields, version] : cases) {
+    // Named with append: GCC 12 warns (wrongly, -Wrestrict) on `"m" + std::to_string(...)`.
+    const std::string name = std::string("m").append(std::to_string(n++));
+    const std::string path = testing::PackSynthesized(dir, name, base + fields);
     const std::string bytes = testing::ReadFile(path);
     ASSERT_GE(bytes.size(), 12u);
     uint32_t stored = 0;

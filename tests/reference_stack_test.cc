@@ -45,6 +45,19 @@ std::vector<std::string> Layers() {
   v.push_back(R"({"kind":"experts","experts":6,"top_k":6,"width":4,"activation":"gelu"})");
   v.push_back(
       R"({"kind":"experts","experts":8,"top_k":3,"width":4,"activation":"silu","renormalize":false,"bias":false})");
+  // Router scorings and shared experts (with and without their gate, gated MLPs, no biases).
+  v.push_back(
+      R"({"kind":"experts","experts":7,"top_k":2,"width":5,"activation":"gelu","router_scoring":"sigmoid"})");
+  v.push_back(
+      R"({"kind":"experts","experts":7,"top_k":3,"width":5,"activation":"relu","router_scoring":"sigmoid","renormalize":false})");
+  v.push_back(
+      R"({"kind":"experts","experts":6,"top_k":2,"width":4,"activation":"silu","router_scoring":"softmax_chosen"})");
+  v.push_back(
+      R"({"kind":"experts","experts":5,"top_k":2,"width":4,"activation":"gelu","shared_experts":1})");
+  v.push_back(
+      R"({"kind":"experts","experts":5,"top_k":1,"width":4,"activation":"silu","gated":true,"router_scoring":"sigmoid","shared_experts":2,"shared_width":6,"shared_gate":true})");
+  v.push_back(
+      R"({"kind":"experts","experts":4,"top_k":2,"width":3,"activation":"relu","bias":false,"router_scoring":"softmax_chosen","shared_experts":3,"shared_width":2,"shared_gate":true})");
   return v;
 }
 

@@ -27,6 +27,11 @@ const char* const kExperts =
     R"({"kind":"experts","experts":4,"top_k":2,"width":8,"activation":"silu","gated":true})";
 const char* const kExpertsNoBias =
     R"({"kind":"experts","experts":5,"top_k":1,"width":6,"activation":"gelu_tanh","bias":false})";
+// Router scorings other than softmax, with shared experts (gated and not).
+const char* const kExpertsSigmoidShared =
+    R"({"kind":"experts","experts":6,"top_k":2,"width":6,"activation":"silu","gated":true,"router_scoring":"sigmoid","shared_experts":1,"shared_width":10,"shared_gate":true})";
+const char* const kExpertsChosenShared =
+    R"({"kind":"experts","experts":4,"top_k":2,"width":8,"activation":"gelu","router_scoring":"softmax_chosen","shared_experts":2})";
 
 struct Case {
   const char* name;
@@ -139,6 +144,11 @@ std::vector<Case> Cases() {
            R"("n_kv_heads":1,"norm":"layernorm","positions":"learned","causal":true,"norm_position":"post","embed_norm":true,"head":{"kind":"none"})",
        {kPath, kExpertsNoBias},
        23},
+      {"rms_rope_gqa_causal_lm_moe_variants",
+       base +
+           R"("n_kv_heads":2,"norm":"rmsnorm","positions":"rope","causal":true,"head":{"kind":"lm"})",
+       {kExpertsSigmoidShared, kExpertsChosenShared},
+       28},
   };
 }
 

@@ -27,7 +27,8 @@ using testing::Quote;
 // to be all hot (depth 2: no record set), experts (gated). The first layer's f32 records
 // (2368 bytes: 64-byte parts of 1040 + 80 + 1040 + 52 bytes) leave page-aware placement a gap
 // of 1728 bytes per two records, far over 2%, so they are packed back to back; at f32 the
-// stack has record sections of both placements (checked below).
+// stack has record sections of both placements (checked below). The last layer's shared experts
+// and gate are stored in the hot section.
 constexpr const char* kStack = R"({"family":"stack","input_dim":13,"layers":[
  {"kind":"experts","experts":6,"top_k":2,"width":20,"activation":"relu","out":13},
  {"kind":"dense","width":12,"activation":"relu","out":11},
@@ -36,7 +37,9 @@ constexpr const char* kStack = R"({"family":"stack","input_dim":13,"layers":[
  {"kind":"tree","mode":"path","depth":9,"activation":"gelu_tanh","out":14},
  {"kind":"experts","experts":5,"top_k":2,"width":6,"activation":"silu","gated":true,"out":7},
  {"kind":"tree","mode":"path","depth":2,"activation":"relu","out":6},
- {"kind":"tree","mode":"leaf","depth":2,"leaf_width":3,"activation":"relu","bias":false,"out":4}]})";
+ {"kind":"tree","mode":"leaf","depth":2,"leaf_width":3,"activation":"relu","bias":false,"out":4},
+ {"kind":"experts","experts":3,"top_k":1,"width":4,"activation":"gelu","router_scoring":"sigmoid",
+  "shared_experts":2,"shared_width":3,"shared_gate":true,"out":5}]})";
 
 constexpr const char* kTransformer = R"({"family":"transformer","vocab_size":64,"d_model":16,
  "n_heads":2,"max_seq":16,"head":{"kind":"lm"},"positions":"rope","norm":"rmsnorm","layers":[

@@ -2,7 +2,8 @@
 // Debian python3-torch): it passes on the exporter's own output for every layer kind and both
 // families, fails (exit 1) with a precise report when a weight is perturbed or a routing node's
 // bias is nudged after export, explains a flip that float16 rounding causes (IEEE 754 half
-// precision, rounded by numpy.float16), and refuses references that do not fit the model (exit 2).
+// precision, rounded by numpy.float16) in a tree and in an experts layer scored on its logits,
+// and refuses references that do not fit the model (exit 2).
 // Then against references written without the exporter (tests/python/external_reference.py): one
 // of plain NumPy with inputs and outputs only, and one of a torch.nn model with names of its own.
 #include <gtest/gtest.h>
@@ -173,6 +174,25 @@ TEST(Verify, ExplainsAFlipCausedByHalfPrecisionRounding) {
   EXPECT_EQ(f32.exit_code, 0) << f32.text;
   EXPECT_EQ(f32.report["routing"][0]["agreement_percent"], 100.0) << f32.text;
   ExpectOneExplainedFlip(Verify(Pack(ref, dir.File("f16.sprig"), "f16"), ref));
+}
+
+// An experts layer scored on its logits (sigmoid, softmax_chosen) reports margins on the logits;
+// a row built so that float16 router weights swap its two best experts is explained by them.
+TEST(Verify, ExplainsAnExpertsFlipOnLogitMargins) {
+  for (const char* scoring : {"sigmoid", "softmax_chosen"}) {
+    testing::TempDir dir;
+    const std::string ref =
+        Export(dir,
+               std::string(R"({"family":"stack","input_dim":24,"layers":[{"kind":"experts",)") +
+                   R"("experts":3,"top_k":1,"width":4,"activation":"gelu","router_scoring":")" +
+                   scoring + R"(","out":6}]})",
+               10);
+    Case("experts-flip " + Quote(ref));
+    const Verified f32 = Verify(Pack(ref, dir.File("f32.sprig"), "f32"), ref);
+    EXPECT_EQ(f32.exit_code, 0) << f32.text;
+    EXPECT_EQ(f32.report["routing"][0]["agreement_percent"], 100.0) << f32.text;
+    ExpectOneExplainedFlip(Verify(Pack(ref, dir.File("f16.sprig"), "f16"), ref));
+  }
 }
 
 // int8 has no relative error bound: verify bounds the logit's change by (s / 2)·||x||_1 from the

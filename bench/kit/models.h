@@ -1,8 +1,10 @@
 // The models a routed model is measured against, built in memory from its config.
 //
 //   dense twin  every routed layer made dense, with all of its units together as the hidden
-//               width (leaves × leaf_width, the path tree's neurons, experts × width), the same
-//               in/out, activation, gating and biases; everything else unchanged.
+//               width (leaves × leaf_width, the path tree's neurons, experts × width plus
+//               shared_experts × shared_width), the same in/out, activation, gating and biases;
+//               everything else unchanged. The router and the shared experts' sigmoid gate have
+//               no counterpart in it (model/flops.h counts the twin the same way).
 //   floor       every routed layer made a dense layer of width 1, which costs next to nothing:
 //               time(baseline) / time(floor) is the whole-model bound, the speedup if the routed
 //               layers were free (Amdahl's law with the dense parts as the serial fraction).

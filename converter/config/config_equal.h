@@ -10,7 +10,9 @@ inline bool operator==(const LayerConfig& a, const LayerConfig& b) {
   return a.kind == b.kind && a.mode == b.mode && a.width == b.width && a.depth == b.depth &&
          a.leaf_width == b.leaf_width && a.experts == b.experts && a.top_k == b.top_k &&
          a.renormalize == b.renormalize && a.activation == b.activation && a.gated == b.gated &&
-         a.bias == b.bias && a.in == b.in && a.out == b.out;
+         a.bias == b.bias && a.in == b.in && a.out == b.out &&
+         a.router_scoring == b.router_scoring && a.shared_experts == b.shared_experts &&
+         a.shared_width == b.shared_width && a.shared_gate == b.shared_gate;
 }
 
 inline bool operator==(const HeadConfig& a, const HeadConfig& b) {

@@ -27,8 +27,9 @@ const std::vector<const char*> kTransformerFields = {
     "tie_embeddings", "attn_bias", "norm_position", "final_norm", "embed_norm",
     "tokenizer",      "head"};
 const std::vector<const char*> kAllLayerFields = {
-    "kind",        "mode",       "width", "depth", "leaf_width", "experts", "top_k",
-    "renormalize", "activation", "gated", "bias",  "in",         "out"};
+    "kind",  "mode",           "width",          "depth",        "leaf_width", "experts",
+    "top_k", "renormalize",    "activation",     "gated",        "bias",       "in",
+    "out",   "router_scoring", "shared_experts", "shared_width", "shared_gate"};
 
 std::vector<const char*> Concat(std::initializer_list<std::vector<const char*>> lists) {
   std::vector<const char*> out;
@@ -52,8 +53,9 @@ std::vector<const char*> LayerFields(LayerKind kind, TreeMode mode) {
       }
       return {"kind", "mode", "depth", "activation", "bias", "in", "out"};
     case LayerKind::kExperts:
-      return {"kind",  "experts",     "top_k", "width", "activation",
-              "gated", "renormalize", "bias",  "in",    "out"};
+      return {"kind",           "experts",        "top_k",        "width",      "activation",
+              "gated",          "renormalize",    "bias",         "in",         "out",
+              "router_scoring", "shared_experts", "shared_width", "shared_gate"};
   }
   return {};
 }
@@ -68,6 +70,38 @@ std::string LayerDescription(LayerKind kind, TreeMode mode) {
       return "an experts layer";
   }
   return "this layer";
+}
+
+// An experts layer's router scoring and shared experts (after `width` and `renormalize`).
+Status ParseExpertsVariant(const FieldReader& r, LayerConfig* layer) {
+  SPRIG_RETURN_IF_ERROR(
+      r.Enum<RouterScoring>("router_scoring",
+                            {Choice(RouterScoring::kSoftmax), Choice(RouterScoring::kSigmoid),
+                             Choice(RouterScoring::kSoftmaxChosen)},
+                            RouterScoring::kSoftmax, &layer->router_scoring));
+  // softmax_chosen is normalised over the chosen experts by definition; renormalize: false would
+  // ask for something it cannot do.
+  if (layer->router_scoring == RouterScoring::kSoftmaxChosen && !layer->renormalize) {
+    return r.Error(r.FieldName("renormalize") +
+                   " is false but router_scoring softmax_chosen always normalises over the "
+                   "chosen experts; leave renormalize out or set it true");
+  }
+  SPRIG_RETURN_IF_ERROR(r.Uint("shared_experts", 0, kMaxExperts, 0, &layer->shared_experts));
+  if (layer->shared_experts == 0) {
+    // Without shared experts their width and gate would describe nothing.
+    for (const char* key : {"shared_width", "shared_gate"}) {
+      if (r.Has(key)) {
+        return r.Error(r.FieldName(key) + " is given but " + r.FieldName("shared_experts") +
+                       " is 0 or absent; it applies only to a layer with shared experts");
+      }
+    }
+    layer->shared_width = 0;
+    layer->shared_gate = false;
+    return Status::Ok();
+  }
+  SPRIG_RETURN_IF_ERROR(
+      r.Uint("shared_width", 1, kMaxDimension, layer->width, &layer->shared_width));
+  return r.Bool("shared_gate", false, &layer->shared_gate);
 }
 
 // The fields of one kind of layer; `in` and `out` are left to the caller.
@@ -102,6 +136,7 @@ Status ParseLayerBody(const FieldReader& r, LayerConfig* layer) {
       SPRIG_RETURN_IF_ERROR(r.Uint("width", 1, max_dim, std::nullopt, &layer->width));
       SPRIG_RETURN_IF_ERROR(r.Bool("gated", false, &layer->gated));
       SPRIG_RETURN_IF_ERROR(r.Bool("renormalize", true, &layer->renormalize));
+      SPRIG_RETURN_IF_ERROR(ParseExpertsVariant(r, layer));
       break;
   }
   return Status::Ok();

@@ -7,6 +7,7 @@
 //   tree depth, leaf mode                                      0 .. 20   (at most 2^20 leaves)
 //   tree depth, path mode                                      0 .. 22   (2^23 - 1 neurons)
 //   experts per layer                                          1 .. 4096
+//   shared experts per layer (shared_width is a dimension)     0 .. 4096
 //   layers                                                     1 .. 1024
 //   elements of any one tensor                                 at most 2^36
 //   elements of all tensors together                           at most 2^38

@@ -47,6 +47,12 @@ ojson LayerToJson(const ModelConfig& config, const LayerConfig& layer) {
       j["activation"] = ToString(layer.activation);
       j["gated"] = layer.gated;
       j["renormalize"] = layer.renormalize;
+      j["router_scoring"] = ToString(layer.router_scoring);
+      j["shared_experts"] = layer.shared_experts;
+      if (layer.shared_experts > 0) {
+        j["shared_width"] = layer.shared_width;
+        j["shared_gate"] = layer.shared_gate;
+      }
       break;
   }
   j["bias"] = layer.bias;

@@ -23,6 +23,9 @@ config stack_kinds '{"family":"stack","input_dim":4,"name":"kinds","description"
 config stack_gated '{"family":"stack","input_dim":3,"layers":[
  {"kind":"tree","mode":"leaf","depth":1,"leaf_width":2,"activation":"silu","gated":true,"bias":false,"out":2},
  {"kind":"experts","experts":2,"top_k":1,"width":2,"renormalize":false,"out":2}]}'
+config stack_experts_variants '{"family":"stack","input_dim":3,"layers":[
+ {"kind":"experts","experts":3,"top_k":2,"width":2,"router_scoring":"sigmoid","shared_experts":2,"shared_width":1,"shared_gate":true,"out":3},
+ {"kind":"experts","experts":2,"top_k":1,"width":2,"gated":true,"router_scoring":"softmax_chosen","shared_experts":1,"bias":false,"out":2}]}'
 config lm_rope '{"family":"transformer","vocab_size":16,"d_model":4,"n_heads":2,"n_kv_heads":1,
  "max_seq":8,"norm":"rmsnorm","positions":"rope","causal":true,"tie_embeddings":true,
 "head":{"kind":"lm"},"layers":[

@@ -270,10 +270,16 @@ def check(data, weights, folder):
     rule(all(slots.values()), "header.scalars_written",
          "found no scalar accessors in the generated code")
     cfg = h.Config()
+    # Version 2 when a version-1 reader would misread the model: post-norm blocks, or an experts
+    # layer whose router scoring is not softmax (0).
     post_norm = cfg.NormPosition() == 1
-    rule(version == (2 if post_norm else 1), "preamble.version",
-         f"format version {version} for a {'post' if post_norm else 'pre'}-norm model, expected "
-         f"{2 if post_norm else 1}")
+    other_scoring = any(cfg.Layers(i).Kind() == LayerKind.Experts and cfg.Layers(i).RouterScoring() != 0
+                        for i in range(cfg.LayersLength()))
+    expected_version = 2 if post_norm or other_scoring else 1
+    rule(version == expected_version, "preamble.version",
+         f"format version {version} for a {'post' if post_norm else 'pre'}-norm model "
+         f"{'with' if other_scoring else 'without'} a non-softmax router, expected "
+         f"{expected_version}")
     check_scalars_written(cfg, slots["Config"], "config")
     for i in range(cfg.LayersLength()):
         check_scalars_written(cfg.Layers(i), slots["Layer"], f"config.layers[{i}]")

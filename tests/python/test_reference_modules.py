@@ -246,6 +246,90 @@ class ExpertsTest(unittest.TestCase):
         p = torch.zeros(3, 40, dtype=torch.float64)
         self.assertTrue(torch.equal(stable_top_k(p, 5), torch.arange(5).expand(3, 5)))
 
+    def test_sigmoid_and_softmax_chosen_match_a_per_row_loop(self):
+        cases = [("sigmoid", True), ("sigmoid", False), ("softmax_chosen", True)]
+        for scoring, renormalize in cases:
+            layer = self._experts(experts=6, top_k=3, router_scoring=scoring,
+                                  renormalize=renormalize, gated=False, activation="gelu")
+            x = _rows(30, 5, seed=6)
+            y, routes, margins = layer(x, hard=True, return_routes=True)
+            w, xs = _np(layer), x.numpy()
+            for r in range(30):
+                logits = w["router.weight"] @ xs[r] + w["router.bias"]
+                order = sorted(range(6), key=lambda j: -logits[j])
+                chosen = order[:3]
+                self.assertEqual(routes[r].tolist(), chosen, scoring)
+                # The margin is on the logits for both forms.
+                self.assertAlmostEqual(float(margins[r]), logits[order[2]] - logits[order[3]])
+                if scoring == "sigmoid":
+                    s = 1.0 / (1.0 + np.exp(-logits[chosen]))
+                    weights = s / s.sum() if renormalize else s
+                else:
+                    e = np.exp(logits[chosen] - logits[chosen].max())
+                    weights = e / e.sum()
+                expected = sum(wj * _np_mlp(xs[r], w, "experts.", j, "gelu", False)
+                               for wj, j in zip(weights, chosen))
+                np.testing.assert_allclose(y[r].detach().numpy(), expected, rtol=1e-10,
+                                           atol=1e-12)
+
+    def test_softmax_renormalized_equals_softmax_over_chosen(self):
+        # docs/model-semantics.md: the same function, to rounding.
+        a = self._experts(experts=7, top_k=3)
+        b = self._experts(experts=7, top_k=3, router_scoring="softmax_chosen")
+        b.load_state_dict(a.state_dict())
+        x = _rows(40, 5, seed=7)
+        ya, ra, _ = a(x, hard=True, return_routes=True)
+        yb, rb, _ = b(x, hard=True, return_routes=True)
+        self.assertTrue(torch.equal(ra, rb))
+        torch.testing.assert_close(ya, yb, rtol=1e-12, atol=1e-12)
+
+    def test_shared_experts_with_and_without_gate(self):
+        for gate in (False, True):
+            layer = self._experts(shared_experts=2, shared_width=4, shared_gate=gate)
+            routed = self._experts()
+            routed.load_state_dict({k: v for k, v in layer.state_dict().items()
+                                    if not k.startswith("shared")})
+            x = _rows(20, 5, seed=8)
+            w, xs = _np(layer), x.numpy()
+            y = layer(x, hard=True).detach().numpy()
+            base = routed(x, hard=True).detach().numpy()
+            for r in range(20):
+                shared = sum(_np_mlp(xs[r], w, "shared.", s, "silu", True) for s in range(2))
+                g = 1.0
+                if gate:
+                    g = 1.0 / (1.0 + np.exp(-(w["shared_gate.weight"][0] @ xs[r] +
+                                              w["shared_gate.bias"][0])))
+                np.testing.assert_allclose(y[r], base[r] + g * shared, rtol=1e-10, atol=1e-12)
+
+    def test_margin_bounds_bound_a_router_perturbation(self):
+        # A relative change eta on every router weight moves the margin by at most
+        # eta * scale (to first order; eta is small enough for the second order to vanish).
+        for scoring in ("softmax", "sigmoid", "softmax_chosen"):
+            layer = self._experts(experts=6, top_k=2, router_scoring=scoring)
+            x = _rows(50, 5, seed=9)
+            _, routes, margins = layer(x, hard=True, return_routes=True)
+            scales, _ = layer.margin_bounds(x)
+            eta = 1e-7
+            gen = torch.Generator().manual_seed(1)
+            with torch.no_grad():
+                for t in (layer.router.weight, layer.router.bias):
+                    sign = torch.randint(0, 2, t.shape, generator=gen, dtype=torch.float64)
+                    t.mul_(1 + eta * (2 * sign - 1))
+            _, routes2, margins2 = layer(x, hard=True, return_routes=True)
+            self.assertTrue(torch.equal(routes, routes2))
+            moved = (margins2 - margins).abs()
+            self.assertTrue((moved <= eta * scales * 1.001 + 1e-15).all(), scoring)
+            self.assertTrue((moved > 0).any(), scoring)
+
+    def test_variant_fields_are_checked(self):
+        for bad, message in (({"router_scoring": "tanh"}, "router_scoring"),
+                             ({"router_scoring": "softmax_chosen", "renormalize": False},
+                              "softmax_chosen"),
+                             ({"shared_gate": True}, "shared_experts"),
+                             ({"shared_experts": -1}, "shared_experts")):
+            with self.assertRaisesRegex(ValueError, message):
+                self._experts(**bad)
+
 
 def _transformer(**overrides):
     cfg = {"family": "transformer", "vocab_size": 40, "d_model": 16, "n_heads": 4,

@@ -14,6 +14,12 @@
         the same with the root's weights rounded as int8 storage does (schema/README.md: scale
         s = max|w| / 127 in float32, q = numpy.rint(w / s)); also prints the proven bound on
         that logit's change, (s / 2) * ||x||_1.
+    verify_cases.py experts-flip DIR
+        the same for stack layer 0, an experts layer with top_k 1 scored on its logits (sigmoid
+        or softmax_chosen): a row is moved along router.weight[a] - router.weight[b], a and b
+        its two highest-scored experts, until the exact gap l_a - l_b is -d/2, d being how far
+        rounding the router's weights to IEEE half precision moves that gap; float16 storage
+        then chooses the other expert, a flip that rounding explains.
 
 NumPy and PyTorch from Debian (python3-numpy, python3-torch).
 """
@@ -79,12 +85,44 @@ def f16_flip(d, layer, rounding="f16"):
                       "int8_bound": s / 2 * float(np.abs(x.astype(np.float32)).sum())}))
 
 
+def experts_flip(d):
+    model = load_model(d)
+    ref_path = os.path.join(d, "reference.npz")
+    inputs = np.load(ref_path)["inputs"].astype(np.float64)
+    weights = np.load(os.path.join(d, "weights.npz"))
+    w = weights["layers.0.router.weight"].astype(np.float64)
+    b = weights["layers.0.router.bias"].astype(np.float64)
+    w16 = to_f16(w)
+    for row in range(inputs.shape[0]):
+        x = inputs[row]
+        a, c = np.argsort(-(w @ x + b), kind="stable")[:2]
+        u = w[a] - w[c]
+        drift = float((w16[a] - w16[c] - u) @ x)
+        if abs(drift) < 1e-5:
+            continue
+        # The gap is linear in x: move x along u so that the exact gap is -drift / 2.
+        moved = x + (-drift / 2 - (u @ x + b[a] - b[c])) / (u @ u) * u
+        logits = w @ moved + b
+        others = np.delete(logits, [a, c])
+        # a and c must still be the two highest, so the flip is between them alone.
+        if others.size and others.max() > min(logits[a], logits[c]) - 1e-2:
+            continue
+        inputs[0] = moved
+        np.savez(ref_path, **reference_arrays(model, inputs.astype(np.float32)))
+        print(json.dumps({"row": row, "exact_gap": float(u @ moved + b[a] - b[c]),
+                          "stored_gap": float((w16[a] - w16[c]) @ moved + b[a] - b[c])}))
+        return
+    raise ValueError("no row of the reference can be moved to a half-precision flip")
+
+
 def main():
     command, d = sys.argv[1], sys.argv[2]
     if command == "perturb":
         perturb(d, sys.argv[3], sys.argv[4], float(sys.argv[5]))
     elif command == "f16-flip":
         f16_flip(d, int(sys.argv[3]))
+    elif command == "experts-flip":
+        experts_flip(d)
     elif command == "i8-flip":
         f16_flip(d, int(sys.argv[3]), "i8")
     else:

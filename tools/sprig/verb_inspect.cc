@@ -68,6 +68,24 @@ std::string DescribeBlocks(const ModelConfig& c) {
   return s;
 }
 
+// An experts layer's router scoring and shared experts when they differ from the defaults
+// (softmax, none): "sigmoid router; 2 shared experts of width 32 with a sigmoid gate", or "".
+std::string ExpertsDetail(const LayerConfig& l) {
+  if (l.kind != LayerKind::kExperts) return "";
+  std::string s;
+  if (l.router_scoring != RouterScoring::kSoftmax) {
+    s += std::string(ToString(l.router_scoring)) + " router";
+  }
+  if (l.shared_experts > 0) {
+    char buf[120];
+    std::snprintf(buf, sizeof(buf), "%s%u shared expert%s of width %u%s", s.empty() ? "" : "; ",
+                  l.shared_experts, l.shared_experts == 1 ? "" : "s", l.shared_width,
+                  l.shared_gate ? " with a sigmoid gate" : "");
+    s += buf;
+  }
+  return s;
+}
+
 uint64_t PagesPerRecord(uint64_t size) {
   return (size + format::kPageSize - 1) / format::kPageSize;
 }
@@ -92,13 +110,15 @@ nlohmann::json ToJson(const Model& m) {
   }
   const ModelConfig& c = m.config();
   for (const LayerDescription& layer : m.layer_descriptions()) {
-    nlohmann::json l = {{"index", layer.index},
-                        {"kind", ToString(layer.config.kind)},
-                        {"description", Describe(layer.config)},
-                        {"params", layer.params},
-                        {"flops_per_token", layer.flops_per_token},
-                        {"dense_width", layer.dense_width},
-                        {"dense_flops_per_token", layer.dense_flops_per_token}};
+    const std::string detail = ExpertsDetail(layer.config);
+    nlohmann::json l = {
+        {"index", layer.index},
+        {"kind", ToString(layer.config.kind)},
+        {"description", Describe(layer.config) + (detail.empty() ? "" : "; ") + detail},
+        {"params", layer.params},
+        {"flops_per_token", layer.flops_per_token},
+        {"dense_width", layer.dense_width},
+        {"dense_flops_per_token", layer.dense_flops_per_token}};
     if (layer.record_set >= 0) {
       l["records"] = {{"count", layer.records},
                       {"record_size", layer.record_size},
@@ -183,6 +203,9 @@ void PrintHuman(const Model& f, bool list_tensors) {
                 Describe(layer.config).c_str(), HumanCount(layer.params).c_str(),
                 HumanCount(layer.flops_per_token).c_str(),
                 HumanCount(layer.dense_flops_per_token).c_str(), ratio);
+    // Too long for the kind column: a line of its own, like the records line.
+    const std::string detail = ExpertsDetail(layer.config);
+    if (!detail.empty()) std::printf("      %s\n", detail.c_str());
     if (layer.record_set >= 0) {
       std::printf("      %llu records of %s (%llu pages each)\n",
                   static_cast<unsigned long long>(layer.records),

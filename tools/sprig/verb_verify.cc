@@ -212,7 +212,9 @@ std::string DecidingTensor(const ModelConfig& c, size_t layer) {
 // of the d ancestors of the reference's leaf (leaf and path mode number them alike), so the
 // largest scale among them bounds its s. A router's margin p_a - p_b moves by at most
 // (p_a + p_b + |p_a - p_b|)·max_j |Δlogit_j| <= 2·max_j |Δlogit_j| (first order, as in
-// sprig_torch's margin_bounds), with max_j over every expert. `x` is the reference's layer input.
+// sprig_torch's margin_bounds), with max_j over every expert; a logit margin l_a - l_b (sigmoid
+// and softmax_chosen scoring) moves by at most the same 2·max_j |Δlogit_j|, exactly. `x` is the
+// reference's layer input.
 std::vector<double> Int8MarginBounds(const Model& model, const RoutedLayer& r,
                                      const std::vector<double>& x, uint64_t rows) {
   const ModelConfig& c = model.config();

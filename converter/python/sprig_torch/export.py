@@ -218,6 +218,12 @@ def _init_module(m, gen):
     elif isinstance(m, ExpertsFF):
         _init_linear(m.router, m.in_features, gen)
         _init_mlps(m.experts, gen)
+        # Initialised after the routed experts, so a config without shared experts draws the
+        # same weights as before they existed.
+        if m.shared is not None:
+            _init_mlps(m.shared, gen)
+        if m.shared_gate is not None:
+            _init_linear(m.shared_gate, m.in_features, gen)
     elif isinstance(m, Attention):
         for lin in (m.q, m.k, m.v, m.o):
             _init_linear(lin, lin.in_features, gen)

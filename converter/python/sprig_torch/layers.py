@@ -45,8 +45,10 @@ _KIND_KEYS = {
     "dense": _COMMON_KEYS | {"width", "gated"},
     ("tree", "leaf"): _COMMON_KEYS | {"mode", "depth", "leaf_width", "gated"},
     ("tree", "path"): _COMMON_KEYS | {"mode", "depth"},
-    "experts": _COMMON_KEYS | {"experts", "top_k", "width", "renormalize", "gated"},
+    "experts": _COMMON_KEYS | {"experts", "top_k", "width", "renormalize", "gated",
+                               "router_scoring", "shared_experts", "shared_width", "shared_gate"},
 }
+ROUTER_SCORINGS = ("softmax", "sigmoid", "softmax_chosen")
 
 
 def activation(name):
@@ -103,6 +105,23 @@ def normalize_layer_config(cfg, in_features=None, out_features=None):
         if out["top_k"] > out["experts"]:
             raise ValueError(f"top_k ({out['top_k']}) must not exceed experts ({out['experts']})")
         out["renormalize"] = _flag(cfg, "renormalize", True)
+        out["router_scoring"] = cfg.get("router_scoring", "softmax")
+        if out["router_scoring"] not in ROUTER_SCORINGS:
+            raise ValueError(f"router_scoring must be one of {list(ROUTER_SCORINGS)}, "
+                             f"got {out['router_scoring']!r}")
+        if out["router_scoring"] == "softmax_chosen" and not out["renormalize"]:
+            raise ValueError("renormalize is false but router_scoring softmax_chosen always "
+                             "normalises over the chosen experts")
+        out["shared_experts"] = _positive_int(
+            {"shared_experts": cfg.get("shared_experts", 0)}, "shared_experts", minimum=0)
+        if out["shared_experts"]:
+            out["shared_width"] = _positive_int(
+                {"shared_width": cfg.get("shared_width", out["width"])}, "shared_width")
+            out["shared_gate"] = _flag(cfg, "shared_gate", False)
+        else:
+            given = sorted({"shared_width", "shared_gate"} & set(cfg))
+            if given:
+                raise ValueError(f"layer fields {given} apply only to a layer with shared_experts")
     out["activation"] = cfg.get("activation", "relu")
     activation(out["activation"])  # validates the name
     if key != ("tree", "path"):
@@ -340,63 +359,102 @@ def stable_top_k(p, k):
 
 
 class ExpertsFF(_FeedForward):
-    """`kind: experts`: p = softmax(router x); the top_k experts S (ties: lower index first);
-    weights p_j / sum_S p (renormalize, the default) or p_j; y = sum_S w_j * expert_j(x).
+    """`kind: experts`: router logits l = router x, scored by `router_scoring`:
 
-    Routes: [rows, top_k] expert indices in descending weight order. Margins: p of the k-th
-    choice minus p of the best unchosen expert (inf when top_k == experts).
+    * softmax (the default): p = softmax(l); the top_k experts S by p (ties: lower index
+      first); weights p_j / sum_S p (renormalize, the default) or p_j;
+    * sigmoid: s = sigmoid(l); S the top_k by l (the same as by s); weights s_j / sum_S s
+      (renormalize) or s_j;
+    * softmax_chosen: S the top_k by l; weights softmax over the chosen logits l_S.
+
+    y = sum_S w_j * expert_j(x), plus, with `shared_experts` S' > 0, g(x) * sum_s shared_s(x),
+    g(x) = sigmoid(shared_gate x + b) with `shared_gate`, else 1.
+
+    Routes: [rows, top_k] expert indices in descending weight order. Margins: how far the k-th
+    choice was ahead of the best unchosen expert (inf when top_k == experts), on the quantity
+    the choice is made on: p_a - p_b under softmax, l_a - l_b under sigmoid and softmax_chosen.
     """
 
     def __init__(self, cfg):
         super().__init__(cfg)
         self.top_k = cfg["top_k"]
         self.renormalize = cfg["renormalize"]
+        self.scoring = cfg["router_scoring"]
         self.router = nn.Linear(self.in_features, cfg["experts"], bias=cfg["bias"])
         self.experts = _MlpBank(cfg["experts"], self.in_features, cfg["width"],
                                 self.out_features, cfg["gated"], cfg["bias"])
+        self.shared = None
+        self.shared_gate = None
+        if cfg["shared_experts"]:
+            self.shared = _MlpBank(cfg["shared_experts"], self.in_features, cfg["shared_width"],
+                                   self.out_features, cfg["gated"], cfg["bias"])
+            if cfg["shared_gate"]:
+                self.shared_gate = _linear_params(1, self.in_features, cfg["bias"])
+
+    def _scores(self, x):
+        """The values the choice ranks: softmax probabilities, or the logits themselves (the
+        sigmoid is monotonic, so ranking sigmoid scores and ranking logits choose alike)."""
+        logits = self.router(x)
+        return (torch.softmax(logits, dim=1) if self.scoring == "softmax" else logits), logits
 
     def _forward(self, x, hard):
         # Training form equals the hard form (see the module docstring).
-        p = torch.softmax(self.router(x), dim=1)
-        chosen = stable_top_k(p, self.top_k)
-        w = p.gather(1, chosen)
-        if self.renormalize:
-            w = w / w.sum(dim=1, keepdim=True)
+        scores, logits = self._scores(x)
+        chosen = stable_top_k(scores, self.top_k)
+        if self.scoring == "softmax_chosen":
+            w = torch.softmax(logits.gather(1, chosen), dim=1)
+        else:
+            w = (scores if self.scoring == "softmax" else torch.sigmoid(logits)).gather(1, chosen)
+            if self.renormalize:
+                w = w / w.sum(dim=1, keepdim=True)
         y = torch.einsum("rk,rko->ro", w, self.experts.forward_selected(x, chosen, self.act))
-        return y, chosen, self._margins(p)
+        if self.shared is not None:
+            shared = self.shared.forward_all(x, self.act).sum(dim=1)
+            if self.shared_gate is not None:
+                g = torch.sigmoid(_add_bias(x @ self.shared_gate.weight.t(), self.shared_gate.bias))
+                shared = g * shared
+            y = y + shared
+        return y, chosen, self._margins(scores)
 
     def margin_bounds(self, x):
-        """Sensitivity of the margin p_a - p_b (a: the k-th choice, b: the best unchosen) to error.
+        """Sensitivity of the margin (a: the k-th choice, b: the best unchosen) to error.
 
         A relative error eta on the router weights moves logit j by at most eta * S_j with
-        S_j = sum_i |w_ji x_i| + |b_j|; to first order the margin then moves by at most
-        eta * (p_a S_a + p_b S_b + (p_a - p_b) max_j S_j), which is `scales`. `norms` is the same
-        expression with ||w_j||_2 in place of S_j, for an input error ||dx||_2. Zero when
-        top_k == experts.
+        S_j = sum_i |w_ji x_i| + |b_j|. Under softmax the margin p_a - p_b then moves, to first
+        order, by at most eta * (p_a S_a + p_b S_b + (p_a - p_b) max_j S_j); on logits
+        (sigmoid, softmax_chosen) l_a - l_b moves by at most eta * (S_a + S_b). That is
+        `scales`; `norms` is the same expression with ||w_j||_2 in place of S_j, for an input
+        error ||dx||_2. Zero when top_k == experts.
         """
         rows = x.shape[0]
         if self.top_k == self.router.weight.shape[0]:
             zero = torch.zeros(rows, dtype=x.dtype, device=x.device)
             return zero, zero.clone()
-        p = torch.softmax(self.router(x), dim=1)
-        order = torch.sort(p, dim=1, descending=True, stable=True).indices
+        scores, _ = self._scores(x)
+        order = torch.sort(scores, dim=1, descending=True, stable=True).indices
         a, b = order[:, self.top_k - 1], order[:, self.top_k]
-        pa, pb = p.gather(1, a[:, None])[:, 0], p.gather(1, b[:, None])[:, 0]
         s = x.abs() @ self.router.weight.abs().t()
         if self.router.bias is not None:
             s = s + self.router.bias.abs()
         n = self.router.weight.norm(dim=1).expand(rows, -1)
 
+        def pick(t, i):
+            return t.gather(1, i[:, None])[:, 0]
+
+        if self.scoring != "softmax":
+            return pick(s, a) + pick(s, b), pick(n, a) + pick(n, b)
+        pa, pb = pick(scores, a), pick(scores, b)
+
         def bound(t):
-            ta, tb = t.gather(1, a[:, None])[:, 0], t.gather(1, b[:, None])[:, 0]
-            return pa * ta + pb * tb + (pa - pb) * t.max(1).values
+            return pa * pick(t, a) + pb * pick(t, b) + (pa - pb) * t.max(1).values
 
         return bound(s), bound(n)
 
-    def _margins(self, p):
-        if self.top_k == p.shape[1]:
-            return torch.full((p.shape[0],), math.inf, dtype=p.dtype, device=p.device)
-        top = torch.sort(p, dim=1, descending=True).values
+    def _margins(self, scores):
+        if self.top_k == scores.shape[1]:
+            return torch.full((scores.shape[0],), math.inf, dtype=scores.dtype,
+                              device=scores.device)
+        top = torch.sort(scores, dim=1, descending=True).values
         return top[:, self.top_k - 1] - top[:, self.top_k]
 
 

@@ -23,6 +23,10 @@ enum class Pool : uint8_t { kMean, kFirst, kLast };
 // Where a transformer block normalises: kPre, x + Attn(Norm1(x)) then x + FFN(Norm2(x)); kPost,
 // Norm1(x + Attn(x)) then Norm2(x + FFN(x)) (docs/model-semantics.md).
 enum class NormPosition : uint8_t { kPre, kPost };
+// How an experts layer scores its router logits: kSoftmax chooses on softmax probabilities over
+// all experts; kSigmoid on each expert's sigmoid; kSoftmaxChosen on the logits, weighting the
+// chosen experts by a softmax over their logits only (docs/model-semantics.md).
+enum class RouterScoring : uint8_t { kSoftmax, kSigmoid, kSoftmaxChosen };
 // kByte: one token per UTF-8 byte (vocab_size 256). kSentencePiece: a SentencePiece vocabulary
 // (BPE or unigram) stored in the file's tokenizer section.
 enum class Tokenizer : uint8_t { kNone, kByte, kSentencePiece };
@@ -40,6 +44,10 @@ struct LayerConfig {
   uint32_t experts = 0;             // experts only
   uint32_t top_k = 0;               // experts only
   bool renormalize = true;          // experts only
+  RouterScoring router_scoring = RouterScoring::kSoftmax;  // experts only
+  uint32_t shared_experts = 0;  // experts only: always-on experts added to the routed mixture
+  uint32_t shared_width = 0;    // experts only: hidden units per shared expert (0 when none)
+  bool shared_gate = false;     // experts only: shared experts scaled by sigmoid(gate · x + b)
   Activation activation = Activation::kRelu;
   bool gated = false;  // dense, tree leaf, experts
   bool bias = true;    // false: the layer has no bias tensors (all biases zero)
@@ -109,6 +117,7 @@ SPRIG_API const char* ToString(Positions v);
 SPRIG_API const char* ToString(HeadKind v);
 SPRIG_API const char* ToString(Pool v);
 SPRIG_API const char* ToString(NormPosition v);
+SPRIG_API const char* ToString(RouterScoring v);
 SPRIG_API const char* ToString(Tokenizer v);
 SPRIG_API const char* ToString(DType v);
 

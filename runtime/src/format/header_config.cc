@@ -33,6 +33,10 @@ flatbuffers::Offset<fb::Config> BuildConfig(flatbuffers::FlatBufferBuilder& b,
     lb.add_bias(l.bias);
     lb.add_in_dim(l.in);
     lb.add_out_dim(l.out);
+    lb.add_router_scoring(static_cast<fb::RouterScoring>(l.router_scoring));
+    lb.add_shared_experts(l.shared_experts);
+    lb.add_shared_width(l.shared_width);
+    lb.add_shared_gate(l.shared_gate);
     layers.push_back(lb.Finish());
   }
   auto layers_vec = b.CreateVector(layers);
@@ -76,7 +80,13 @@ flatbuffers::Offset<fb::Config> BuildConfig(flatbuffers::FlatBufferBuilder& b,
 }
 
 uint32_t RequiredFormatVersion(const ModelConfig& config) {
-  return config.norm_position == NormPosition::kPost ? 2 : 1;
+  if (config.norm_position == NormPosition::kPost) return 2;
+  for (const LayerConfig& layer : config.layers) {
+    if (layer.kind == LayerKind::kExperts && layer.router_scoring != RouterScoring::kSoftmax) {
+      return 2;
+    }
+  }
+  return 1;
 }
 
 Result<ModelConfig> ReadConfig(const fb::Config& f, const std::string& source) {
@@ -106,6 +116,12 @@ Result<ModelConfig> ReadConfig(const fb::Config& f, const std::string& source) {
       l.bias = fl->bias();
       l.in = fl->in_dim();
       l.out = fl->out_dim();
+      if (!MapEnum(fl->router_scoring(), RouterScoring::kSoftmaxChosen, &l.router_scoring)) {
+        return bad("layers.router_scoring");
+      }
+      l.shared_experts = fl->shared_experts();
+      l.shared_width = fl->shared_width();
+      l.shared_gate = fl->shared_gate();
       c.layers.push_back(l);
     }
   }

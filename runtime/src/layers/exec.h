@@ -26,6 +26,7 @@ struct Scratch {
   std::vector<float> group_input;    // RunGroups: one group's input rows, gathered, [rows, in]
   std::vector<float> group_output;   // RunGroups: one group's output rows, [rows, out]
   std::vector<float> expert_output;  // ExpertsLayer, single row: one expert's output, [out]
+  std::vector<float> shared_output;  // ExpertsLayer, single row: shared experts' outputs, [S, out]
   // The transformer's attention: one (sequence, head)'s scores over the positions it sees.
   std::vector<float> attention_scores;
 };

@@ -1,6 +1,7 @@
 #include "layers/experts.h"
 
 #include <algorithm>
+#include <cmath>
 #include <numeric>
 #include <vector>
 
@@ -17,14 +18,37 @@ ExpertsLayer::ExpertsLayer(const Binder& binder, const LayerConfig& config)
   router_ = binder.Matrix(binder.Find("router.weight"));
   router_bias_ = binder.FloatRow(binder.Find("router.bias"), 0);
   experts_ = FindMlp(binder, "experts");
+  if (config.shared_experts > 0) shared_ = FindMlp(binder, "shared");
+  if (config.shared_gate) {
+    shared_gate_ = binder.Matrix(binder.Find("shared_gate.weight"));
+    const float* bias = binder.FloatRow(binder.Find("shared_gate.bias"), 0);
+    shared_gate_bias_ = bias ? *bias : 0.0f;
+  }
 }
+
+namespace {
+
+float Sigmoid(float z) {
+  return 1.0f / (1.0f + std::exp(-z));
+}
+
+// log(sigmoid(z)) without overflow or underflow for any finite z.
+float LogSigmoid(float z) {
+  return z >= 0.0f ? -std::log1p(std::exp(-z)) : z - std::log1p(std::exp(z));
+}
+
+}  // namespace
 
 void ExpertsLayer::Choose(const kernels::KernelTable& k, float* logits, int32_t* chosen,
                           float* weights) const {
   const size_t experts = config_.experts, top = config_.top_k;
-  k.softmax(logits, experts);
-  const float* probability = logits;
-  // Stable selection: higher probability first, the lower index on ties.
+  const RouterScoring scoring = config_.router_scoring;
+  // Sigmoid and softmax_chosen choose on the logits themselves: the sigmoid is monotonic, so
+  // the choice is the same as on sigmoid scores, but sigmoids of large logits round to 1.0f and
+  // would tie where the logits do not.
+  if (scoring == RouterScoring::kSoftmax) k.softmax(logits, experts);
+  const float* score = logits;
+  // Stable selection: higher score first, the lower index on ties.
   int32_t on_stack[kMaxExpertsOnStack];
   std::vector<int32_t> on_heap;
   int32_t* ranked = on_stack;
@@ -34,13 +58,65 @@ void ExpertsLayer::Choose(const kernels::KernelTable& k, float* logits, int32_t*
   }
   std::iota(ranked, ranked + experts, 0);
   std::partial_sort(ranked, ranked + top, ranked + experts, [&](int32_t a, int32_t b) {
-    return probability[a] > probability[b] || (probability[a] == probability[b] && a < b);
+    return score[a] > score[b] || (score[a] == score[b] && a < b);
   });
-  float sum = 0.0f;
-  for (size_t j = 0; j < top; ++j) sum += probability[ranked[j]];
-  for (size_t j = 0; j < top; ++j) {
-    chosen[j] = ranked[j];
-    weights[j] = config_.renormalize ? probability[ranked[j]] / sum : probability[ranked[j]];
+  for (size_t j = 0; j < top; ++j) chosen[j] = ranked[j];
+  switch (scoring) {
+    case RouterScoring::kSoftmax: {
+      float sum = 0.0f;
+      for (size_t j = 0; j < top; ++j) sum += score[ranked[j]];
+      for (size_t j = 0; j < top; ++j) {
+        weights[j] = config_.renormalize ? score[ranked[j]] / sum : score[ranked[j]];
+      }
+      return;
+    }
+    case RouterScoring::kSigmoid:
+      if (!config_.renormalize) {
+        for (size_t j = 0; j < top; ++j) weights[j] = Sigmoid(score[ranked[j]]);
+        return;
+      }
+      // s_j / sum s is the softmax of log s over the chosen experts; in that form no sigmoid
+      // underflows to 0 and the sum can never be 0.
+      for (size_t j = 0; j < top; ++j) weights[j] = LogSigmoid(score[ranked[j]]);
+      k.softmax(weights, top);
+      return;
+    case RouterScoring::kSoftmaxChosen:
+      for (size_t j = 0; j < top; ++j) weights[j] = score[ranked[j]];
+      k.softmax(weights, top);
+      return;
+  }
+}
+
+void ExpertsLayer::AddShared(const Exec& exec, const float* x, size_t count, const float* shared,
+                             float* y) const {
+  const size_t experts = config_.shared_experts;
+  std::vector<float> gate(count, 1.0f);
+  if (shared_gate_.data != nullptr) {
+    const float* bias = config_.bias ? &shared_gate_bias_ : nullptr;
+    if (exec.single_row) {
+      kernels::Gemv(*exec.k, shared_gate_.type, shared_gate_.data, x, bias, gate.data(), 1, in_,
+                    shared_gate_.scales);
+    } else {
+      kernels::GemmRows(*exec.k, shared_gate_.type, shared_gate_.data, x, bias, gate.data(), count,
+                        1, in_, shared_gate_.scales);
+    }
+    for (float& g : gate) g = Sigmoid(g);
+  }
+  // Per row: the shared experts summed in index order, then scaled by the gate, then added, as
+  // the reference does (y = routed + g * sum_s shared_s), whatever the batch or thread count.
+  std::vector<float> sum(out_);
+  for (size_t r = 0; r < count; ++r) {
+    std::copy(shared + r * out_, shared + (r + 1) * out_, sum.begin());
+    for (size_t s = 1; s < experts; ++s) {
+      const float* part = shared + (s * count + r) * out_;
+      for (size_t o = 0; o < out_; ++o) sum[o] += part[o];
+    }
+    float* y_row = y + r * out_;
+    if (shared_gate_.data != nullptr) {
+      for (size_t o = 0; o < out_; ++o) y_row[o] += gate[r] * sum[o];
+    } else {
+      for (size_t o = 0; o < out_; ++o) y_row[o] += sum[o];
+    }
   }
 }
 
@@ -76,6 +152,14 @@ void ExpertsLayer::Forward(const Exec& exec, const float* x, size_t rows, float*
       MlpForward(k, Expert(chosen[j]), x, 1, expert_output, scratch, true);
       for (size_t o = 0; o < out_; ++o) y[o] += weights[j] * expert_output[o];
     }
+    if (config_.shared_experts > 0) {
+      const size_t size = config_.shared_experts * out_;
+      if (scratch.shared_output.size() < size) scratch.shared_output.resize(size);
+      for (size_t s = 0; s < config_.shared_experts; ++s) {
+        MlpForward(k, Shared(s), x, 1, scratch.shared_output.data() + s * out_, scratch, true);
+      }
+      AddShared(exec, x, 1, scratch.shared_output.data(), y);
+    }
     return;
   }
   // Group (row, slot) pairs by expert; each expert runs once over its rows. Outputs go to
@@ -99,6 +183,21 @@ void ExpertsLayer::Forward(const Exec& exec, const float* x, size_t rows, float*
       for (size_t o = 0; o < out_; ++o) y_row[o] += weight * expert_row[o];
     }
   }
+  if (config_.shared_experts == 0) return;
+  // Shared experts run over every row, split as a dense layer splits its rows (chunks that are
+  // multiples of kRowChunk, see exec.h), one task per (shared expert, chunk).
+  const size_t shared = config_.shared_experts;
+  const size_t per_thread = (rows + exec.threads() - 1) / exec.threads();
+  const size_t chunk = (per_thread + kRowChunk - 1) / kRowChunk * kRowChunk;
+  const size_t chunks = (rows + chunk - 1) / chunk;
+  std::vector<float> shared_output(shared * rows * out_);
+  exec.ParallelFor(shared * chunks, [&](size_t task, Scratch& scratch) {
+    const size_t s = task / chunks, first = (task % chunks) * chunk;
+    const size_t count = std::min(chunk, rows - first);
+    MlpForward(k, Shared(s), x + first * in_, count,
+               shared_output.data() + (s * rows + first) * out_, scratch, false);
+  });
+  AddShared(exec, x, rows, shared_output.data(), y);
 }
 
 }  // namespace sprig::layers

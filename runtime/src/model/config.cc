@@ -77,6 +77,18 @@ const char* ToString(HeadKind v) {
   return "?";
 }
 
+const char* ToString(RouterScoring v) {
+  switch (v) {
+    case RouterScoring::kSoftmax:
+      return "softmax";
+    case RouterScoring::kSigmoid:
+      return "sigmoid";
+    case RouterScoring::kSoftmaxChosen:
+      return "softmax_chosen";
+  }
+  return "?";
+}
+
 const char* ToString(Pool v) {
   switch (v) {
     case Pool::kMean:

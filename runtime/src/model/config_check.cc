@@ -14,6 +14,35 @@ Status CheckDim(uint64_t v, const std::string& where, bool allow_zero = false) {
   return Status::Ok();
 }
 
+// Router scoring and shared experts of an experts layer.
+Status CheckExpertsVariant(const LayerConfig& l, const std::string& where) {
+  if (static_cast<uint8_t>(l.router_scoring) >
+      static_cast<uint8_t>(RouterScoring::kSoftmaxChosen)) {
+    return Status::InvalidArgument(where +
+                                   ".router_scoring is not softmax, sigmoid or "
+                                   "softmax_chosen");
+  }
+  if (l.router_scoring == RouterScoring::kSoftmaxChosen && !l.renormalize) {
+    return Status::InvalidArgument(where +
+                                   ".renormalize is false, but router_scoring softmax_chosen "
+                                   "always normalises over the chosen experts");
+  }
+  if (l.shared_experts > kMaxExperts) {
+    return Status::InvalidArgument(where + ".shared_experts is " +
+                                   std::to_string(l.shared_experts) + ", expected 0.." +
+                                   std::to_string(kMaxExperts));
+  }
+  if (l.shared_experts == 0) {
+    if (l.shared_width != 0 || l.shared_gate) {
+      return Status::InvalidArgument(where +
+                                     ".shared_width or shared_gate is set but shared_experts "
+                                     "is 0");
+    }
+    return Status::Ok();
+  }
+  return CheckDim(l.shared_width, where + ".shared_width");
+}
+
 Status CheckLayer(const LayerConfig& l, const std::string& where) {
   SPRIG_RETURN_IF_ERROR(CheckDim(l.in, where + ".in"));
   SPRIG_RETURN_IF_ERROR(CheckDim(l.out, where + ".out"));
@@ -44,7 +73,8 @@ Status CheckLayer(const LayerConfig& l, const std::string& where) {
         return Status::InvalidArgument(where + ".top_k is " + std::to_string(l.top_k) +
                                        ", expected 1..experts (" + std::to_string(l.experts) + ")");
       }
-      return CheckDim(l.width, where + ".width");
+      SPRIG_RETURN_IF_ERROR(CheckDim(l.width, where + ".width"));
+      return CheckExpertsVariant(l, where);
   }
   return Status::InvalidArgument(where + ".kind is not dense, tree or experts");
 }

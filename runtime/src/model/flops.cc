@@ -43,9 +43,16 @@ LayerCost CostOf(const LayerConfig& l) {
       break;
     case LayerKind::kExperts:
       c.params = l.experts * (in + (l.bias ? 1 : 0)) +
-                 l.experts * MlpParams(l.width, in, out, l.gated, l.bias);
-      c.flops_per_token = 2 * l.experts * in + l.top_k * MlpFlops(l.width, in, out, l.gated);
-      c.dense_width = uint64_t{l.experts} * l.width;
+                 l.experts * MlpParams(l.width, in, out, l.gated, l.bias) +
+                 l.shared_experts * MlpParams(l.shared_width, in, out, l.gated, l.bias) +
+                 (l.shared_gate ? in + (l.bias ? 1 : 0) : 0);
+      // The router, the chosen experts, every shared expert and the shared gate's dot product.
+      c.flops_per_token = 2 * l.experts * in + l.top_k * MlpFlops(l.width, in, out, l.gated) +
+                          l.shared_experts * MlpFlops(l.shared_width, in, out, l.gated) +
+                          (l.shared_gate ? 2 * in : 0);
+      // The dense layer with equal units holds every routed and every shared expert's units;
+      // like the router, the shared gate has no counterpart in it.
+      c.dense_width = uint64_t{l.experts} * l.width + uint64_t{l.shared_experts} * l.shared_width;
       c.dense_flops_per_token = MlpFlops(c.dense_width, in, out, l.gated);
       return c;
   }

@@ -70,6 +70,15 @@ std::vector<TensorSpec> LayerTensors(const LayerConfig& layer, const std::string
       if (layer.bias) out.push_back({prefix + "router.bias", {layer.experts}, index, false});
       AddMlpTensors(out, prefix + "experts.", index, {layer.experts}, layer.width, in, outw,
                     layer.gated, layer.bias, true);
+      // Shared experts run on every row, so they live in the hot section, not in records.
+      if (layer.shared_experts > 0) {
+        AddMlpTensors(out, prefix + "shared.", index, {layer.shared_experts}, layer.shared_width,
+                      in, outw, layer.gated, layer.bias, false);
+      }
+      if (layer.shared_gate) {
+        out.push_back({prefix + "shared_gate.weight", {1, in}, index, false});
+        if (layer.bias) out.push_back({prefix + "shared_gate.bias", {1}, index, false});
+      }
       break;
   }
   return out;
