@@ -240,6 +240,14 @@ Status ParseSplit(const EntryParser& p, const json& split, MappingEntry& entry) 
   return Status::Ok();
 }
 
+// The names of ours an entry gives (patterns): a split's parts, or its one `to`.
+std::vector<std::string> OurNames(const MappingEntry& entry) {
+  if (entry.kind != MappingEntry::Kind::kSplit) return {entry.to};
+  std::vector<std::string> names;
+  for (const SplitPart& part : entry.parts) names.push_back(part.name);
+  return names;
+}
+
 Result<MappingEntry> ParseEntry(const std::string& source, const std::string& key,
                                 const json& value) {
   const EntryParser p{source, key};
@@ -311,13 +319,7 @@ Result<MappingEntry> ParseEntry(const std::string& source, const std::string& ke
     return p.Error("\"over\" is " + Quote(entry.over) + ", but the key has no {" + entry.over +
                    "} placeholder to number the parts by");
   }
-  std::vector<std::string> values;
-  if (entry.kind == MappingEntry::Kind::kSplit) {
-    for (const SplitPart& part : entry.parts) values.push_back(part.name);
-  } else {
-    values.push_back(entry.to);
-  }
-  for (const std::string& v : values) {
+  for (const std::string& v : OurNames(entry)) {
     SPRIG_ASSIGN_OR_RETURN(Pattern value_pattern, ParsePattern(v, p.where()));
     const std::vector<std::string> used = PlaceholdersOf(value_pattern);
     for (const std::string& name : used) {
@@ -356,14 +358,8 @@ Result<Mapping> ParseMapping(const std::string& json_text, const std::string& so
   std::map<std::string, std::string> producer;  // a literal name of ours → the entry giving it
   for (const auto& item : root.items()) {
     SPRIG_ASSIGN_OR_RETURN(MappingEntry entry, ParseEntry(source, item.key(), item.value()));
-    std::vector<std::string> names;
-    if (entry.kind == MappingEntry::Kind::kSplit) {
-      for (const SplitPart& part : entry.parts) names.push_back(part.name);
-    } else {
-      names.push_back(entry.to);
-    }
     // Names with placeholders can only be compared once the tensors are known (ApplyMapping).
-    for (const std::string& name : names) {
+    for (const std::string& name : OurNames(entry)) {
       if (name.find('{') != std::string::npos) continue;
       auto [it, inserted] = producer.emplace(name, entry.key);
       if (!inserted) {
