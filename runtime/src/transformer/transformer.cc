@@ -35,40 +35,76 @@ void RowToFloat(const kernels::KernelTable& k, const MatrixView& m, uint64_t row
   }
 }
 
-// y[rows, out] = x[rows, in] W^T + b. One row uses the matrix-vector kernel; batches are split
-// between threads in multiples of kRowChunk, so a row's result does not depend on the thread
-// count (see layers/exec.h).
 // A matrix-vector product is split between threads only when each gets at least this many
 // output rows; below that the hand-off costs more than it saves.
 constexpr size_t kMinRowsPerThread = 128;
 
-void Project(const Exec& e, const MatrixView& w, const float* bias, const float* x, size_t rows,
-             float* y) {
-  const size_t out = w.rows, in = w.cols;
+// y[rows, out] = x[rows, in] W^T + b for one weight matrix.
+struct Projection {
+  const MatrixView* weight;
+  const float* bias;  // may be null
+  float* y;
+};
+
+// The pieces one projection is split into between threads, and the rows or outputs per piece.
+// One row: the output rows are split (each output is its own dot product, computed the same way
+// whichever thread runs it). Batches: the rows are split in multiples of kRowChunk, so a row's
+// result does not depend on the thread count (see layers/exec.h).
+struct Split {
+  size_t pieces;
+  size_t per_piece;
+};
+
+Split SplitOf(const Exec& e, const MatrixView& w, size_t rows) {
   if (e.single_row || rows == 1) {
-    // One token: split the output rows between threads instead. Each output is its own dot
-    // product, computed the same way whichever thread runs it, so results do not depend on
-    // the thread count.
-    const size_t parts = out >= 2 * kMinRowsPerThread ? e.threads() : 1;
-    const size_t per_part = (out + parts - 1) / parts;
-    for (size_t r = 0; r < rows; ++r) {
-      e.ParallelFor(parts, [&](size_t p, layers::Scratch&) {
-        const size_t o0 = p * per_part;
-        if (o0 >= out) return;
-        const size_t n = std::min(per_part, out - o0);
-        kernels::Gemv(*e.k, w.type, w.row(o0), x + r * in, bias ? bias + o0 : nullptr,
-                      y + r * out + o0, n, in, w.row_scales(o0));
-      });
-    }
-    return;
+    const size_t pieces = w.rows >= 2 * kMinRowsPerThread ? e.threads() : 1;
+    return {pieces, (w.rows + pieces - 1) / pieces};
   }
   const size_t per_thread = (rows + e.threads() - 1) / e.threads();
   const size_t chunk = (per_thread + layers::kRowChunk - 1) / layers::kRowChunk * layers::kRowChunk;
-  const size_t tasks = (rows + chunk - 1) / chunk;
-  e.ParallelFor(tasks, [&](size_t t, layers::Scratch&) {
-    const size_t r0 = t * chunk, n = std::min(chunk, rows - r0);
-    kernels::GemmRows(*e.k, w.type, w.data, x + r0 * in, bias, y + r0 * out, n, out, in, w.scales);
+  return {(rows + chunk - 1) / chunk, chunk};
+}
+
+void RunPiece(const Exec& e, const Projection& p, const float* x, size_t rows, size_t piece,
+              size_t per_piece) {
+  const MatrixView& w = *p.weight;
+  const size_t out = w.rows, in = w.cols;
+  if (e.single_row || rows == 1) {
+    const size_t o0 = piece * per_piece;
+    if (o0 >= out) return;
+    const size_t n = std::min(per_piece, out - o0);
+    for (size_t r = 0; r < rows; ++r) {
+      kernels::Gemv(*e.k, w.type, w.row(o0), x + r * in, p.bias ? p.bias + o0 : nullptr,
+                    p.y + r * out + o0, n, in, w.row_scales(o0));
+    }
+    return;
+  }
+  const size_t r0 = piece * per_piece, n = std::min(per_piece, rows - r0);
+  kernels::GemmRows(*e.k, w.type, w.data, x + r0 * in, p.bias, p.y + r0 * out, n, out, in,
+                    w.scales);
+}
+
+// Every projection of the same input in one parallel job: the threads meet once, not once per
+// matrix (a block's queries, keys and values).
+template <size_t N>
+void Project(const Exec& e, const Projection (&projections)[N], const float* x, size_t rows) {
+  Split splits[N];
+  size_t tasks = 0;
+  for (size_t i = 0; i < N; ++i) {
+    splits[i] = SplitOf(e, *projections[i].weight, rows);
+    tasks += splits[i].pieces;
+  }
+  e.ParallelFor(tasks, [&](size_t task, layers::Scratch&) {
+    size_t i = 0;
+    while (task >= splits[i].pieces) task -= splits[i++].pieces;
+    RunPiece(e, projections[i], x, rows, task, splits[i].per_piece);
   });
+}
+
+void Project(const Exec& e, const MatrixView& w, const float* bias, const float* x, size_t rows,
+             float* y) {
+  const Projection one[] = {{&w, bias, y}};
+  Project(e, one, x, rows);
 }
 
 void Project(const Exec& e, const Linear& l, const float* x, size_t rows, float* y) {
@@ -199,13 +235,19 @@ void TransformerNetwork::Embed(const Exec& e, const int32_t* tokens, size_t rows
 void TransformerNetwork::NormRows(const Exec& e, const Norm& n, const float* x, size_t rows,
                                   float* y) const {
   const float eps = config_->norm_eps;
-  for (size_t r = 0; r < rows; ++r) {
-    if (config_->norm == NormKind::kLayerNorm) {
-      e.k->layer_norm(x + r * d_, n.weight, n.bias, eps, y + r * d_, d_);
-    } else {
-      e.k->rms_norm(x + r * d_, n.weight, eps, y + r * d_, d_);
+  // Each row is normalised on its own, so rows split between threads give the same result.
+  // kRowChunk rows per task: fewer would cost more in hand-offs than the norm itself.
+  const size_t tasks = (rows + layers::kRowChunk - 1) / layers::kRowChunk;
+  e.ParallelFor(tasks, [&](size_t task, layers::Scratch&) {
+    const size_t end = std::min(rows, (task + 1) * layers::kRowChunk);
+    for (size_t r = task * layers::kRowChunk; r < end; ++r) {
+      if (config_->norm == NormKind::kLayerNorm) {
+        e.k->layer_norm(x + r * d_, n.weight, n.bias, eps, y + r * d_, d_);
+      } else {
+        e.k->rms_norm(x + r * d_, n.weight, eps, y + r * d_, d_);
+      }
     }
-  }
+  });
 }
 
 void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, const int32_t* tokens,
@@ -250,9 +292,10 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
       NormRows(e, b.norm1, x, rows, ws.normed.data());
       attn_in = ws.normed.data();
     }
-    Project(e, b.q, attn_in, rows, ws.q.data());
-    Project(e, b.k, attn_in, rows, ws.k.data());
-    Project(e, b.v, attn_in, rows, ws.v.data());
+    const Projection qkv[] = {{&b.q.weight, b.q.bias, ws.q.data()},
+                              {&b.k.weight, b.k.bias, ws.k.data()},
+                              {&b.v.weight, b.v.bias, ws.v.data()}};
+    Project(e, qkv, attn_in, rows);
     if (rope) {
       for (size_t r = 0; r < rows; ++r) {
         const float* cs = ws.rope_cos.data() + (r % length) * hd / 2;
