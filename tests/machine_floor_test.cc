@@ -51,7 +51,7 @@ std::shared_ptr<const Model> Pack(const testing::TempDir& dir, const std::string
 
 Machine FixedMachine(double bytes_per_second, double madds_per_second) {
   Machine m;
-  m.bandwidth.push_back({1024, 1024, bytes_per_second, "fixed"});
+  m.bandwidth.push_back({1024, 1024, bytes_per_second, "all_finite", "fixed"});
   m.multiply_adds_per_second = madds_per_second;
   return m;
 }
@@ -138,6 +138,15 @@ TEST(MachineFloor, WholeModelIsTheSumOfItsParts) {
   f.CallParts(routes, 0, 2, 0, 0, &parts);
   ASSERT_EQ(parts.size(), 4u);
   EXPECT_DOUBLE_EQ(bench::SumOfFloors(m, parts).seconds, sum);
+  // Run one after another, each part's bytes come back only after the others': the working set
+  // of each is at least the call's bytes.
+  double call = 0;
+  for (const WorkCost& w : parts) call += w.bytes;
+  for (size_t i = 0; i < parts.size(); ++i) {
+    const uint64_t own =
+        f.LayerCall(i, i < 3 ? routes.layers[i].choices.data() : nullptr, 2).working_set;
+    EXPECT_EQ(parts[i].working_set, std::max(own, static_cast<uint64_t>(call))) << i;
+  }
   // The second row alone: its own routes (leaf 7: a path of 4 neurons).
   parts.clear();
   f.CallParts(routes, 1, 1, 0, 0, &parts);
@@ -173,6 +182,7 @@ TEST(MachineFloor, BandwidthReadsTheWholeBuffer) {
   EXPECT_TRUE(s.all_finite);
   EXPECT_GT(s.bytes_per_second, 0);
   EXPECT_TRUE(std::isfinite(s.bytes_per_second));
+  EXPECT_TRUE(s.kernel == "all_finite" || s.kernel == "f32.gemv") << s.kernel;
   // The last float is the one a read that stopped short would miss.
   buffer.back() = std::numeric_limits<float>::quiet_NaN();
   s = bench::ReadBandwidth(k, buffer.data(), buffer.size(), 0.002);
@@ -182,7 +192,7 @@ TEST(MachineFloor, BandwidthReadsTheWholeBuffer) {
 
 TEST(MachineFloor, BandwidthLookupInterpolatesInLogSize) {
   Machine m;
-  m.bandwidth = {{1000, 1000, 10e9, ""}, {100000, 100000, 2e9, ""}};
+  m.bandwidth = {{1000, 1000, 10e9, "", ""}, {100000, 100000, 2e9, "", ""}};
   EXPECT_DOUBLE_EQ(m.BandwidthAt(1000), 10e9);
   EXPECT_DOUBLE_EQ(m.BandwidthAt(10), 10e9);
   EXPECT_DOUBLE_EQ(m.BandwidthAt(1 << 30), 2e9);

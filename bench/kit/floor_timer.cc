@@ -54,6 +54,7 @@ Status FloorTimer::TraceSequence(const std::vector<int32_t>& prompt,
                                  const std::vector<int32_t>& next) {
   std::vector<int32_t> sequence = prompt;
   sequence.insert(sequence.end(), next.begin(), next.end());
+  prompt_tokens_ = prompt.size();
   SPRIG_ASSIGN_OR_RETURN(const std::vector<uint64_t> shape,
                          model_->output_shape(InputKind::kTokens, {1, sequence.size()}));
   size_t values = 1;
@@ -75,43 +76,52 @@ double FloorTimer::TimeLayer(size_t thread_index, size_t layer, size_t first, si
   return Since(start);
 }
 
-void FloorTimer::Add(size_t thread_index, size_t first, size_t calls, size_t batch, bool sequence,
-                     double model_seconds, Point* p) {
-  const double units = static_cast<double>(calls * batch);
-  // The whole model: a transformer's call at position `start` runs one row through the head.
-  std::vector<WorkCost> whole;
-  for (size_t c = 0; c < calls; ++c) {
-    const size_t at = first + c * batch;
-    footprint_.CallParts(routes_, at, batch, sequence ? at : 0, sequence ? 1 : 0, &whole);
+std::vector<FloorTimer::Span> FloorTimer::SpansOf(Point* p, Point* decode) const {
+  if (model_->config().family == Family::kStack) {
+    return {{p, 0, p->units / p->batch, p->batch, false}};
   }
-  AddRepetition(&p->machine_floor, model_seconds, std::move(whole), units);
-  size_t k = 0;
-  for (size_t layer = 0; layer < footprint_.layer_count(); ++layer) {
-    if (!footprint_.IsRoutedLayer(layer)) continue;
-    if (p->layer_floors.size() <= k) p->layer_floors.emplace_back().layer = static_cast<int>(layer);
-    FloorTiming& f = p->layer_floors[k++];
-    const LayerRoutes* r = RoutesOf(routes_, layer);
-    std::vector<WorkCost> work;
-    for (size_t c = 0; c < calls; ++c) {
-      const int32_t* choices = r ? r->choices.data() + (first + c * batch) * r->width : nullptr;
-      work.push_back(footprint_.LayerCall(layer, choices, batch));
+  std::vector<Span> spans = {{p, 0, 1, prompt_tokens_, true}};
+  const size_t traced = trace_.empty() ? 0 : trace_[0].inputs.size() / trace_[0].in;
+  if (decode && traced > prompt_tokens_) {
+    spans.push_back({decode, prompt_tokens_, traced - prompt_tokens_, 1, true});
+  }
+  return spans;
+}
+
+void FloorTimer::TimeLayers(size_t thread_index, Point* p, Point* decode) {
+  for (const Span& s : SpansOf(p, decode)) {
+    const double units = static_cast<double>(s.calls * s.batch);
+    size_t k = 0;
+    for (size_t layer = 0; layer < footprint_.layer_count(); ++layer) {
+      if (!footprint_.IsRoutedLayer(layer)) continue;
+      if (s.point->layer_floors.size() <= k) {
+        s.point->layer_floors.emplace_back().layer = static_cast<int>(layer);
+      }
+      FloorTiming& f = s.point->layer_floors[k++];
+      const LayerRoutes* r = RoutesOf(routes_, layer);
+      std::vector<WorkCost> work;
+      for (size_t c = 0; c < s.calls; ++c) {
+        const size_t at = s.first + c * s.batch;
+        work.push_back(
+            footprint_.LayerCall(layer, r ? r->choices.data() + at * r->width : nullptr, s.batch));
+      }
+      f.working_set = work.empty() ? 0 : work[0].working_set;
+      const double seconds = TimeLayer(thread_index, layer, s.first, s.calls, s.batch);
+      AddRepetition(&f, seconds, std::move(work), units);
     }
-    f.working_set = work.empty() ? 0 : work[0].working_set;
-    AddRepetition(&f, TimeLayer(thread_index, layer, first, calls, batch), std::move(work), units);
   }
 }
 
-void FloorTimer::RecordRows(size_t thread_index, double model_seconds, Point* p) {
-  const size_t calls = p->units / p->batch;
-  Add(thread_index, 0, calls, p->batch, false, model_seconds, p);
-}
-
-void FloorTimer::RecordSequence(size_t thread_index, size_t prompt_tokens, double prefill_seconds,
-                                double decode_seconds, Point* prefill, Point* decode) {
-  Add(thread_index, 0, 1, prompt_tokens, true, prefill_seconds, prefill);
-  const size_t decoded = trace_.empty() ? 0 : trace_[0].inputs.size() / trace_[0].in;
-  if (decoded > prompt_tokens) {
-    Add(thread_index, prompt_tokens, decoded - prompt_tokens, 1, true, decode_seconds, decode);
+void FloorTimer::AddModel(Point* p, Point* decode) {
+  for (const Span& s : SpansOf(p, decode)) {
+    // A transformer's call at position `at` runs one row through the head.
+    std::vector<WorkCost> work;
+    for (size_t c = 0; c < s.calls; ++c) {
+      const size_t at = s.first + c * s.batch;
+      footprint_.CallParts(routes_, at, s.batch, s.sequence ? at : 0, s.sequence ? 1 : 0, &work);
+    }
+    AddRepetition(&s.point->machine_floor, s.point->side[kModel].seconds.back(), std::move(work),
+                  static_cast<double>(s.calls * s.batch));
   }
 }
 

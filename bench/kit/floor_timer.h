@@ -33,23 +33,26 @@ class FloorTimer {
   Status TraceRows(const float* rows, size_t count);
   Status TraceSequence(const std::vector<int32_t>& prompt, const std::vector<int32_t>& next);
 
-  // One repetition of a stack point: its calls of p->batch rows over the traced rows. Times each
-  // routed layer alone with the callers of `thread_index` and adds the model side's
-  // `model_seconds` for the whole model.
-  void RecordRows(size_t thread_index, double model_seconds, Point* p);
-  // One repetition of a transformer: the prefill point (the prompt in one call) and the decode
-  // point (one call per token after it).
-  void RecordSequence(size_t thread_index, size_t prompt_tokens, double prefill_seconds,
-                      double decode_seconds, Point* prefill, Point* decode);
+  // One repetition of the routed layers, each run alone on the traced inputs with the caller of
+  // `thread_index`: a stack point's calls of p->batch rows; for a transformer the prefill point
+  // (the prompt in one call) and the decode point (each token after it alone).
+  void TimeLayers(size_t thread_index, Point* p, Point* decode);
+  // One repetition of the whole model: the model side's last time at the same points, against
+  // the work of the same calls.
+  void AddModel(Point* p, Point* decode);
 
  private:
   FloorTimer(std::shared_ptr<const Model> model, Footprint footprint);
+  // A point's calls over the traced rows: rows first, first + batch, ... in `calls` calls of
+  // `batch` rows; `sequence`: a transformer's, at the positions of their rows.
+  struct Span {
+    Point* point;
+    size_t first, calls, batch;
+    bool sequence;
+  };
+  std::vector<Span> SpansOf(Point* p, Point* decode) const;
   // Seconds of the routed layer `layer` run alone over calls of `batch` traced rows from `first`.
   double TimeLayer(size_t thread_index, size_t layer, size_t first, size_t calls, size_t batch);
-  // The work of calls of `batch` rows from `first` (a decoded token at position t is one call
-  // of one row at t); adds one repetition to *p with the measured times.
-  void Add(size_t thread_index, size_t first, size_t calls, size_t batch, bool sequence,
-           double model_seconds, Point* p);
 
   std::shared_ptr<const Model> model_;
   Footprint footprint_;
@@ -58,6 +61,7 @@ class FloorTimer {
   Routes routes_;
   std::vector<LayerTrace> trace_;
   std::vector<float> output_;
+  size_t prompt_tokens_ = 0;  // of the traced sequence
 };
 
 }  // namespace sprig::bench

@@ -181,8 +181,17 @@ std::vector<WorkCost> Footprint::DenseParts(size_t start, size_t tokens, size_t 
   return parts;
 }
 
+void ShareWorkingSet(std::vector<WorkCost>::iterator begin, std::vector<WorkCost>::iterator end) {
+  double bytes = 0;
+  for (auto w = begin; w != end; ++w) bytes += w->bytes;
+  for (auto w = begin; w != end; ++w) {
+    w->working_set = std::max(w->working_set, static_cast<uint64_t>(bytes));
+  }
+}
+
 void Footprint::CallParts(const Routes& routes, size_t first, size_t rows, size_t start,
                           size_t head_rows, std::vector<WorkCost>* parts) const {
+  const size_t begin = parts->size();
   for (size_t i = 0; i < layers_.size(); ++i) {
     const int32_t* choices = nullptr;
     for (const LayerRoutes& r : routes.layers) {
@@ -193,6 +202,7 @@ void Footprint::CallParts(const Routes& routes, size_t first, size_t rows, size_
     parts->push_back(LayerCall(i, choices, rows));
   }
   for (const WorkCost& w : DenseParts(start, rows, head_rows)) parts->push_back(w);
+  ShareWorkingSet(parts->begin() + static_cast<std::ptrdiff_t>(begin), parts->end());
 }
 
 void Footprint::WorkingSets(size_t tokens, std::vector<uint64_t>* sizes,

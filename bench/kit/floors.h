@@ -41,6 +41,10 @@ struct Floor {
 };
 
 Floor FloorOf(const Machine& machine, const WorkCost& cost);
+// The parts of a call run one after another: raises each part's working set to the call's bytes
+// (the sum of the parts' bytes) where it is smaller.
+void ShareWorkingSet(std::vector<WorkCost>::iterator begin, std::vector<WorkCost>::iterator end);
+
 // The floor of work made of parts: the sum of the parts' floors (each part is bounded on its
 // own; their bytes and multiply-add times are summed alike). Their bytes and multiply-adds are
 // summed into `total` when it is not null.
@@ -62,7 +66,9 @@ class Footprint {
   std::vector<WorkCost> DenseParts(size_t start, size_t tokens, size_t head_rows) const;
   // Every part's cost for one call of the whole model, appended to `parts`: each layer, then the
   // dense parts. The call's rows are rows first .. first + rows - 1 of `routes`; a transformer
-  // call's tokens sit at positions start, ..., with head_rows rows through the head.
+  // call's tokens sit at positions start, ..., with head_rows rows through the head. The parts
+  // run one after another, so a part's bytes are read again only after every other part's:
+  // each part's working set is at least the whole call's bytes.
   void CallParts(const Routes& routes, size_t first, size_t rows, size_t start, size_t head_rows,
                  std::vector<WorkCost>* parts) const;
   // Every part's working set with its name ("layer 2", "block 0 attention", ...), for the

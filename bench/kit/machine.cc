@@ -46,20 +46,42 @@ double Machine::BandwidthAt(uint64_t bytes) const {
 ReadSample ReadBandwidth(const kernels::KernelTable& k, const float* data, size_t count,
                          double min_seconds) {
   ReadSample out;
-  const uint64_t bytes = count * sizeof(float);
   if (count == 0) return out;
-  const size_t passes = static_cast<size_t>(std::max<uint64_t>(1, kSampleBytes / bytes));
-  // The untimed pass brings a cache-sized buffer into the cache, as a layer's second call finds it.
+  // The gemv reading: whole rows only (a buffer smaller than a row is read by all_finite alone).
+  const size_t rows = count / kGemvRow;
+  std::vector<float> x(kGemvRow, 1.0f), y(rows);
+  struct Reader {
+    const char* kernel;
+    uint64_t bytes;  // one pass
+    std::function<bool()> pass;
+  };
+  std::vector<Reader> readers = {
+      {"all_finite", count * sizeof(float), [&] { return k.all_finite(data, count); }}};
+  if (rows > 0) {
+    readers.push_back({"f32.gemv", rows * kGemvRow * sizeof(float), [&] {
+                         k.f32.gemv(data, x.data(), nullptr, y.data(), rows, kGemvRow);
+                         return k.all_finite(y.data(), rows);
+                       }});
+  }
+  // The untimed pass of each brings a cache-sized buffer into the cache, as a layer's second
+  // call finds it. Every answer is kept: the calls go through function pointers and their
+  // answers decide all_finite, so no pass can be left out.
+  for (const Reader& r : readers) r.pass();
   out.all_finite = k.all_finite(data, count);
   double best = 0;
   const auto start = Clock::now();
   for (size_t samples = 0; samples < kMinSamples || Since(start) < min_seconds; ++samples) {
-    const auto t0 = Clock::now();
-    // Every result is kept: the call goes through a function pointer, and its answer decides
-    // all_finite, so no pass can be left out.
-    for (size_t p = 0; p < passes; ++p) out.all_finite &= k.all_finite(data, count);
-    const double seconds = Since(t0);
-    if (seconds > 0) best = std::max(best, static_cast<double>(bytes * passes) / seconds);
+    for (size_t i = 0; i < readers.size(); ++i) {
+      const Reader& r = readers[i];
+      const size_t passes = static_cast<size_t>(std::max<uint64_t>(1, kSampleBytes / r.bytes));
+      bool finite = true;
+      const auto t0 = Clock::now();
+      for (size_t p = 0; p < passes; ++p) finite &= r.pass();
+      const double seconds = Since(t0);
+      if (i == 0) out.all_finite &= finite;
+      const double rate = static_cast<double>(r.bytes * passes) / seconds;
+      if (seconds > 0 && rate > best) best = rate, out.kernel = r.kernel;
+    }
   }
   out.bytes_per_second = best;
   return out;
@@ -121,9 +143,10 @@ Machine MeasureMachine(const kernels::KernelTable& k, const MachineOptions& opti
   // prefix of it.
   std::vector<float> buffer(m.bandwidth.back().buffer_bytes / sizeof(float), 1.0f);
   for (Bandwidth& b : m.bandwidth) {
-    b.bytes_per_second =
-        ReadBandwidth(k, buffer.data(), b.buffer_bytes / sizeof(float), options.seconds_per_size)
-            .bytes_per_second;
+    const ReadSample sample =
+        ReadBandwidth(k, buffer.data(), b.buffer_bytes / sizeof(float), options.seconds_per_size);
+    b.bytes_per_second = sample.bytes_per_second;
+    b.kernel = sample.kernel;
     if (options.step) options.step();
   }
   m.multiply_adds_per_second = MultiplyAddRate(k, options.seconds_per_size);

@@ -17,7 +17,8 @@ namespace sprig::bench {
 struct Bandwidth {
   uint64_t working_set_bytes = 0;  // the size asked for
   uint64_t buffer_bytes = 0;       // the bytes read per pass (sizes above kMaxBuffer are capped)
-  double bytes_per_second = 0;     // the best pass
+  double bytes_per_second = 0;     // the best sample of either kernel
+  std::string kernel;              // the kernel of that sample: "all_finite" or "f32.gemv"
   std::string what;                // why this size: "ladder", "layer 3", "file", ...
 };
 
@@ -39,16 +40,22 @@ std::vector<uint64_t> LadderSizes();
 // The largest buffer read: beyond it every size reads from memory alike, and a larger one would
 // only cost memory.
 inline constexpr uint64_t kMaxBuffer = uint64_t{256} << 20;
+// Floats per matrix row when a buffer is read by gemv (a row of a layer with in = 1024).
+inline constexpr size_t kGemvRow = 1024;
 
 struct ReadSample {
   double bytes_per_second = 0;
-  bool all_finite = true;  // what the read kernel returned: false when the buffer holds a NaN
+  std::string kernel;      // the kernel of the best sample
+  bool all_finite = true;  // what k.all_finite returned: false when the buffer holds a NaN
 };
 
-// Reads `count` floats at `data` through k.all_finite (every byte, vectorised) passes at a time
-// until `min_seconds` have passed and at least three samples were taken, after one untimed pass;
-// the best sample's rate. A sample reads at least 1 MiB (small buffers are read many times) so
-// that the clock resolves it.
+// Reads `count` floats at `data` in timed samples, alternating two kernels of the table, until
+// `min_seconds` have passed and each took at least three samples, after one untimed pass of
+// each; the best sample's rate. k.all_finite reads every byte as one stream; k.f32.gemv reads
+// the buffer as a matrix of rows of kGemvRow floats, several rows at once, as the layers' matrix
+// kernels read weights (from memory, several streams at once are faster than one on common
+// machines). A sample reads at least 1 MiB (small buffers are read many times) so that the
+// clock resolves it.
 ReadSample ReadBandwidth(const kernels::KernelTable& k, const float* data, size_t count,
                          double min_seconds);
 

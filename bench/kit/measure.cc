@@ -235,13 +235,26 @@ class Runner {
   }
 
   // The machine the floors divide by, on the sessions' kernel path, at the working sets of the
-  // model's parts, its hot section and its whole file.
+  // model's parts, its hot section, its whole file and each point's bytes per call (the working
+  // set of the whole model's parts, floors.h).
   Status MeasureTheMachine(Measurement* m) {
     MachineOptions mo = MachinePlan();
+    for (const Point& p : m->points) {
+      const FloorTiming& f = p.machine_floor;
+      if (f.work.empty() || p.units == 0) continue;
+      double bytes = 0;
+      for (const WorkCost& w : f.work[0]) bytes += w.bytes;
+      mo.sizes.push_back(static_cast<uint64_t>(bytes * p.batch / p.units));
+      mo.reasons.push_back(p.phase == "rows" ? "a call of " + std::to_string(p.batch) + " rows"
+                                             : "a " + p.phase + " call");
+    }
     mo.step = [this] { Step(); };
     SPRIG_ASSIGN_OR_RETURN(const kernels::KernelPath path,
                            kernels::ResolvePath(sessions_[0][kModel]->kernel_path()));
     m->machine = MeasureMachine(kernels::Kernels(path), mo);
+    // The total counted every point's size; equal sizes were measured once.
+    done_ = total_ - 1;
+    Step();
     return Status::Ok();
   }
 
@@ -294,15 +307,22 @@ class Runner {
           Point& p = (*points)[pi];
           // A transformer's decode point is measured in the same run as its prefill point.
           if (p.threads != o_.threads[ti] || p.phase == "decode") continue;
-          for (size_t i = 0; i < kSides; ++i) {
+          Point* decode = pi + 1 < points->size() ? &(*points)[pi + 1] : nullptr;
+          for (size_t i = 0; i <= kSides; ++i) {
+            // The routed layers alone take a rotating place among the sides, so that what ran
+            // before them (and what it left in the caches) varies as it does for the sides.
+            if (i == r % (kSides + 1)) {
+              timer_->TimeLayers(ti, &p, decode);
+              Step();
+            }
+            if (i == kSides) break;
             const size_t s = (r + i) % kSides;
             RunOut out;
             SPRIG_RETURN_IF_ERROR(RunOnce(*sessions_[ti][s], p.batch, &out, nullptr));
-            Record(out, s, &p, pi + 1 < points->size() ? &(*points)[pi + 1] : nullptr);
+            Record(out, s, &p, decode);
             Step();
           }
-          RecordFloors(ti, &p, pi + 1 < points->size() ? &(*points)[pi + 1] : nullptr);
-          Step();
+          timer_->AddModel(&p, decode);
         }
       }
     }
@@ -372,8 +392,8 @@ class Runner {
     for (const Point& p : points) per_round += p.phase == "decode" ? 0 : kSides;
     size_t floors = 0;
     for (const Point& p : points) floors += p.phase == "decode" ? 0 : 1;
-    total_ = PlannedSizes(MachinePlan()).size() + 1 + kSides + per_round * (o_.repeat + 1) +
-             floors * o_.repeat;
+    total_ = PlannedSizes(MachinePlan()).size() + points.size() + 1 + kSides +
+             per_round * (o_.repeat + 1) + floors * o_.repeat;
   }
 
  private:
@@ -398,17 +418,6 @@ class Runner {
       d.latency_ms.insert(d.latency_ms.end(), out.latency_ms.begin(), out.latency_ms.end());
     } else {
       t.latency_ms.insert(t.latency_ms.end(), out.latency_ms.begin(), out.latency_ms.end());
-    }
-  }
-
-  // The routed layers timed alone and the floors, after the sides of a point's repetition.
-  void RecordFloors(size_t thread_index, Point* p, Point* decode) {
-    const double model_seconds = p->side[kModel].seconds.back();
-    if (config_.family == Family::kStack) {
-      timer_->RecordRows(thread_index, model_seconds, p);
-    } else {
-      timer_->RecordSequence(thread_index, inputs_.prompt.size(), model_seconds,
-                             decode->side[kModel].seconds.back(), p, decode);
     }
   }
 

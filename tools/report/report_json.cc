@@ -133,6 +133,7 @@ json MachineJson(const Machine& m, const ReportContext& c) {
     bandwidth.push_back({{"working_set_bytes", b.working_set_bytes},
                          {"buffer_bytes", b.buffer_bytes},
                          {"bytes_per_second", b.bytes_per_second},
+                         {"kernel", b.kernel},
                          {"what", b.what}});
   }
   return {{"cpus", std::thread::hardware_concurrency()},
