@@ -153,6 +153,47 @@ void ExpectSaneResults(const json& r, size_t repeat) {
   }
 }
 
+// The machine (docs/benchmarking.md, "Machine floors"): positive, finite bandwidths at ascending
+// working sets, the ladder among them, and a multiply-add rate; at every point the whole model
+// and each of the `routed` layers against a positive, finite floor, with the repetitions' count.
+void ExpectMachineFloors(const json& r, const std::vector<size_t>& routed, size_t repeat) {
+  const json& m = r["machine"];
+  EXPECT_EQ(m["kernel_path"], r["kernels"]);
+  uint64_t last = 0;
+  size_t ladder = 0;
+  for (const json& b : m["bandwidth"]) {
+    EXPECT_GT(b["working_set_bytes"].get<uint64_t>(), last);
+    last = b["working_set_bytes"];
+    EXPECT_LE(b["buffer_bytes"], b["working_set_bytes"]);
+    EXPECT_GT(b["bytes_per_second"].get<double>(), 0);
+    EXPECT_TRUE(std::isfinite(b["bytes_per_second"].get<double>()));
+    ladder += b["what"].get<std::string>().find("ladder") != std::string::npos;
+  }
+  EXPECT_EQ(ladder, 5u);
+  EXPECT_GT(m["multiply_adds_per_second"].get<double>(), 0);
+  for (const json& p : r["results"]) {
+    const std::string at = p["phase"].get<std::string>() + "/" + p["batch"].dump();
+    const json& f = p["machine_floor"];
+    std::vector<const json*> parts = {&f["model"]};
+    ASSERT_EQ(f["layers"].size(), routed.size()) << at;
+    for (size_t i = 0; i < routed.size(); ++i) {
+      EXPECT_EQ(f["layers"][i]["layer"], routed[i]) << at;
+      parts.push_back(&f["layers"][i]);
+    }
+    for (const json* part : parts) {
+      const double floor = (*part)["floor_seconds"];
+      EXPECT_GT(floor, 0) << at;
+      EXPECT_TRUE(std::isfinite(floor)) << at;
+      EXPECT_GT((*part)["bytes"].get<double>(), 0) << at;
+      ExpectSummary((*part)["time_over_floor"], at + " time_over_floor");
+      EXPECT_TRUE(std::isfinite((*part)["time_over_floor"]["max"].get<double>())) << at;
+      EXPECT_EQ((*part)["time_over_floor"]["count"], repeat) << at;
+      const std::string limit = (*part)["limited_by"];
+      EXPECT_TRUE(limit == "bandwidth" || limit == "multiply-adds") << at << " " << limit;
+    }
+  }
+}
+
 void ExpectSaneMemory(const json& r) {
   for (const char* side : kSides) {
     const json& m = r["sides"][side]["memory"];
@@ -189,6 +230,7 @@ TEST_F(BenchCli, StackJsonHasEveryDocumentedKey) {
   EXPECT_EQ(r["settings"]["baseline"], "dense_twin");
   ASSERT_EQ(r["results"].size(), 4u);  // 2 thread counts x 2 batch sizes
   ExpectSaneResults(r, 2);
+  ExpectMachineFloors(r, {1, 2, 3}, 2);
   // 64 rows in calls of 8: 8 calls per repetition, each timed.
   for (const json& p : r["results"]) {
     EXPECT_EQ(p["units"], 64) << p["batch"];
@@ -265,6 +307,7 @@ TEST_F(BenchCli, TransformerReportsPrefillAndDecode) {
   // Every decoded token of every repetition is a latency sample.
   EXPECT_EQ(r["results"][1]["model"]["latency_ms"]["count"], 20);
   ExpectSaneResults(r, 2);
+  ExpectMachineFloors(r, {0, 1}, 2);
   ExpectSaneMemory(r);
   // Attention's context: the prompt's tokens average P / 2, the decoded ones P + G / 2.
   EXPECT_EQ(r["sides"]["model"]["flops"][0]["context"], 6);
@@ -366,6 +409,15 @@ TEST_F(BenchCli, ReportIsSelfContainedAndRendersInChromium) {
     ++charts;
   }
   EXPECT_EQ(charts, 3u + 3u);  // three charts and one per routed layer
+  // The machine-floor table: the whole model and the three routed layers at each of the three
+  // batch sizes, each with its time ÷ floor.
+  EXPECT_NE(text.find("Against the machine floor"), std::string::npos);
+  size_t alone = 0;
+  for (size_t at = text.find(" alone</td>"); at != std::string::npos;
+       at = text.find(" alone</td>", at + 1)) {
+    ++alone;
+  }
+  EXPECT_EQ(alone, 3u * 3u);
   EXPECT_EQ(text.find("<script"), std::string::npos);
   EXPECT_EQ(text.find("src="), std::string::npos);
   EXPECT_EQ(text.find("href="), std::string::npos);

@@ -5,7 +5,9 @@
 #include <cstdio>
 
 #include "base/status_macros.h"
+#include "bench/kit/floor_timer.h"
 #include "bench/kit/models.h"
+#include "kernels/kernels.h"
 #include "numeric/random.h"
 #include "platform/process.h"
 
@@ -208,12 +210,51 @@ class Runner {
         sessions_.back().push_back(std::move(session));
       }
     }
+    std::vector<const Session*> model_sessions;
+    for (const auto& per_thread : sessions_) model_sessions.push_back(per_thread[kModel].get());
+    SPRIG_ASSIGN_OR_RETURN(timer_, FloorTimer::Create(models_[kModel], model_sessions));
     if (config_.family == Family::kStack) {
       size_t rows = 0;
       for (size_t b : o_.batches) rows = std::max(rows, CallsFor(o_, b) * b);
       inputs_.pool = o_.input_rows.empty() ? RowPool(rows, config_.input_dim, o_.seed)
                                            : FileRowPool(o_.input_rows, rows, config_.input_dim);
+      SPRIG_RETURN_IF_ERROR(timer_->TraceRows(inputs_.pool.data(), rows));
     }
+    return Status::Ok();
+  }
+
+  // The working sets the machine is measured at: the model's parts, its hot section and its file.
+  MachineOptions MachinePlan() const {
+    MachineOptions mo;
+    timer_->footprint().WorkingSets(o_.prompt_tokens + o_.decode_tokens, &mo.sizes, &mo.reasons);
+    mo.sizes.push_back(models_[kModel]->file_size());
+    mo.reasons.push_back("file");
+    mo.sizes.push_back(models_[kModel]->residency().hot_size);
+    mo.reasons.push_back("hot section");
+    return mo;
+  }
+
+  // The machine the floors divide by, on the sessions' kernel path, at the working sets of the
+  // model's parts, its hot section, its whole file and each point's bytes per call (the working
+  // set of the whole model's parts, floors.h).
+  Status MeasureTheMachine(Measurement* m) {
+    MachineOptions mo = MachinePlan();
+    for (const Point& p : m->points) {
+      const FloorTiming& f = p.machine_floor;
+      if (f.work.empty() || p.units == 0) continue;
+      double bytes = 0;
+      for (const WorkCost& w : f.work[0]) bytes += w.bytes;
+      mo.sizes.push_back(static_cast<uint64_t>(bytes * p.batch / p.units));
+      mo.reasons.push_back(p.phase == "rows" ? "a call of " + std::to_string(p.batch) + " rows"
+                                             : "a " + p.phase + " call");
+    }
+    mo.step = [this] { Step(); };
+    SPRIG_ASSIGN_OR_RETURN(const kernels::KernelPath path,
+                           kernels::ResolvePath(sessions_[0][kModel]->kernel_path()));
+    m->machine = MeasureMachine(kernels::Kernels(path), mo);
+    // The total counted every point's size; equal sizes were measured once.
+    done_ = total_ - 1;
+    Step();
     return Status::Ok();
   }
 
@@ -259,19 +300,29 @@ class Runner {
     for (size_t r = 0; r < o_.repeat; ++r) {
       if (config_.family == Family::kTransformer) {
         SelectTokens(config_, o_, r + 1, &inputs_);
+        SPRIG_RETURN_IF_ERROR(timer_->TraceSequence(inputs_.prompt, inputs_.next));
       }
       for (size_t ti = 0; ti < o_.threads.size(); ++ti) {
         for (size_t pi = 0; pi < points->size(); ++pi) {
           Point& p = (*points)[pi];
           // A transformer's decode point is measured in the same run as its prefill point.
           if (p.threads != o_.threads[ti] || p.phase == "decode") continue;
-          for (size_t i = 0; i < kSides; ++i) {
+          Point* decode = pi + 1 < points->size() ? &(*points)[pi + 1] : nullptr;
+          for (size_t i = 0; i <= kSides; ++i) {
+            // The routed layers alone take a rotating place among the sides, so that what ran
+            // before them (and what it left in the caches) varies as it does for the sides.
+            if (i == r % (kSides + 1)) {
+              timer_->TimeLayers(ti, &p, decode);
+              Step();
+            }
+            if (i == kSides) break;
             const size_t s = (r + i) % kSides;
             RunOut out;
             SPRIG_RETURN_IF_ERROR(RunOnce(*sessions_[ti][s], p.batch, &out, nullptr));
-            Record(out, s, &p, pi + 1 < points->size() ? &(*points)[pi + 1] : nullptr);
+            Record(out, s, &p, decode);
             Step();
           }
+          timer_->AddModel(&p, decode);
         }
       }
     }
@@ -334,10 +385,15 @@ class Runner {
 
   // Steps reported to the progress callback: the first passes, the warm-up and every
   // repetition, one per side and point run.
+  // Steps reported to the progress callback: the machine's sizes, the first passes, the warm-up
+  // and every repetition, one per side and point run and one per point's floors.
   void SetTotalSteps(const std::vector<Point>& points) {
     size_t per_round = 0;
     for (const Point& p : points) per_round += p.phase == "decode" ? 0 : kSides;
-    total_ = kSides + per_round * (o_.repeat + 1);
+    size_t floors = 0;
+    for (const Point& p : points) floors += p.phase == "decode" ? 0 : 1;
+    total_ = PlannedSizes(MachinePlan()).size() + points.size() + 1 + kSides +
+             per_round * (o_.repeat + 1) + floors * o_.repeat;
   }
 
  private:
@@ -375,12 +431,15 @@ class Runner {
   std::shared_ptr<const Model> models_[kSides];
   std::vector<std::vector<std::unique_ptr<Session>>> sessions_;  // [thread count][side]
   Inputs inputs_;
+  std::unique_ptr<FloorTimer> timer_;
   size_t done_ = 0, total_ = 0;
 };
 
 // Rates, latency summaries and the paired ratios of every point.
 void SummarizePoints(Measurement* m) {
   for (Point& p : m->points) {
+    ComputeFloors(m->machine, &p.machine_floor);
+    for (FloorTiming& f : p.layer_floors) ComputeFloors(m->machine, &f);
     for (size_t s = 0; s < kSides; ++s) {
       SideTiming& t = p.side[s];
       std::vector<double> rate;
@@ -456,14 +515,15 @@ Result<Measurement> Measure(const std::shared_ptr<const Model> (&models)[kSides]
   }
   m.points = MakePoints(models[kModel]->config(), o);
   Runner runner(models, o);
-  runner.SetTotalSteps(m.points);
   SPRIG_RETURN_IF_ERROR(runner.Open());
+  runner.SetTotalSteps(m.points);
   SPRIG_RETURN_IF_ERROR(runner.FirstPass(&m));
   SPRIG_RETURN_IF_ERROR(runner.WarmUp(m.points));
   SPRIG_RETURN_IF_ERROR(runner.Repeat(&m.points));
   runner.Finish(&m);
   SPRIG_RETURN_IF_ERROR(runner.Usage(&m));
   m.memory_end = ReadProcessMemory();
+  SPRIG_RETURN_IF_ERROR(runner.MeasureTheMachine(&m));
   SummarizePoints(&m);
   return m;
 }

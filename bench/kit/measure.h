@@ -14,6 +14,8 @@
 #include <string>
 #include <vector>
 
+#include "bench/kit/floors.h"
+#include "bench/kit/machine.h"
 #include "bench/kit/stats.h"
 #include "model/flops.h"
 #include "sprig/memory.h"
@@ -85,6 +87,27 @@ struct SideTiming {
   Summary latency;                  // of latency_ms
 };
 
+// The machine floor (bench/kit/floors.h) of the whole model or of one routed layer at a point,
+// and the measured time against it. The whole model's time is the model side's; a routed
+// layer's is the layer run alone on the inputs it received in the model (captured with a
+// LayerTrace), in the same repetitions. Per row (stack, prefill) or decoded token.
+struct FloorTiming {
+  int layer = -1;               // the routed layer; -1 for the whole model
+  std::vector<double> seconds;  // measured, per repetition
+  double units = 0;             // rows or tokens per repetition
+  // Per repetition, the work of every part of every call on that repetition's inputs; the
+  // floors are computed from it once the machine is measured (after the runs, so that its
+  // buffers neither evict the models nor raise the process's peak memory).
+  std::vector<std::vector<WorkCost>> work;
+  uint64_t working_set = 0;  // a layer's total bytes (its bandwidth lookup); 0 for the model
+  // From ComputeFloors:
+  std::vector<double> floor_seconds;           // per repetition
+  double bytes = 0, multiply_adds = 0;         // per row or token, over all repetitions
+  double bytes_seconds = 0, madd_seconds = 0;  // their floor times, summed alike
+  Summary time, floor, time_over_floor;        // over repetitions
+  bool bandwidth_limited() const { return bytes_seconds >= madd_seconds; }
+};
+
 // One measured configuration: a thread count and a phase (stack rows at a batch size,
 // transformer prefill or decode).
 struct Point {
@@ -93,10 +116,12 @@ struct Point {
   size_t batch = 1;   // rows per call; prompt tokens for prefill; 1 for decode
   size_t units = 0;   // rows or tokens per repetition
   SideTiming side[kSides];
-  Summary speedup;         // baseline / model, paired per repetition
-  Summary bound;           // baseline / floor, paired: the measured whole-model bound
-  Summary cpu_speedup;     // baseline / model in process CPU time, paired
-  double flops_bound = 0;  // baseline FLOPs / (model FLOPs - routed layers' FLOPs)
+  Summary speedup;            // baseline / model, paired per repetition
+  Summary bound;              // baseline / floor, paired: the measured whole-model bound
+  Summary cpu_speedup;        // baseline / model in process CPU time, paired
+  double flops_bound = 0;     // baseline FLOPs / (model FLOPs - routed layers' FLOPs)
+  FloorTiming machine_floor;  // the whole model
+  std::vector<FloorTiming> layer_floors;  // each routed layer, in model order
 };
 
 struct LayerUsage {
@@ -107,6 +132,7 @@ struct LayerUsage {
 struct Measurement {
   Family family = Family::kStack;
   std::string kernel_path;
+  Machine machine;  // measured on kernel_path, single thread
   SideInfo sides[kSides];
   std::vector<Point> points;
   std::vector<LayerUsage> usage;  // the model's routed layers on the benchmark's inputs

@@ -34,6 +34,8 @@ nlohmann::json ToJson(const Measurement& m, const ReportContext& context);
 
 // The HTML report of a ToJson document.
 std::string ToHtml(const nlohmann::json& report);
+// Its section on the machine floors (report_floors.cc).
+std::string MachineFloorSection(const nlohmann::json& report);
 
 // The system's 1, 5 and 15 minute load averages (empty where unavailable).
 std::vector<double> LoadAverages();

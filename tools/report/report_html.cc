@@ -326,7 +326,7 @@ std::string ToHtml(const json& r) {
   h += "<div class=\"grid\"><div class=\"chart\">" + SpeedupChart(r) +
        "</div><div class=\"chart\">" + LatencyChart(r) + "</div><div class=\"chart\">" +
        MemoryChart(r) + "</div></div>";
-  h += SidesTable(r) + MemoryTable(r);
+  h += MachineFloorSection(r) + SidesTable(r) + MemoryTable(r);
   h += "<h2>Leaf and expert usage per routed layer</h2><div class=\"grid\">" + UsageCharts(r) +
        "</div>";
   if (!r["usage"].empty()) {

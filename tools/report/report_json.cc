@@ -105,7 +105,47 @@ json LatencyHistogram(const Point& p) {
   return h;
 }
 
-json PointJson(const Point& p) {
+// A machine floor and the measured time against it, per row or token (measure.h, FloorTiming).
+json FloorJson(const FloorTiming& f, const Machine& machine) {
+  json j = {{"seconds", SummaryJson(f.time)},
+            {"floor_seconds", f.floor.median},
+            {"time_over_floor", SummaryJson(f.time_over_floor)},
+            {"bytes", f.bytes},
+            {"multiply_adds", f.multiply_adds},
+            {"limited_by", f.bandwidth_limited() ? "bandwidth" : "multiply-adds"}};
+  if (f.layer >= 0) {
+    j["layer"] = f.layer;
+    j["working_set_bytes"] = f.working_set;
+    j["bytes_per_second"] = machine.BandwidthAt(f.working_set);
+  }
+  return j;
+}
+
+json MachineFloorJson(const Point& p, const Machine& machine) {
+  json layers = json::array();
+  for (const FloorTiming& f : p.layer_floors) layers.push_back(FloorJson(f, machine));
+  return {{"model", FloorJson(p.machine_floor, machine)}, {"layers", layers}};
+}
+
+json MachineJson(const Machine& m, const ReportContext& c) {
+  json bandwidth = json::array();
+  for (const Bandwidth& b : m.bandwidth) {
+    bandwidth.push_back({{"working_set_bytes", b.working_set_bytes},
+                         {"buffer_bytes", b.buffer_bytes},
+                         {"bytes_per_second", b.bytes_per_second},
+                         {"kernel", b.kernel},
+                         {"what", b.what}});
+  }
+  return {{"cpus", std::thread::hardware_concurrency()},
+          {"load_average_start", c.load_start},
+          {"load_average_end", c.load_end},
+          {"kernel_path", m.kernel_path},
+          {"bandwidth", bandwidth},
+          {"multiply_adds_per_second", m.multiply_adds_per_second},
+          {"measure_seconds", m.seconds}};
+}
+
+json PointJson(const Point& p, const Machine& machine) {
   json j = {{"threads", p.threads}, {"phase", p.phase}, {"batch", p.batch}, {"units", p.units}};
   for (size_t s = 0; s < kSides; ++s) {
     const SideTiming& t = p.side[s];
@@ -120,6 +160,7 @@ json PointJson(const Point& p) {
   // null when the model is nothing but routed layers: then nothing bounds the speedup.
   j["flops_bound"] = p.flops_bound > 0 ? json(p.flops_bound) : json(nullptr);
   j["latency_histogram"] = LatencyHistogram(p);
+  j["machine_floor"] = MachineFloorJson(p, machine);
   return j;
 }
 
@@ -165,9 +206,7 @@ json ToJson(const Measurement& m, const ReportContext& c) {
   j["command"] = c.command;
   j["family"] = ToString(m.family);
   j["kernels"] = m.kernel_path;
-  j["machine"] = {{"cpus", std::thread::hardware_concurrency()},
-                  {"load_average_start", c.load_start},
-                  {"load_average_end", c.load_end}};
+  j["machine"] = MachineJson(m.machine, c);
   const MeasureOptions& o = c.options;
   j["settings"] = {{"baseline", c.baseline_kind},
                    {"threads", o.threads},
@@ -183,7 +222,7 @@ json ToJson(const Measurement& m, const ReportContext& c) {
   for (size_t s = 0; s < kSides; ++s) sides[SideName(s)] = SideJson(m.sides[s], c.paths[s]);
   j["sides"] = sides;
   j["results"] = json::array();
-  for (const Point& p : m.points) j["results"].push_back(PointJson(p));
+  for (const Point& p : m.points) j["results"].push_back(PointJson(p, m.machine));
   j["process_memory"] = {{"start", ProcessJson(m.memory_start)},
                          {"end", ProcessJson(m.memory_end)}};
   j["usage"] = json::array();

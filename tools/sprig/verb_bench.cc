@@ -281,12 +281,51 @@ void PrintUsage(const nlohmann::json& r) {
   std::printf("\n");
 }
 
+// The measured machine: read bandwidth per working set and the multiply-add rate, single thread
+// on the sessions' kernel path.
+void PrintMachine(const nlohmann::json& r) {
+  const auto& m = r["machine"];
+  std::printf("machine (kernels %s, one thread): read bandwidth",
+              m["kernel_path"].get<std::string>().c_str());
+  for (const auto& b : m["bandwidth"]) {
+    std::printf(" %s %.1f GB/s%s", HumanBytes(b["working_set_bytes"].get<uint64_t>()).c_str(),
+                b["bytes_per_second"].get<double>() / 1e9, &b == &m["bandwidth"].back() ? "" : ",");
+  }
+  std::printf("; multiply-adds %.1f G/s\n", m["multiply_adds_per_second"].get<double>() / 1e9);
+}
+
+// One row per point for the whole model and per routed layer: measured time per row or token
+// against the machine floor (not the "floor" side, a model of width-1 routed layers).
+void PrintMachineFloors(const nlohmann::json& r) {
+  std::printf("\n%-7s %-14s %-9s %14s %14s %24s %s\n", "threads", "point", "part",
+              r["family"] == "stack" ? "us/row" : "us/token", "floor us", "time / machine floor",
+              "limited by");
+  auto row = [](const nlohmann::json& p, const std::string& point, const std::string& part,
+                const nlohmann::json& f) {
+    std::printf("%-7zu %-14s %-9s %14.3f %14.3f %24s %s\n", p["threads"].get<size_t>(),
+                point.c_str(), part.c_str(), f["seconds"]["median"].get<double>() * 1e6,
+                f["floor_seconds"].get<double>() * 1e6,
+                Spread(f["time_over_floor"], "%.2f").c_str(),
+                f["limited_by"].get<std::string>().c_str());
+  };
+  for (const auto& p : r["results"]) {
+    const std::string point = p["phase"] == "rows"
+                                  ? "batch " + std::to_string(p["batch"].get<size_t>())
+                                  : p["phase"].get<std::string>();
+    row(p, point, "model", p["machine_floor"]["model"]);
+    for (const auto& l : p["machine_floor"]["layers"]) {
+      row(p, point, "layer " + std::to_string(l["layer"].get<size_t>()), l);
+    }
+  }
+}
+
 void PrintText(const nlohmann::json& r) {
   const bool stack = r["family"] == "stack";
   std::printf("%s against %s\n", r["sides"]["model"]["label"].get<std::string>().c_str(),
               r["sides"]["baseline"]["label"].get<std::string>().c_str());
   std::printf("kernels %s, %zu repetitions interleaved; median [min-max] over repetitions\n",
               r["kernels"].get<std::string>().c_str(), r["settings"]["repeat"].get<size_t>());
+  PrintMachine(r);
   PrintInput(r);
   std::printf("%-7s %-14s %24s %24s %20s %20s %20s %7s %s\n", "threads", "point",
               stack ? "model rows/s" : "model tokens/s",
@@ -308,6 +347,7 @@ void PrintText(const nlohmann::json& r) {
         Spread(p["cpu_speedup"], "%.2f").c_str(), Spread(p["bound"], "%.2f").c_str(), flops_bound,
         l["median"].get<double>(), l["p95"].get<double>(), l["p99"].get<double>());
   }
+  PrintMachineFloors(r);
   std::printf("\n%-9s %12s %12s %14s %14s %12s %s\n", "side", "file", "params", "FLOPs/token",
               "resident", "first call", "records touched");
   for (const char* side : {"model", "baseline", "floor"}) {
