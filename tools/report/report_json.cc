@@ -165,6 +165,7 @@ json ToJson(const Measurement& m, const ReportContext& c) {
   j["command"] = c.command;
   j["family"] = ToString(m.family);
   j["kernels"] = m.kernel_path;
+  j["compute"] = c.options.compute;  // the model side's; baseline and floor run f32
   j["machine"] = {{"cpus", std::thread::hardware_concurrency()},
                   {"load_average_start", c.load_start},
                   {"load_average_end", c.load_end}};

@@ -15,4 +15,9 @@ namespace sprig::internal {
 // scales from the mapping (paging them in); thread-safe.
 std::vector<float> RowScales(const Model& model, const std::string& name);
 
+// The 1-norm of each dequantised row of the same kind of tensor, ||ŵ_row||_1 = s_row·Σ|q|, in
+// double: sprig verify bounds how far quantising a row's activations (compute mode "i8") moved
+// a logit with them. Empty as RowScales is. Reads every value of the tensor.
+std::vector<double> RowAbsSums(const Model& model, const std::string& name);
+
 }  // namespace sprig::internal
