@@ -13,6 +13,9 @@
 #include <string>
 #include <vector>
 
+#include <nlohmann/json.hpp>
+
+#include "io/tensor_archive.h"
 #include "kernels/kernels.h"
 #include "sprig/model.h"
 #include "sprig/session.h"
@@ -192,6 +195,54 @@ TEST_F(Int8Activations, BitIdenticalAcrossBatchesSplitsSingleRowsAndThreads) {
       }
     }
   }
+}
+
+// `sprig run --compute i8` gives the session's bits, `--compute f32` (the default) the float
+// mode's; `sprig bench --compute i8` names the mode in its JSON and table; both refuse the mode
+// for a model without i8 weights (exit 2).
+TEST_F(Int8Activations, RunAndBenchTakeTheComputeOption) {
+  const std::vector<float> x = RandomRows(kRows, 5);
+  const std::string in = dir_->File("x.npy");
+  ASSERT_TRUE(io::WriteNpy(in,
+                           io::NdArray::Owned(
+                               "x", io::ElementType::kF32, {kRows, kIn},
+                               std::vector<uint8_t>(reinterpret_cast<const uint8_t*>(x.data()),
+                                                    reinterpret_cast<const uint8_t*>(x.data()) +
+                                                        x.size() * sizeof(float))),
+                           true)
+                  .ok());
+  for (const char* compute : {"f32", "i8"}) {
+    const std::string out = dir_->File(std::string("y-") + compute + ".npy");
+    const auto r =
+        testing::Run(testing::SprigCli() + " run " + Quote((*i8_)->path()) + " --input " +
+                     Quote(in) + " --output " + Quote(out) + " --batch 7 --compute " + compute);
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    auto archive = io::TensorArchive::Open(out);
+    ASSERT_TRUE(archive.ok()) << archive.status().message();
+    const io::NdArray& y = archive->arrays()[0];
+    std::vector<float> got(y.elements());
+    std::memcpy(got.data(), y.data, y.nbytes());
+    EXPECT_TRUE(BitEqual(got, Forward(*NewSession(*i8_, 1, compute), x, {kRows}).y)) << compute;
+  }
+  const auto refused =
+      testing::Run(testing::SprigCli() + " run " + Quote((*f32_)->path()) + " --input " +
+                   Quote(in) + " --output " + Quote(dir_->File("no.npy")) + " --compute i8");
+  EXPECT_EQ(refused.exit_code, 2) << refused.output;
+  EXPECT_NE(refused.output.find("--dtype i8"), std::string::npos) << refused.output;
+
+  const std::string json = dir_->File("bench.json");
+  const auto bench =
+      testing::Run(testing::SprigCli() + " bench " + Quote((*i8_)->path()) +
+                   " --repeat 1 --rows 8 --batch 8 --compute i8 --json " + Quote(json));
+  ASSERT_EQ(bench.exit_code, 0) << bench.output;
+  EXPECT_EQ(nlohmann::json::parse(testing::ReadFile(json))["compute"], "i8");
+  const auto text = testing::Run(testing::SprigCli() + " bench " + Quote((*i8_)->path()) +
+                                 " --repeat 1 --rows 8 --batch 8 --compute i8");
+  EXPECT_NE(text.output.find("compute i8"), std::string::npos) << text.output;
+  EXPECT_EQ(testing::Run(testing::SprigCli() + " bench " + Quote((*f32_)->path()) +
+                         " --repeat 1 --rows 8 --batch 8 --compute i8")
+                .exit_code,
+            2);
 }
 
 // A transformer's feed-forward layers take the mode too (its attention and head stay float):
