@@ -26,8 +26,8 @@ struct SessionOptions {
   // environment variable, if set); otherwise one of "scalar", "sse42", "avx2", "avx512",
   // "neon", which must be available. Default: "".
   std::string kernel_path;
-  // Arithmetic of the feed-forward layers (docs/compute-modes.md). "f32" (the default):
-  // activations stay float32 whatever the weights' storage type. "i8": opt in, never the
+  // Arithmetic of the feed-forward layers (docs/storage-types.md, "Int8 activations"). "f32" (the
+  // default): activations stay float32 whatever the weights' storage type. "i8": opt in, never the
   // default: a feed-forward matrix stored as i8 (packed with --dtype i8) reads its input rows
   // quantised to int8 (one scale per row) and multiplies them in exact integer arithmetic;
   // matrices of other storage types, path trees' output rows and a transformer's attention and
