@@ -145,6 +145,37 @@ TEST_F(Int8Activations, RefusedForAModelWithoutInt8Weights) {
   EXPECT_NE(message.find("--dtype i8"), std::string::npos) << message;
 }
 
+// A path tree's output rows are added as float activations times the stored rows: a model whose
+// only i8 tensor is nodes.out gives the mode nothing to run on either.
+TEST(Int8ActivationsRefusal, PathTreeOutputRowsAloneDoNotCount) {
+  testing::TempDir dir;
+  const std::string json = dir.File("p.json"), npz = dir.File("p.npz"), model = dir.File("p.sprig");
+  testing::WriteFile(json, R"({"family":"stack","input_dim":16,"layers":[
+    {"kind":"tree","mode":"path","depth":3,"activation":"gelu","out":8}]})");
+  ASSERT_EQ(
+      testing::Run(testing::SprigCli() + " synth " + Quote(json) + " -o " + Quote(npz)).exit_code,
+      0);
+  const auto packed =
+      testing::Run(testing::SprigCli() + " pack " + Quote(json) + " " + Quote(npz) + " -o " +
+                   Quote(model) + " --dtype-nodes f32 --dtype-records i8 --dtype-dense f32");
+  ASSERT_EQ(packed.exit_code, 0) << packed.output;
+  auto opened = Model::open(model);
+  ASSERT_TRUE(opened.ok()) << opened.status().message();
+  bool out_rows_i8 = false;
+  for (const TensorDescription& t : (*opened)->tensor_descriptions()) {
+    if (t.name == "layers.0.nodes.out") out_rows_i8 = t.dtype == DType::kI8;
+    if (t.name == "layers.0.nodes.weight") {
+      EXPECT_EQ(t.dtype, DType::kF32);
+    }
+  }
+  ASSERT_TRUE(out_rows_i8) << "the packing this test relies on changed";
+  SessionOptions options;
+  options.compute = "i8";
+  auto refused = Session::create(*opened, options);
+  ASSERT_FALSE(refused.ok());
+  EXPECT_NE(refused.status().message().find("--dtype i8"), std::string::npos);
+}
+
 // The mode changes results (so it ran), but only as far as int8 activations can: each layer's
 // input rounded to 1/254 of its largest magnitude. Through seven layers the outputs stay within
 // a few percent of the float mode's, relative to the outputs' RMS.

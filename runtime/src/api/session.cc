@@ -23,13 +23,15 @@ double SecondsSince(std::chrono::steady_clock::time_point start) {
 }
 
 // The compute mode "i8" applies to feed-forward matrices stored as i8 (an attention
-// projection of a transformer block stays float); a model without one would only be slower.
-// Rows longer than the integer kernels' exact range are refused too.
+// projection of a transformer block stays float, and a path tree's output rows are added as
+// float activations times the stored rows); a model without one would only be slower. Rows
+// longer than the integer kernels' exact range are refused too.
 Status CheckInt8Activations(const Model& model) {
   bool applies = false;
   for (const TensorDescription& tensor : model.tensor_descriptions()) {
     if (tensor.dtype != DType::kI8 || tensor.layer < 0) continue;
     if (tensor.name.find(".attn.") != std::string::npos) continue;
+    if (tensor.name.ends_with("nodes.out")) continue;
     if (!tensor.shape.empty() && tensor.shape.back() > kernels::kMaxQuantizedLength) {
       return Status::InvalidArgument(model.path() + ": tensor " + tensor.name + " has rows of " +
                                      std::to_string(tensor.shape.back()) +
