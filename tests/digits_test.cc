@@ -5,7 +5,8 @@
 // reference inputs. sprig's predictions must equal PyTorch's hard-mode predictions row for row
 // with float32 storage; with float16 storage at least 99.5% of routing decisions must agree and
 // accuracy stay within 0.5 points, with int8 storage (also int8 records under float32 routing
-// nodes) at least 98% and within 1 point. The accuracies are printed.
+// nodes) at least 98% and within 1 point, and with int8 activations as well (the compute mode
+// "i8") at least 97% and within 1.5 points. The accuracies are printed.
 #include <gtest/gtest.h>
 
 #include <nlohmann/json.hpp>
@@ -49,8 +50,10 @@ class Digits : public ::testing::Test {
   }
 
   // Packs `model` (tree or dense) as `dtype`, runs the held-out rows, compares.
+  // `compute` is passed to run and verify as --compute.
   static nlohmann::json RunModel(const std::string& model, const std::string& dtype,
-                                 const std::string& options = "") {
+                                 const std::string& options = "",
+                                 const std::string& compute = "f32") {
     const std::string ref = dir_->File(model);
     const std::string packed =
         dir_->File(model + "-" + dtype + (options.empty() ? "" : "-parts") + ".sprig");
@@ -63,21 +66,24 @@ class Digits : public ::testing::Test {
         "import sys, numpy as np; np.save(sys.argv[2], np.load(sys.argv[1])['inputs'])",
         {ref + "/reference.npz", dir_->File("x.npy")});
     EXPECT_EQ(r.exit_code, 0) << r.output;
-    const std::string out = dir_->File(model + "-" + dtype + ".npy");
+    const std::string out = dir_->File(model + "-" + dtype + "-" + compute + ".npy");
     const std::string routes = dir_->File(model + "-" + dtype + "-routes.npz");
     const bool routed = model == "tree";
     r = testing::Run(cli + " run " + Quote(packed) + " --input " + Quote(dir_->File("x.npy")) +
-                     " --output " + Quote(out) + (routed ? " --routes " + Quote(routes) : ""));
+                     " --output " + Quote(out) + (routed ? " --routes " + Quote(routes) : "") +
+                     " --compute " + compute);
     EXPECT_EQ(r.exit_code, 0) << r.output;
     std::vector<std::string> args = {ref + "/reference.npz", out, dir_->File("labels.npy")};
     if (routed) args.push_back(routes);
     r = testing::RunPython(kCompare, args);
     EXPECT_EQ(r.exit_code, 0) << r.output;
     nlohmann::json result = nlohmann::json::parse(r.output);
-    r = testing::Run(cli + " verify " + Quote(packed) + " " + Quote(ref + "/reference.npz"));
+    r = testing::Run(cli + " verify " + Quote(packed) + " " + Quote(ref + "/reference.npz") +
+                     " --compute " + compute);
     EXPECT_EQ(r.exit_code, 0) << r.output;
     result["verify_exit"] = r.exit_code;
-    std::printf("[ digits %s %s ] %s\n", model.c_str(), dtype.c_str(), result.dump().c_str());
+    std::printf("[ digits %s %s, compute %s ] %s\n", model.c_str(), dtype.c_str(), compute.c_str(),
+                result.dump().c_str());
     return result;
   }
 
@@ -122,6 +128,24 @@ TEST_F(Digits, NarrowStorageKeepsRoutingDecisions) {
     EXPECT_NEAR(i8["accuracy"].get<double>(), (*accuracy_)["tree_hard"].get<double>(), 0.01)
         << options;
     EXPECT_EQ(i8["verify_exit"], 0) << options;
+  }
+}
+
+// The opt-in compute mode "i8" (int8 activations) beside int8 storage with float activations,
+// on the same files: both printed for the README. Quantising every layer's input to int8 must
+// keep at least 97% of the tree's routing decisions and accuracy within 1.5 points of PyTorch's,
+// and verify --compute i8 must explain every flip.
+TEST_F(Digits, Int8ActivationsBesideInt8Storage) {
+  for (const char* model : {"tree", "dense"}) {
+    const double want = (*accuracy_)[std::string(model) == "tree" ? "tree_hard" : "dense"];
+    const nlohmann::json stored = RunModel(model, "i8");
+    const nlohmann::json computed = RunModel(model, "i8", "", "i8");
+    EXPECT_NEAR(stored["accuracy"].get<double>(), want, 0.01) << model;
+    EXPECT_NEAR(computed["accuracy"].get<double>(), want, 0.015) << model;
+    EXPECT_EQ(computed["verify_exit"], 0) << model;
+    if (std::string(model) == "tree") {
+      EXPECT_GE(computed["route_agreement"].get<double>(), 0.97);
+    }
   }
 }
 

@@ -3,11 +3,14 @@
 // families, fails (exit 1) with a precise report when a weight is perturbed or a routing node's
 // bias is nudged after export, explains a flip that float16 rounding causes (IEEE 754 half
 // precision, rounded by numpy.float16) in a tree and in an experts layer scored on its logits,
-// and refuses references that do not fit the model (exit 2).
+// and refuses references that do not fit the model (exit 2). With --compute i8 (int8
+// activations) it explains flips with the activation rounding term, including one built so that
+// only that term explains it, and still fails on a perturbed weight.
 // Then against references written without the exporter (tests/python/external_reference.py): one
 // of plain NumPy with inputs and outputs only, and one of a torch.nn model with names of its own.
 #include <gtest/gtest.h>
 
+#include <cmath>
 #include <nlohmann/json.hpp>
 #include <string>
 
@@ -68,15 +71,15 @@ struct Verified {
   std::string text;
 };
 
-Verified Verify(const std::string& model, const std::string& ref) {
+// `options` are passed on to verify (such as "--compute i8").
+Verified Verify(const std::string& model, const std::string& ref, const std::string& options = "") {
   Verified v;
-  auto r = testing::Run(testing::SprigCli() + " verify " + Quote(model) + " " +
-                        Quote(ref + "/reference.npz") + " --json 2>/dev/null");
+  const std::string command = testing::SprigCli() + " verify " + Quote(model) + " " +
+                              Quote(ref + "/reference.npz") + " " + options;
+  auto r = testing::Run(command + " --json 2>/dev/null");
   v.exit_code = r.exit_code;
   if (r.exit_code == 0 || r.exit_code == 1) v.report = nlohmann::json::parse(r.output);
-  v.text = testing::Run(testing::SprigCli() + " verify " + Quote(model) + " " +
-                        Quote(ref + "/reference.npz"))
-               .output;
+  v.text = testing::Run(command).output;
   return v;
 }
 
@@ -206,6 +209,76 @@ TEST(Verify, ExplainsAFlipCausedByInt8Rounding) {
   // The bound covers the proven worst case for the root's row, computed by NumPy.
   ASSERT_TRUE(flip.contains("bound_rounding"));
   EXPECT_GE(flip["bound_rounding"].get<double>(), 0.999 * made["int8_bound"].get<double>());
+}
+
+// The compute mode "i8" (int8 activations) on models packed at i8: every flip it makes is
+// explained once verify adds the activation rounding, (s_x / 2)·||ŵ||_1 per deciding logit, to
+// the bound; outputs stay within i8's tolerances. Both families, every routed kind.
+TEST(Verify, Int8ActivationsPassWithEveryFlipExplained) {
+  for (const char* config : {kStack, kTransformer}) {
+    testing::TempDir dir;
+    // A transformer's reference rows are one sequence, at most max_seq tokens.
+    const std::string ref = Export(dir, config, config == kStack ? 200 : 40);
+    const Verified v = Verify(Pack(ref, dir.File("i8.sprig"), "i8"), ref, "--compute i8");
+    EXPECT_EQ(v.exit_code, 0) << v.text;
+    EXPECT_EQ(v.report["compute"], "i8");
+    EXPECT_NE(v.text.find("compute i8"), std::string::npos) << v.text;
+    ASSERT_EQ(v.report["routing"].size(), 3u);
+    for (const auto& layer : v.report["routing"]) {
+      EXPECT_EQ(layer["unexplained"], 0) << v.text;
+      EXPECT_GT(layer["agreement_percent"].get<double>(), 90.0) << v.text;
+      for (const auto& flip : layer["disagreements"]) {
+        if (flip["verdict"] != "explained by rounding") continue;
+        // An i8 deciding row always has an activation term in this mode.
+        EXPECT_GT(flip["bound_activation"].get<double>(), 0.0) << v.text;
+      }
+    }
+    std::printf("%s", v.text.c_str());
+  }
+}
+
+// A root logit built so that quantising its row (not storing its weights) flips it: explained
+// with the activation term, and beyond what the bound would allow without it.
+TEST(Verify, ExplainsAFlipCausedByInt8Activations) {
+  testing::TempDir dir;
+  const std::string ref = Export(dir, kFlipConfig, 10);
+  const nlohmann::json made = nlohmann::json::parse(Case("i8act-flip " + Quote(ref)));
+  ASSERT_LT(made["exact_logit"].get<double>() * made["computed_logit"].get<double>(), 0.0)
+      << "NumPy's rendering of the int8 rule must flip the root";
+  const std::string model = Pack(ref, dir.File("i8.sprig"), "i8");
+  // Float activations on the same file: int8 storage alone does not flip it.
+  const Verified f32 = Verify(model, ref);
+  EXPECT_EQ(f32.exit_code, 0) << f32.text;
+  EXPECT_EQ(f32.report["routing"][0]["agreement_percent"], 100.0) << f32.text;
+  const Verified i8 = Verify(model, ref, "--compute i8");
+  const nlohmann::json flip = ExpectOneExplainedFlip(i8);
+  ASSERT_TRUE(flip.contains("bound_activation"));
+  EXPECT_GE(flip["bound_activation"].get<double>(), 0.999 * made["activation_bound"].get<double>());
+  EXPECT_GT(std::fabs(flip["margin"].get<double>()),
+            1.01 * (flip["bound_rounding"].get<double>() - flip["bound_activation"].get<double>() +
+                    flip["bound_input"].get<double>()))
+      << "the flip must need the activation term";
+}
+
+TEST(Verify, Int8ActivationsFailOnAPerturbedWeight) {
+  testing::TempDir dir;
+  const std::string ref = Export(dir, kStack, 40);
+  Case("perturb " + Quote(ref) + " layers.0.fc2.weight 5 0.5");
+  const Verified v = Verify(Pack(ref, dir.File("m.sprig"), "i8"), ref, "--compute i8");
+  EXPECT_EQ(v.exit_code, 1) << v.text;
+  EXPECT_FALSE(v.report["pass"].get<bool>());
+  EXPECT_EQ(v.report["first_divergent_layer"], 0) << v.text;
+  EXPECT_NE(v.text.find("FAIL"), std::string::npos);
+}
+
+// Nothing stored as i8: the mode would change nothing, so verify refuses it (exit 2) with the
+// session's message.
+TEST(Verify, Int8ActivationsRefusedWithoutInt8Weights) {
+  testing::TempDir dir;
+  const std::string ref = Export(dir, kStack, 10);
+  const Verified v = Verify(Pack(ref, dir.File("f32.sprig"), "f32"), ref, "--compute i8");
+  EXPECT_EQ(v.exit_code, 2) << v.text;
+  EXPECT_NE(v.text.find("--dtype i8"), std::string::npos) << v.text;
 }
 
 TEST(Verify, RefusesReferencesThatDoNotFitTheModel) {

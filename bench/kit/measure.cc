@@ -206,6 +206,7 @@ class Runner {
       for (size_t s = 0; s < kSides; ++s) {
         SessionOptions so;
         so.threads = t;
+        if (s == kModel) so.compute = o_.compute;
         SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(models_[s], so));
         sessions_.back().push_back(std::move(session));
       }

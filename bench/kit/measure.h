@@ -36,6 +36,9 @@ struct MeasureOptions {
   size_t decode_tokens = 128;         // transformer
   size_t repeat = 10;
   uint64_t seed = 1;  // random inputs
+  // The model side's SessionOptions::compute ("f32" or "i8"); the baseline and the floor
+  // always run "f32", the default every user gets.
+  std::string compute = "f32";
   // Inputs from a file; when empty the inputs are random (from `seed`). Stack: rows ×
   // input_dim values, taken in turn (a repetition longer than the file wraps to its start).
   // Transformer: prompts of prompt_tokens tokens, each with the decode_tokens tokens fed after

@@ -14,6 +14,15 @@
         the same with the root's weights rounded as int8 storage does (schema/README.md: scale
         s = max|w| / 127 in float32, q = numpy.rint(w / s)); also prints the proven bound on
         that logit's change, (s / 2) * ||x||_1.
+    verify_cases.py i8act-flip DIR
+        for stack layer 0, a leaf tree packed as i8 and run with int8 activations (sprig verify
+        --compute i8): row 0 becomes one large element and, elsewhere, values just under half a
+        quantisation step with the sign of the root's weight, so that quantising the row
+        (scale s_x = max|x| / 127 in float32, q = numpy.rint(x / s_x), the kernels' rule) moves
+        the root's logit by nearly its worst case, (s_x / 2) * ||w_hat||_1, far more than int8
+        storage can. The root's bias is then set so that the exact logit is -d/2, d the
+        quantised logit's distance from it, and the reference rewritten for the new weights.
+        Prints both logits and the storage and activation bounds.
     verify_cases.py experts-flip DIR
         the same for stack layer 0, an experts layer with top_k 1 scored on its logits (sigmoid
         or softmax_chosen): a row is moved along router.weight[a] - router.weight[b], a and b
@@ -85,6 +94,41 @@ def f16_flip(d, layer, rounding="f16"):
                       "int8_bound": s / 2 * float(np.abs(x.astype(np.float32)).sum())}))
 
 
+def quantize_activations(x):
+    """The kernels' rule (runtime/src/kernels/kernels.h): float32 scale, round half to even."""
+    x32 = x.astype(np.float32)
+    s = np.float32(np.abs(x32).max()) / np.float32(127)
+    q = np.clip(np.rint(x32 / s), -127, 127)
+    return (q.astype(np.float64) * float(s)), float(s)
+
+
+def i8act_flip(d):
+    weights_path = os.path.join(d, "weights.npz")
+    weights = dict(np.load(weights_path))
+    w = weights["layers.0.nodes.weight"][0].astype(np.float64)
+    w_hat, s_w = to_i8(w)
+    x = np.sign(w_hat) * 0.49 * (2.0 / 127)  # just under half a step of the scale below
+    x[0] = 2.0  # the largest element: s_x = 2 / 127
+    x_hat, s_x = quantize_activations(x)
+    b = float(weights["layers.0.nodes.bias"][0])
+    exact, quantized = float(w @ x + b), float(w_hat @ x_hat + b)
+    drift = quantized - exact
+    # Move the bias so that the exact logit is -drift / 2 and the computed one +drift / 2.
+    weights["layers.0.nodes.bias"][0] = np.float32(b - exact - drift / 2)
+    np.savez(weights_path, **weights)
+    model = load_model(d)
+    ref_path = os.path.join(d, "reference.npz")
+    inputs = np.load(ref_path)["inputs"].astype(np.float32)
+    inputs[0] = x.astype(np.float32)
+    np.savez(ref_path, **reference_arrays(model, inputs))
+    b = float(weights["layers.0.nodes.bias"][0])
+    x32 = inputs[0].astype(np.float64)
+    print(json.dumps({"exact_logit": float(w @ x32 + b),
+                      "computed_logit": float(w_hat @ quantize_activations(x32)[0] + b),
+                      "int8_bound": s_w / 2 * float(np.abs(x32).sum()),
+                      "activation_bound": s_x / 2 * float(np.abs(w_hat).sum())}))
+
+
 def experts_flip(d):
     model = load_model(d)
     ref_path = os.path.join(d, "reference.npz")
@@ -123,6 +167,8 @@ def main():
         f16_flip(d, int(sys.argv[3]))
     elif command == "experts-flip":
         experts_flip(d)
+    elif command == "i8act-flip":
+        i8act_flip(d)
     elif command == "i8-flip":
         f16_flip(d, int(sys.argv[3]), "i8")
     else:

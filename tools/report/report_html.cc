@@ -69,7 +69,8 @@ std::string InputText(const json& r) {
 std::string Settings(const json& r) {
   const json& s = r["settings"];
   std::string t = "<p><b>" + svg::Escape(r["family"].get<std::string>()) + "</b> model, kernels " +
-                  svg::Escape(r["kernels"].get<std::string>()) + ", " +
+                  svg::Escape(r["kernels"].get<std::string>()) + ", compute " +
+                  svg::Escape(r.value("compute", std::string("f32"))) + ", " +
                   std::to_string(s["repeat"].get<size_t>()) +
                   " repetitions interleaved with the baseline and the floor";
   if (r["family"] == "stack") {

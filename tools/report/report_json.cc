@@ -206,6 +206,7 @@ json ToJson(const Measurement& m, const ReportContext& c) {
   j["command"] = c.command;
   j["family"] = ToString(m.family);
   j["kernels"] = m.kernel_path;
+  j["compute"] = c.options.compute;  // the model side's; baseline and floor run f32
   j["machine"] = MachineJson(m.machine, c);
   const MeasureOptions& o = c.options;
   j["settings"] = {{"baseline", c.baseline_kind},

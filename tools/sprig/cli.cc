@@ -34,6 +34,17 @@ std::string HumanBytes(uint64_t bytes) {
   return buf;
 }
 
+CLI::Option* AddComputeOption(CLI::App* command, std::string& value) {
+  return command
+      ->add_option("--compute", value,
+                   "f32 (the default) or i8. i8 quantises the activations of the feed-forward "
+                   "weights stored as i8 (pack --dtype i8) to int8 and uses integer dot "
+                   "products: faster where the CPU has them, but results change beyond the "
+                   "storage rounding. Opt in only; never the default")
+      ->check(CLI::IsMember({"f32", "i8"}))
+      ->capture_default_str();
+}
+
 std::string HumanCount(uint64_t count) {
   const char* units[] = {"", " k", " M", " G", " T"};
   double v = static_cast<double>(count);

@@ -48,6 +48,10 @@ class Progress {
   bool tty_ = false;
 };
 
+// --compute f32|i8 (SessionOptions::compute) on run, routes, bench and verify, with one help
+// text. `value` keeps its default, "f32".
+CLI::Option* AddComputeOption(CLI::App* command, std::string& value);
+
 // Each verb registers its subcommand and returns a runner invoked if it was chosen.
 struct Verb {
   CLI::App* command = nullptr;

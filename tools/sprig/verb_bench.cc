@@ -1,5 +1,6 @@
 // sprig bench MODEL [--baseline OTHER.sprig | --dense-twin] [--input FILE] [--rows N |
 //                   --prompt-tokens P --decode-tokens G] [--batch N,...] [--threads N,...]
+//                   [--compute f32|i8]
 //                   [--repeat R] [--cold] [--json FILE] [--report FILE.html]
 //
 // Speed and memory of a model against a baseline, measured interleaved in one process (the code
@@ -36,6 +37,7 @@ struct BenchArgs {
   std::vector<size_t> batches, threads = {1};
   size_t rows = 256, prompt_tokens = 128, decode_tokens = 128, repeat = 10;
   uint64_t seed = 1;
+  std::string compute = "f32";  // --compute: the model side's compute mode
   // Which options were given, to refuse those that do not apply to the model's family.
   bool rows_given = false, batch_given = false, tokens_given = false;
 };
@@ -219,6 +221,7 @@ Result<bench::Measurement> Run(const BenchArgs& a, bench::ReportContext* context
   o.decode_tokens = a.decode_tokens;
   o.repeat = a.repeat;
   o.seed = a.seed;
+  o.compute = a.compute;
   context->paths[bench::kModel] = a.model;
   context->paths[bench::kBaseline] = a.baseline;
   context->baseline_kind = a.baseline.empty() ? "dense_twin" : "file";
@@ -323,8 +326,11 @@ void PrintText(const nlohmann::json& r) {
   const bool stack = r["family"] == "stack";
   std::printf("%s against %s\n", r["sides"]["model"]["label"].get<std::string>().c_str(),
               r["sides"]["baseline"]["label"].get<std::string>().c_str());
-  std::printf("kernels %s, %zu repetitions interleaved; median [min-max] over repetitions\n",
-              r["kernels"].get<std::string>().c_str(), r["settings"]["repeat"].get<size_t>());
+  std::printf(
+      "kernels %s, compute %s (the model; baseline and floor f32), %zu repetitions "
+      "interleaved; median [min-max] over repetitions\n",
+      r["kernels"].get<std::string>().c_str(), r["compute"].get<std::string>().c_str(),
+      r["settings"]["repeat"].get<size_t>());
   PrintMachine(r);
   PrintInput(r);
   std::printf("%-7s %-14s %24s %24s %20s %20s %20s %7s %s\n", "threads", "point",
@@ -433,6 +439,7 @@ Verb AddBench(CLI::App& app) {
                 "transformer: tokens decoded one at a time after the prompt")
       ->capture_default_str()
       ->each([a](const std::string&) { a->tokens_given = true; });
+  AddComputeOption(c, a->compute);
   c->add_option("--threads", a->threads, "threads per session, a list such as 1,2")
       ->delimiter(',')
       ->capture_default_str();

@@ -1,5 +1,5 @@
 // sprig run MODEL --input IN.npy|TEXTFILE --output OUT.npy [--routes R.npz] [--batch N]
-//           [--threads N] [--stats] [--cold]
+//           [--threads N] [--compute f32|i8] [--stats] [--cold]
 // sprig run MODEL --text TEXT --output OUT.npy ...
 // sprig routes MODEL --input IN.npy|TEXT [--json]
 //
@@ -31,6 +31,7 @@ struct RunArgs {
   std::string text_arg;  // run: --text, the input given on the command line
   size_t batch = 64;
   size_t threads = 1;
+  std::string compute = "f32";  // --compute
   bool json = false;
   bool stats = false;  // run: print memory and records touched to stderr afterwards
   bool cold = false;   // run: drop the model file from the page cache first
@@ -100,6 +101,7 @@ Result<RunResult> RunTokens(const RunArgs& a, std::shared_ptr<const Model> model
   const std::vector<int32_t> tokens(wide.begin(), wide.end());  // in range, so exact
   SessionOptions options;
   options.threads = a.threads;
+  options.compute = a.compute;
   SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model, options));
   r.rows = batch * length;
   uint64_t per_sequence = 1;
@@ -135,6 +137,7 @@ Result<RunResult> RunRows(const RunArgs& a, std::shared_ptr<const Model> model,
   SPRIG_RETURN_IF_ERROR(model->check_rows(x.data(), r.rows).WithContext(a.input));
   SessionOptions options;
   options.threads = a.threads;
+  options.compute = a.compute;
   SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model, options));
   r.output.resize(r.rows * out);
   r.model = model;
@@ -162,6 +165,7 @@ Result<RunResult> RunText(const RunArgs& a, std::shared_ptr<const Model> model,
   const ModelConfig& c = model->config();
   SessionOptions options;
   options.threads = a.threads;
+  options.compute = a.compute;
   SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(model, options));
   RunResult r;
   r.model = model;
@@ -438,6 +442,7 @@ void AddCommonOptions(CLI::App* c, RunArgs& a) {
   c->add_option("--batch", a.batch, "rows (stack) or sequences (transformer) per forward call")
       ->capture_default_str();
   c->add_option("--threads", a.threads, "threads per call (0: one per CPU)")->capture_default_str();
+  AddComputeOption(c, a.compute);
 }
 
 }  // namespace

@@ -1,5 +1,5 @@
-// sprig verify MODEL REFERENCE.npz [--atol A] [--rtol R] [--threads N] [--show N] [--json]
-//                                  [--require-routes]
+// sprig verify MODEL REFERENCE.npz [--atol A] [--rtol R] [--threads N] [--compute f32|i8]
+//                                  [--show N] [--json] [--require-routes]
 //
 // Runs a model on a reference file's inputs and compares outputs, every layer's outputs and
 // every routing decision with the reference (as sprig_torch.export writes it). Only `inputs`
@@ -11,6 +11,7 @@
 #include <cmath>
 #include <cstdio>
 #include <cstring>
+#include <functional>
 #include <nlohmann/json.hpp>
 
 #include "api/model_internals.h"
@@ -28,6 +29,7 @@ struct VerifyArgs {
   std::string model, reference;
   double atol = -1, rtol = -1;  // negative: the storage type's default
   size_t threads = 1;
+  std::string compute = "f32";  // --compute: the session's compute mode
   size_t show = 20;
   bool json = false;
   bool require_routes = false;  // a reference without every routed layer's routes does not fit
@@ -206,46 +208,73 @@ std::string DecidingTensor(const ModelConfig& c, size_t layer) {
          (c.layers[layer].kind == LayerKind::kExperts ? "router.weight" : "nodes.weight");
 }
 
-// For int8 deciding weights, an absolute bound per row on how far storage rounding moved the
-// margin. Every stored weight is within s / 2 of the source, s its row's scale (schema/README.md,
-// "int8 storage"), so a logit w·x moves by at most (s / 2)·||x||_1. A tree's deciding node is one
-// of the d ancestors of the reference's leaf (leaf and path mode number them alike), so the
-// largest scale among them bounds its s. A router's margin p_a - p_b moves by at most
-// (p_a + p_b + |p_a - p_b|)·max_j |Δlogit_j| <= 2·max_j |Δlogit_j| (first order, as in
-// sprig_torch's margin_bounds), with max_j over every expert; a logit margin l_a - l_b (sigmoid
-// and softmax_chosen scoring) moves by at most the same 2·max_j |Δlogit_j|, exactly. `x` is the
-// reference's layer input.
-std::vector<double> Int8MarginBounds(const Model& model, const RoutedLayer& r,
-                                     const std::vector<double>& x, uint64_t rows) {
-  const ModelConfig& c = model.config();
-  const LayerConfig& layer = c.layers[r.layer];
-  const bool experts = layer.kind == LayerKind::kExperts;
-  const std::vector<float> scales = internal::RowScales(model, DecidingTensor(c, r.layer));
-  if (scales.empty()) return {};
+// Bounds of the form per_row(row)·max per_node(n) over the deciding rows n that can move a
+// row's margin. A tree's deciding node is one of the d ancestors of the reference's leaf (leaf
+// and path mode number them alike), so the largest among them bounds it. A router's margin
+// p_a - p_b moves by at most (p_a + p_b + |p_a - p_b|)·max_j |Δlogit_j| <= 2·max_j |Δlogit_j|
+// (first order, as in sprig_torch's margin_bounds), with max_j over every expert; a logit margin
+// l_a - l_b (sigmoid and softmax_chosen scoring) moves by at most the same 2·max_j |Δlogit_j|,
+// exactly. A row whose reference route is not a leaf gets no bound (0).
+std::vector<double> DecidingBounds(const LayerConfig& layer, const RoutedLayer& r, uint64_t rows,
+                                   const std::vector<double>& per_node,
+                                   const std::function<double(uint64_t row)>& per_row) {
   std::vector<double> bounds(rows, 0.0);
-  auto scale = [&](uint64_t n) { return static_cast<double>(scales[n]); };
-  double router_max = 0;
-  if (experts) {
-    for (uint64_t j = 0; j < scales.size(); ++j) router_max = std::max(router_max, scale(j));
+  if (per_node.empty()) return bounds;
+  if (layer.kind == LayerKind::kExperts) {
+    const double largest = *std::max_element(per_node.begin(), per_node.end());
+    for (uint64_t row = 0; row < rows; ++row) bounds[row] = 2.0 * largest * per_row(row);
+    return bounds;
   }
   const uint64_t first_leaf = (uint64_t{1} << layer.depth) - 1;
   for (uint64_t row = 0; row < rows; ++row) {
-    double l1 = 0;
-    for (uint64_t j = 0; j < r.in; ++j) l1 += std::fabs(x[row * r.in + j]);
-    if (experts) {
-      bounds[row] = 2.0 * (router_max / 2.0) * l1;
-      continue;
-    }
     const int64_t leaf = r.want[row * r.width];
     if (leaf < 0 || static_cast<uint64_t>(leaf) > first_leaf) continue;  // not a leaf: no bound
-    double s = 0;
+    double largest = 0;
     for (uint64_t n = static_cast<uint64_t>(leaf) + first_leaf; n > 0;) {
       n = (n - 1) / 2;  // the parent, down to the root
-      s = std::max(s, scale(n));
+      largest = std::max(largest, per_node[n]);
     }
-    bounds[row] = (s / 2.0) * l1;
+    bounds[row] = largest * per_row(row);
   }
   return bounds;
+}
+
+// For int8 deciding weights, an absolute bound per row on how far storage rounding moved the
+// margin. Every stored weight is within s / 2 of the source, s its row's scale (schema/README.md,
+// "int8 storage"), so a logit w·x moves by at most (s / 2)·||x||_1 (DecidingBounds takes the
+// largest s that can decide). `x` is the reference's layer input.
+std::vector<double> Int8MarginBounds(const Model& model, const RoutedLayer& r,
+                                     const std::vector<double>& x, uint64_t rows) {
+  const ModelConfig& c = model.config();
+  const std::vector<float> scales = internal::RowScales(model, DecidingTensor(c, r.layer));
+  if (scales.empty()) return {};
+  std::vector<double> half_scales(scales.size());
+  for (size_t n = 0; n < scales.size(); ++n) half_scales[n] = static_cast<double>(scales[n]) / 2.0;
+  return DecidingBounds(c.layers[r.layer], r, rows, half_scales, [&](uint64_t row) {
+    double l1 = 0;
+    for (uint64_t j = 0; j < r.in; ++j) l1 += std::fabs(x[row * r.in + j]);
+    return l1;
+  });
+}
+
+// Compute mode "i8" with i8 deciding weights: an absolute bound per row on how far quantising
+// the layer's input moved the margin. sprig quantises its own input x (the trace's) with
+// s_x = max|x|/127, each element within s_x / 2 of x (round to nearest), so a logit ŵ·x moves
+// by at most (s_x / 2)·||ŵ||_1 (Hölder), ŵ the stored row dequantised (DecidingBounds takes
+// the largest ||ŵ||_1 that can decide).
+std::vector<double> ActivationMarginBounds(const Model& model, const RoutedLayer& r,
+                                           const std::vector<float>& x, uint64_t rows) {
+  const ModelConfig& c = model.config();
+  const std::vector<double> norms = internal::RowAbsSums(model, DecidingTensor(c, r.layer));
+  if (norms.empty()) return {};
+  return DecidingBounds(c.layers[r.layer], r, rows, norms, [&](uint64_t row) {
+    double max_abs = 0;
+    for (uint64_t j = 0; j < r.in; ++j) {
+      max_abs = std::max(max_abs, std::fabs(static_cast<double>(x[row * r.in + j])));
+    }
+    // The scale as the kernels round it (a float division), half of it per element.
+    return static_cast<double>(static_cast<float>(max_abs) / 127.0f) / 2.0;
+  });
 }
 
 // "layer 2", "layers 0, 1 and 3"
@@ -273,7 +302,7 @@ void NoteNotChecked(const std::vector<size_t>& missing, size_t of, const std::st
 
 // Builds the check's inputs: reference arrays next to what sprig computed.
 Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& got,
-                            bool require_routes) {
+                            bool require_routes, const std::string& compute) {
   const ModelConfig& c = model.config();
   VerifyInputs v;
   v.transformer = c.family == Family::kTransformer;
@@ -282,6 +311,7 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
   v.length = got.length;
   v.rows = got.rows;
   v.storage = DType::kF32;
+  v.compute = compute;
   const std::vector<TensorDescription> tensors = model.tensor_descriptions();
   for (const TensorDescription& t : tensors) {
     if (StorageRoundoff(t.dtype) > StorageRoundoff(v.storage)) v.storage = t.dtype;
@@ -356,6 +386,9 @@ Result<VerifyInputs> Gather(const Model& model, const Reference& ref, Computed& 
         r.input_error[row] = std::sqrt(sum);
       }
       if (r.storage == DType::kI8) r.int8_bounds = Int8MarginBounds(model, r, want_in, got.rows);
+      if (r.storage == DType::kI8 && compute == "i8") {
+        r.activation_bounds = ActivationMarginBounds(model, r, t.inputs, got.rows);
+      }
     }
     v.routed.push_back(std::move(r));
   }
@@ -379,6 +412,13 @@ void PrintCompared(const ComparedResult& c) {
   }
 }
 
+// "0.0123": a bound as the text report prints it (%.3g)
+std::string Figure(double value) {
+  char text[32];
+  std::snprintf(text, sizeof(text), "%.3g", value);
+  return text;
+}
+
 std::string RouteText(const std::vector<int64_t>& r) {
   std::string s;
   for (size_t i = 0; i < r.size(); ++i) s += (i ? "," : "") + std::to_string(r[i]);
@@ -387,7 +427,8 @@ std::string RouteText(const std::vector<int64_t>& r) {
 
 void PrintReport(const VerifyArgs& a, const VerifyReport& r) {
   std::printf("verify %s against %s\n", a.model.c_str(), a.reference.c_str());
-  std::printf("  storage %s: rtol %.3g, atol %.3g%s\n", ToString(r.storage), r.rtol, r.atol_factor,
+  std::printf("  storage %s, compute %s: rtol %.3g, atol %.3g%s\n", ToString(r.storage),
+              r.compute.c_str(), r.rtol, r.atol_factor,
               r.atol_is_relative ? " x RMS of each compared array" : "");
   PrintCompared(r.output);
   for (const ComparedResult& l : r.layers) PrintCompared(l);
@@ -405,12 +446,15 @@ void PrintReport(const VerifyArgs& a, const VerifyReport& r) {
         std::printf("    ... %zu more (all in --json)\n", l.flips.size() - a.show);
         break;
       }
+      // In the compute mode "i8" the rounding part names its activation term.
+      const std::string activation =
+          r.compute == "i8" ? ", of it activations " + Figure(f.bound_activation) : "";
       std::printf(
-          "    row %llu: reference %s, sprig %s; margin %.3g, bound %.3g (rounding %.3g "
+          "    row %llu: reference %s, sprig %s; margin %.3g, bound %.3g (rounding %.3g%s "
           "+ input error %.3g): %s\n",
           static_cast<unsigned long long>(f.row), RouteText(f.want).c_str(),
           RouteText(f.got).c_str(), f.margin, f.bound_rounding + f.bound_input, f.bound_rounding,
-          f.bound_input, FlipVerdictText(f.verdict));
+          activation.c_str(), f.bound_input, FlipVerdictText(f.verdict));
     }
   }
   for (const std::string& n : r.not_checked) std::printf("  %s\n", n.c_str());
@@ -441,6 +485,7 @@ nlohmann::json ReportJson(const VerifyArgs& a, const VerifyReport& r) {
   j["model"] = a.model;
   j["reference"] = a.reference;
   j["storage"] = ToString(r.storage);
+  j["compute"] = r.compute;
   j["rtol"] = r.rtol;
   j["atol"] = r.atol_factor;
   j["atol_relative_to_rms"] = r.atol_is_relative;
@@ -460,6 +505,7 @@ nlohmann::json ReportJson(const VerifyArgs& a, const VerifyReport& r) {
                        {"sprig", f.got},
                        {"margin", f.margin},
                        {"bound_rounding", f.bound_rounding},
+                       {"bound_activation", f.bound_activation},
                        {"bound_input", f.bound_input},
                        {"verdict", FlipVerdictText(f.verdict)}});
     }
@@ -489,12 +535,13 @@ int RunVerify(const VerifyArgs& a) {
   const Reference ref(std::move(*archive));
   SessionOptions options;
   options.threads = a.threads;
+  options.compute = a.compute;
   auto session = Session::create(*model, options);
   if (!session.ok()) return Fail("verify", session.status());
   auto got = (*model)->config().family == Family::kStack ? RunStack(**session, ref)
                                                          : RunTokens(**session, ref);
   if (!got.ok()) return Fail("verify", got.status());
-  auto inputs = Gather(**model, ref, *got, a.require_routes);
+  auto inputs = Gather(**model, ref, *got, a.require_routes, a.compute);
   if (!inputs.ok()) return Fail("verify", inputs.status());
   Tolerance tol = DefaultTolerance(inputs->storage);
   if (a.rtol >= 0) tol.rtol = a.rtol;
@@ -529,6 +576,7 @@ Verb AddVerify(CLI::App& app) {
                 "absolute tolerance (default: a factor of each array's RMS, by storage type)");
   c->add_option("--rtol", args->rtol, "relative tolerance (default: by storage type)");
   c->add_option("--threads", args->threads, "threads (0: one per CPU)")->capture_default_str();
+  AddComputeOption(c, args->compute);
   c->add_option("--show", args->show, "disagreements listed per layer in the text report")
       ->capture_default_str();
   c->add_flag("--json", args->json, "print the report as JSON");
@@ -538,8 +586,8 @@ Verb AddVerify(CLI::App& app) {
   c->footer(
       "An element passes when |sprig - reference| <= atol + rtol * |reference|. A routing "
       "disagreement is explained when its margin is within what the storage type's rounding, "
-      "float32 accumulation and the measured error of the layer's input can move it; rows "
-      "after a flip are not compared.");
+      "float32 accumulation, with --compute i8 the int8 rounding of the layer's input, and the "
+      "measured error of the layer's input can move it; rows after a flip are not compared.");
   return {c, [args] { return RunVerify(*args); }};
 }
 

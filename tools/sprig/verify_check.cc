@@ -89,6 +89,10 @@ Flip JudgeFlip(const RoutedLayer& l, uint64_t row, bool follows_earlier) {
   const double gamma = static_cast<double>(l.in + 1) * std::ldexp(1.0, -24);
   f.bound_rounding = l.int8_bounds.empty() ? (StorageRoundoff(l.storage) + gamma) * l.scales[row]
                                            : l.int8_bounds[row] + gamma * l.scales[row];
+  if (!l.activation_bounds.empty()) {
+    f.bound_activation = l.activation_bounds[row];
+    f.bound_rounding += f.bound_activation;
+  }
   f.bound_input = l.norms[row] * l.input_error[row];
   // The bounds are first order; 1% slack covers the second-order terms.
   if (std::fabs(f.margin) <= 1.01 * (f.bound_rounding + f.bound_input)) {
@@ -179,6 +183,7 @@ const char* FlipVerdictText(FlipVerdict v) {
 VerifyReport CheckAgainstReference(const VerifyInputs& in, const Tolerance& tol) {
   VerifyReport report;
   report.storage = in.storage;
+  report.compute = in.compute;
   report.rtol = tol.rtol;
   report.atol_factor = tol.atol;
   report.atol_is_relative = tol.atol_relative_to_rms;

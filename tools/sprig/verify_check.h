@@ -16,7 +16,13 @@
 //   relative error bound: each stored weight is within half its row's scale s of the source
 //   (schema/README.md), so for them u * scale is replaced by an absolute bound on the margin,
 //   (s / 2) * ||x||_1 for a tree node and 2 * (s / 2) * ||x||_1 for a router's p_a - p_b, with s
-//   the largest scale among the rows that can decide (RoutedLayer::int8_bounds). A disagreement in
+//   the largest scale among the rows that can decide (RoutedLayer::int8_bounds). In the compute
+//   mode "i8" (int8 activations) an i8-stored deciding row's logit ŵ·x is computed on x
+//   quantised with scale s_x = max|x|/127: rounding to nearest leaves |x_i - s_x q_i| <= s_x/2
+//   for every element, so by Hölder |ŵ·x - ŵ·(s_x q)| <= (s_x/2)·||ŵ||_1, ŵ the dequantised row.
+//   That term, with the largest ||ŵ||_1 among the rows that can decide (twice it for a router's
+//   margin, as above), is added to the bound (RoutedLayer::activation_bounds); the integer sum
+//   itself is exact. A disagreement in
 //   a row that already flipped at an earlier layer *follows an earlier flip*. Anything else is
 //   unexplained and fails the check.
 // - Rows that follow a flip are not compared at the flipped layer or after it: for a causal
@@ -72,6 +78,9 @@ struct RoutedLayer {
   // int8 deciding weights only (empty otherwise): [rows] absolute bounds on how far storage
   // rounding moved each row's margin, used in place of StorageRoundoff(storage) * scales.
   std::vector<double> int8_bounds;
+  // Compute mode "i8" with i8 deciding weights only (empty otherwise): [rows] absolute bounds on
+  // how far quantising the row's input moved its margin, (s_x / 2)·||ŵ||_1 per logit.
+  std::vector<double> activation_bounds;
 };
 
 struct VerifyInputs {
@@ -81,6 +90,7 @@ struct VerifyInputs {
   uint64_t sequences = 0, length = 0;
   uint64_t rows = 0;            // rows of layers and routes (tokens of a transformer)
   DType storage = DType::kF32;  // the coarsest storage type in the model
+  std::string compute = "f32";  // the session's compute mode (SessionOptions::compute)
   Compared output;
   std::vector<Compared> layers;
   std::vector<RoutedLayer> routed;  // in layer order
@@ -105,7 +115,8 @@ struct Flip {
   uint64_t row = 0;
   std::vector<int64_t> want, got;
   double margin = 0;
-  double bound_rounding = 0, bound_input = 0;
+  // bound_rounding includes bound_activation, the part due to int8 activations (compute "i8").
+  double bound_rounding = 0, bound_activation = 0, bound_input = 0;
   FlipVerdict verdict = FlipVerdict::kUnexplained;
 };
 
@@ -120,6 +131,7 @@ struct RoutingResult {
 
 struct VerifyReport {
   DType storage = DType::kF32;
+  std::string compute = "f32";
   double rtol = 0, atol_factor = 0;
   bool atol_is_relative = true;
   ComparedResult output;

@@ -26,6 +26,15 @@ struct SessionOptions {
   // environment variable, if set); otherwise one of "scalar", "sse42", "avx2", "avx512",
   // "neon", which must be available. Default: "".
   std::string kernel_path;
+  // Arithmetic of the feed-forward layers (docs/storage-types.md, "Int8 activations"). "f32" (the
+  // default): activations stay float32 whatever the weights' storage type. "i8": opt in, never the
+  // default: a feed-forward matrix stored as i8 (packed with --dtype i8) reads its input rows
+  // quantised to int8 (one scale per row) and multiplies them in exact integer arithmetic;
+  // matrices of other storage types, path trees' output rows and a transformer's attention and
+  // head stay float32. "i8" changes results by more than the storage rounding (verify bounds
+  // it), though still not with the batch or thread count. Refused for a model that stores no
+  // feed-forward weight as i8.
+  std::string compute = "f32";
 };
 
 // The routing decisions of one forward call, one entry per routed layer.
@@ -156,6 +165,8 @@ class SPRIG_API Session {
   const Model& model() const { return *model_; }
   // The kernel instruction set this session runs ("avx2", ...).
   const char* kernel_path() const;
+  // The compute mode of SessionOptions::compute: "f32" or "i8".
+  const char* compute() const;
   size_t threads() const;
 
  private:

@@ -1,5 +1,7 @@
 #include "api/model_internals.h"
 
+#include <string_view>
+
 #include "api/model_impl.h"
 #include "base/status_macros.h"
 #include "kernels/kernels.h"
@@ -27,6 +29,7 @@ struct LayerCaller::State {
   // Layers mark the records they read whenever a log is given, as in a session; kept so that the
   // timed call does the same work.
   layers::TouchLog touched;
+  bool int8_activations = false;  // the session's compute mode is "i8"
 };
 
 LayerCaller::LayerCaller(std::unique_ptr<State> state) : state_(std::move(state)) {}
@@ -45,6 +48,7 @@ Result<std::unique_ptr<LayerCaller>> LayerCaller::Create(std::shared_ptr<const M
   state->kernels = &kernels::Kernels(path);
   if (like.threads() > 1) state->pool = std::make_unique<layers::ThreadPool>(like.threads());
   state->scratch.resize(like.threads());
+  state->int8_activations = std::string_view(like.compute()) == "i8";
   for (const auto& layer : state->network->layers()) {
     state->touched.bits.emplace_back((layer->record_count() + 63) / 64, 0);
   }
@@ -59,11 +63,26 @@ void LayerCaller::Forward(size_t layer, const float* x, size_t rows, float* y) {
   exec.scratch = &state_->scratch;
   exec.single_row = rows == 1;
   exec.touched = &state_->touched;
+  exec.int8_activations = state_->int8_activations;
   state_->network->layers()[layer]->Forward(exec, x, rows, y, nullptr);
 }
 
 const char* LayerCaller::kernel_path() const {
   return kernels::ToString(state_->kernels->path);
+}
+
+std::vector<double> RowAbsSums(const Model& model, const std::string& name) {
+  const format::ModelFile& file = *Model::Impl::Of(model).file;
+  const format::TensorInfo* t = file.Find(name);
+  if (t == nullptr || t->dtype != DType::kI8 || t->shape.size() != 2) return {};
+  std::vector<double> sums(t->shape[0]);
+  for (uint64_t row = 0; row < sums.size(); ++row) {
+    const auto* q = reinterpret_cast<const int8_t*>(file.Row(*t, row));
+    int64_t total = 0;
+    for (uint64_t i = 0; i < t->shape[1]; ++i) total += q[i] < 0 ? -int64_t{q[i]} : int64_t{q[i]};
+    sums[row] = static_cast<double>(*file.RowScales(*t, row)) * static_cast<double>(total);
+  }
+  return sums;
 }
 
 }  // namespace sprig::internal

@@ -20,7 +20,8 @@ namespace sprig::internal {
 std::vector<float> RowScales(const Model& model, const std::string& name);
 
 // Runs one feed-forward layer of a model alone, set up as a given session of the model runs it
-// (its kernel path, its threads with scratch of their own; the single-row path for one row), so
+// (its kernel path and compute mode, its threads with scratch of their own; the single-row path
+// for one row), so
 // that `sprig bench` can time a routed layer against its machine floor on the inputs the layer
 // really receives (captured with a LayerTrace). Not thread-safe, like a Session.
 class LayerCaller {
@@ -43,5 +44,10 @@ class LayerCaller {
   explicit LayerCaller(std::unique_ptr<State> state);
   std::unique_ptr<State> state_;
 };
+
+// The 1-norm of each dequantised row of the same kind of tensor, ||ŵ_row||_1 = s_row·Σ|q|, in
+// double: sprig verify bounds how far quantising a row's activations (compute mode "i8") moved
+// a logit with them. Empty as RowScales is. Reads every value of the tensor.
+std::vector<double> RowAbsSums(const Model& model, const std::string& name);
 
 }  // namespace sprig::internal

@@ -22,6 +22,31 @@ double SecondsSince(std::chrono::steady_clock::time_point start) {
   return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
 }
 
+// The compute mode "i8" applies to feed-forward matrices stored as i8 (an attention
+// projection of a transformer block stays float, and a path tree's output rows are added as
+// float activations times the stored rows); a model without one would only be slower. Rows
+// longer than the integer kernels' exact range are refused too.
+Status CheckInt8Activations(const Model& model) {
+  bool applies = false;
+  for (const TensorDescription& tensor : model.tensor_descriptions()) {
+    if (tensor.dtype != DType::kI8 || tensor.layer < 0) continue;
+    if (tensor.name.find(".attn.") != std::string::npos) continue;
+    if (tensor.name.ends_with("nodes.out")) continue;
+    if (!tensor.shape.empty() && tensor.shape.back() > kernels::kMaxQuantizedLength) {
+      return Status::InvalidArgument(model.path() + ": tensor " + tensor.name + " has rows of " +
+                                     std::to_string(tensor.shape.back()) +
+                                     " values; compute \"i8\" needs at most " +
+                                     std::to_string(kernels::kMaxQuantizedLength));
+    }
+    applies = true;
+  }
+  if (applies) return Status::Ok();
+  return Status::InvalidArgument(
+      model.path() +
+      " stores no feed-forward weight as i8, so compute \"i8\" (int8 activations) has nothing "
+      "to run on; pack the model with --dtype i8 to use it");
+}
+
 }  // namespace
 
 // Everything a session's calls change; the model's network is shared and never changes.
@@ -33,7 +58,8 @@ struct Session::State {
   std::unique_ptr<network::Workspace> workspace;
   network::KvCache cache;  // transformer models only
   SessionStats stats;
-  layers::TouchLog touched;  // one bitset per model layer, sized at creation
+  layers::TouchLog touched;       // one bitset per model layer, sized at creation
+  bool int8_activations = false;  // SessionOptions::compute == "i8"
 
   layers::Exec MakeExec(bool single_row) {
     layers::Exec exec;
@@ -42,6 +68,7 @@ struct Session::State {
     exec.scratch = &scratch;
     exec.single_row = single_row;
     exec.touched = &touched;
+    exec.int8_activations = int8_activations;
     return exec;
   }
 };
@@ -62,6 +89,13 @@ Result<std::unique_ptr<Session>> Session::create(std::shared_ptr<const Model> mo
     SPRIG_ASSIGN_OR_RETURN(path, kernels::ResolvePath(options.kernel_path.c_str()));
   }
   state->kernels = &kernels::Kernels(path);
+  if (options.compute == "i8") {
+    SPRIG_RETURN_IF_ERROR(CheckInt8Activations(*model));
+    state->int8_activations = true;
+  } else if (options.compute != "f32") {
+    return Status::InvalidArgument("compute is \"" + options.compute +
+                                   "\"; expected \"f32\" (the default) or \"i8\"");
+  }
   size_t threads = options.threads;
   if (threads == 0) threads = std::max(1u, std::thread::hardware_concurrency());
   if (threads > 256) {
@@ -78,6 +112,9 @@ Result<std::unique_ptr<Session>> Session::create(std::shared_ptr<const Model> mo
 
 const char* Session::kernel_path() const {
   return kernels::ToString(state_->kernels->path);
+}
+const char* Session::compute() const {
+  return state_->int8_activations ? "i8" : "f32";
 }
 size_t Session::threads() const {
   return state_->scratch.size();

@@ -22,6 +22,7 @@
 #pragma once
 
 #include <cassert>
+#include <cmath>
 #include <cstddef>
 #include <cstdint>
 #include <string_view>
@@ -72,6 +73,47 @@ struct Int8Kernels {
   void (*axpy_rows)(const float* a, const void* const* rows, size_t count, float* y, size_t n);
 };
 
+// int8 activations (the opt-in compute mode "i8", never the default): an activation row is
+// quantised once, then multiplied with int8 weight rows in integer arithmetic.
+//
+// Quantisation, symmetric with one scale per row: s = max_i |x[i]| / 127 (rounded to float),
+// q[i] = round_to_nearest_even(x[i] / s) clamped to [-127, 127]; a row of zeros has s = 0 and
+// q = 0. Rounding to nearest gives |x[i] - s·q[i]| <= s/2 (tools/sprig/verify_check.h bounds a
+// logit's error with it). x must be finite.
+//
+// Dot products are exact: Σ q_x[i]·q_w[i] accumulates in int32, which cannot overflow for
+// n <= kMaxQuantizedLength (|q_x| <= 127, |q_w| <= 128: 128·127·2^17 < 2^31). The float output
+// is formed by one expression on every path, QuantizedOutput below, so every path gives the
+// same bits as the scalar reference, and a row's result does not depend on its batch or on the
+// thread count.
+inline constexpr size_t kMaxQuantizedLength = size_t{1} << 17;
+
+struct Int8ActivationKernels {
+  // Quantises x[0, n) into q[0, n) and returns the scale s (rule above).
+  float (*quantize)(const float* x, int8_t* q, size_t n);
+  // Returns Σ_i x[i]·w[i], i < n, exactly (n <= kMaxQuantizedLength).
+  int32_t (*dot)(const int8_t* x, const int8_t* w, size_t n);
+  // y[o] = QuantizedOutput(Σ_i x[i]·w[o·in + i], x_scale, w_scales[o], bias, o), o < out:
+  // the int8 weight rows W[o] = w_scales[o]·w[o, :] against a row quantised with x_scale.
+  // `bias` may be null.
+  void (*gemv)(const int8_t* w, const float* w_scales, const int8_t* x, float x_scale,
+               const float* bias, float* y, size_t out, size_t in);
+  // Y[r, o] as gemv for each row r < rows of X [rows, in] with its scale x_scales[r]; Y is
+  // [rows, out]. Equal to `rows` gemv calls, bit for bit.
+  void (*gemm_rows)(const int8_t* w, const float* w_scales, const int8_t* x, const float* x_scales,
+                    const float* bias, float* y, size_t rows, size_t out, size_t in);
+};
+
+// The one float expression of an int8-activation output: fma(s_x·s_w, float(sum), bias[o])
+// (bias null: 0), the product s_x·s_w rounded, then one fused multiply-add rounded once. A
+// fused multiply-add is correctly rounded wherever it runs (an instruction where the path has
+// one, the C library's otherwise), and a compiler may not split or contract it differently per
+// file, so every path gives the same bits.
+inline float QuantizedOutput(int32_t sum, float x_scale, float w_scale, const float* bias,
+                             size_t o) {
+  return std::fma(x_scale * w_scale, static_cast<float>(sum), bias != nullptr ? bias[o] : 0.0f);
+}
+
 struct KernelTable {
   KernelPath path;
   WeightKernels<float> f32;
@@ -102,6 +144,10 @@ struct KernelTable {
   void (*f16_to_f32)(const uint16_t* src, float* dst, size_t n);
   void (*f32_to_bf16)(const float* src, uint16_t* dst, size_t n);
   void (*bf16_to_f32)(const uint16_t* src, float* dst, size_t n);
+
+  // int8 activations with int8 weights (see Int8ActivationKernels). Set by every path's
+  // table; the default member initializer only keeps the tables' aggregate lists short.
+  Int8ActivationKernels int8_activations = {};
 };
 
 // "scalar", "sse42", "avx2", "avx512", "neon".

@@ -3,6 +3,7 @@
 #include <immintrin.h>
 
 #include "kernels/kernels_internal.h"
+#include "kernels/kernels_quantized.h"
 #include "kernels/kernels_simd.h"
 
 namespace sprig::kernels {
@@ -42,7 +43,67 @@ struct Avx2Traits {
   }
 };
 
-constexpr KernelTable kAvx2Table = SimdKernels<Avx2Traits>::MakeTable(KernelPath::kAvx2);
+// int8 activations: 32 bytes at a time. vpmaddubsw multiplies unsigned by signed bytes and
+// adds pairs into int16 with saturation, so the sign moves from the weight onto the activation:
+// |w|·(x·sign w) = x·w, with |w| <= 128 as an unsigned byte (abs of -128 is 0x80, read as 128:
+// correct even for a -128 no packer writes) and |x·sign w| <= 127 (x is quantised to
+// [-127, 127]). A pair sum is then at most 2·128·127 = 32512 < 32767: it never saturates.
+// vpmaddwd by ones widens the pairs into int32 lanes, exactly.
+struct Avx2QuantizedOps {
+  static int32_t Sum(__m256i v) {
+    __m128i s = _mm_add_epi32(_mm256_castsi256_si128(v), _mm256_extracti128_si256(v, 1));
+    s = _mm_add_epi32(s, _mm_shuffle_epi32(s, 0x4e));
+    s = _mm_add_epi32(s, _mm_shuffle_epi32(s, 0xb1));
+    return _mm_cvtsi128_si32(s);
+  }
+  static int32_t Dot(const int8_t* x, const int8_t* w, size_t n) {
+    const __m256i ones = _mm256_set1_epi16(1);
+    __m256i acc = _mm256_setzero_si256();
+    size_t i = 0;
+    for (; i + 32 <= n; i += 32) {
+      const __m256i wv = _mm256_loadu_si256(reinterpret_cast<const __m256i*>(w + i));
+      const __m256i xv = _mm256_loadu_si256(reinterpret_cast<const __m256i*>(x + i));
+      const __m256i pairs = _mm256_maddubs_epi16(_mm256_abs_epi8(wv), _mm256_sign_epi8(xv, wv));
+      acc = _mm256_add_epi32(acc, _mm256_madd_epi16(pairs, ones));
+    }
+    return Sum(acc) + ScalarQuantizedOps::Dot(x + i, w + i, n - i);
+  }
+  static float MaxAbs(const float* x, size_t n) {
+    const __m256 sign = _mm256_set1_ps(-0.0f);
+    __m256 max = _mm256_setzero_ps();
+    size_t i = 0;
+    for (; i + 8 <= n; i += 8)
+      max = _mm256_max_ps(max, _mm256_andnot_ps(sign, _mm256_loadu_ps(x + i)));
+    alignas(32) float lanes[8];
+    _mm256_store_ps(lanes, max);
+    float result = ScalarQuantizedOps::MaxAbs(x + i, n - i);
+    for (float lane : lanes) result = lane > result ? lane : result;
+    return result;
+  }
+  // 32 values at a time: divide, round to nearest even (the MXCSR default), clamp, then narrow
+  // int32 -> int16 -> int8 with saturating packs (in range already) and undo their lane order.
+  static void Divide(const float* x, float scale, int8_t* q, size_t n) {
+    const __m256 s = _mm256_set1_ps(scale);
+    const __m256 low = _mm256_set1_ps(-127.0f), high = _mm256_set1_ps(127.0f);
+    auto convert = [&](const float* p) {
+      const __m256 v = _mm256_round_ps(_mm256_div_ps(_mm256_loadu_ps(p), s),
+                                       _MM_FROUND_TO_NEAREST_INT | _MM_FROUND_NO_EXC);
+      return _mm256_cvtps_epi32(_mm256_min_ps(_mm256_max_ps(v, low), high));
+    };
+    size_t i = 0;
+    for (; i + 32 <= n; i += 32) {
+      const __m256i ab = _mm256_packs_epi32(convert(x + i), convert(x + i + 8));
+      const __m256i cd = _mm256_packs_epi32(convert(x + i + 16), convert(x + i + 24));
+      const __m256i bytes = _mm256_permutevar8x32_epi32(_mm256_packs_epi16(ab, cd),
+                                                        _mm256_setr_epi32(0, 4, 1, 5, 2, 6, 3, 7));
+      _mm256_storeu_si256(reinterpret_cast<__m256i*>(q + i), bytes);
+    }
+    ScalarQuantizedOps::Divide(x + i, scale, q + i, n - i);
+  }
+};
+
+constexpr KernelTable kAvx2Table =
+    WithInt8Activations<Avx2QuantizedOps>(SimdKernels<Avx2Traits>::MakeTable(KernelPath::kAvx2));
 
 }  // namespace
 

@@ -11,7 +11,9 @@
 #endif
 
 #include "kernels/kernels_internal.h"
+#include "kernels/kernels_quantized.h"
 #include "kernels/kernels_simd.h"
+#include "platform/cpu.h"
 
 namespace sprig::kernels {
 namespace {
@@ -74,12 +76,90 @@ struct Avx512Traits {
   }
 };
 
-constexpr KernelTable kAvx512Table = SimdKernels<Avx512Traits>::MakeTable(KernelPath::kAvx512);
+// int8 activations, 64 bytes at a time; the tail is a masked load, whose zeros add nothing.
+// Both forms move the sign from the weight onto the activation, |w|·(x·sign w) = x·w, because
+// the instructions multiply unsigned by signed bytes: |w| <= 128 is exact as an unsigned byte
+// (even for a -128) and x·sign w stays in [-127, 127] (x is quantised to it; negating a -127
+// cannot wrap). (The other way, an offset x + 128 with a correction 128·Σw, would need Σw per
+// row, and its pair sums, up to 2·255·128, would saturate vpmaddubsw.)
+struct Avx512QuantizedBase {
+  static __mmask64 TailMask(size_t count) {
+    return count >= 64 ? ~__mmask64{0} : (__mmask64{1} << count) - 1;
+  }
+  // The activation bytes negated where w < 0 (where w = 0 the product with |w| is 0 anyway).
+  static __m512i SignedActivation(__m512i xv, __m512i wv) {
+    return _mm512_mask_sub_epi8(xv, _mm512_movepi8_mask(wv), _mm512_setzero_si512(), xv);
+  }
+  static float MaxAbs(const float* x, size_t n) {
+    __m512 max = _mm512_setzero_ps();
+    size_t i = 0;
+    for (; i + 16 <= n; i += 16) max = _mm512_max_ps(max, _mm512_abs_ps(_mm512_loadu_ps(x + i)));
+    const float lanes = _mm512_reduce_max_ps(max);
+    const float tail = ScalarQuantizedOps::MaxAbs(x + i, n - i);
+    return lanes > tail ? lanes : tail;
+  }
+  // 16 values at a time: divide, clamp, round to nearest even and narrow with a saturating
+  // int32 -> int8 conversion (in range already). Clamping before rounding gives the same
+  // integers as rounding first: the bounds are integers.
+  static void Divide(const float* x, float scale, int8_t* q, size_t n) {
+    const __m512 s = _mm512_set1_ps(scale);
+    const __m512 low = _mm512_set1_ps(-127.0f), high = _mm512_set1_ps(127.0f);
+    size_t i = 0;
+    for (; i + 16 <= n; i += 16) {
+      const __m512 v =
+          _mm512_min_ps(_mm512_max_ps(_mm512_div_ps(_mm512_loadu_ps(x + i), s), low), high);
+      const __m512i ints =
+          _mm512_cvt_roundps_epi32(v, _MM_FROUND_TO_NEAREST_INT | _MM_FROUND_NO_EXC);
+      _mm_storeu_si128(reinterpret_cast<__m128i*>(q + i), _mm512_cvtsepi32_epi8(ints));
+    }
+    ScalarQuantizedOps::Divide(x + i, scale, q + i, n - i);
+  }
+};
+
+// AVX-512 BW: vpmaddubsw (pair sums <= 2·128·127 = 32512: no saturation), vpmaddwd by ones.
+struct Avx512QuantizedOps : Avx512QuantizedBase {
+  static int32_t Dot(const int8_t* x, const int8_t* w, size_t n) {
+    const __m512i ones = _mm512_set1_epi16(1);
+    __m512i acc = _mm512_setzero_si512();
+    for (size_t i = 0; i < n; i += 64) {
+      const __mmask64 mask = TailMask(n - i);
+      const __m512i wv = _mm512_maskz_loadu_epi8(mask, w + i);
+      const __m512i xv = _mm512_maskz_loadu_epi8(mask, x + i);
+      const __m512i pairs = _mm512_maddubs_epi16(_mm512_abs_epi8(wv), SignedActivation(xv, wv));
+      acc = _mm512_add_epi32(acc, _mm512_madd_epi16(pairs, ones));
+    }
+    return _mm512_reduce_add_epi32(acc);
+  }
+};
+
+// AVX-512 VNNI: vpdpbusd adds four unsigned-by-signed byte products to each int32 lane with no
+// intermediate rounding or saturation (its saturating twin is vpdpbusds); each lane gains at
+// most 4·128·127 per step, and the total stays below 2^31 for n <= kMaxQuantizedLength.
+struct Avx512VnniQuantizedOps : Avx512QuantizedBase {
+  __attribute__((target("avx512vnni"))) static int32_t Dot(const int8_t* x, const int8_t* w,
+                                                           size_t n) {
+    __m512i acc = _mm512_setzero_si512();
+    for (size_t i = 0; i < n; i += 64) {
+      const __mmask64 mask = TailMask(n - i);
+      const __m512i wv = _mm512_maskz_loadu_epi8(mask, w + i);
+      const __m512i xv = _mm512_maskz_loadu_epi8(mask, x + i);
+      acc = _mm512_dpbusd_epi32(acc, _mm512_abs_epi8(wv), SignedActivation(xv, wv));
+    }
+    return _mm512_reduce_add_epi32(acc);
+  }
+};
+
+constexpr KernelTable kAvx512Table = WithInt8Activations<Avx512QuantizedOps>(
+    SimdKernels<Avx512Traits>::MakeTable(KernelPath::kAvx512));
+constexpr KernelTable kAvx512VnniTable = WithInt8Activations<Avx512VnniQuantizedOps>(
+    SimdKernels<Avx512Traits>::MakeTable(KernelPath::kAvx512));
 
 }  // namespace
 
+// VNNI is not part of the path's requirements (the first AVX-512 cores lack it): the table with
+// vpdpbusd is handed out only where the CPU has it. Its results equal the other's bit for bit.
 const KernelTable& Avx512Kernels() {
-  return kAvx512Table;
+  return platform::DetectCpu().avx512vnni ? kAvx512VnniTable : kAvx512Table;
 }
 
 }  // namespace sprig::kernels

@@ -3,6 +3,7 @@
 #include <arm_neon.h>
 
 #include "kernels/kernels_internal.h"
+#include "kernels/kernels_quantized.h"
 #include "kernels/kernels_simd.h"
 
 namespace sprig::kernels {
@@ -27,7 +28,55 @@ struct NeonTraits {
   }
 };
 
-constexpr KernelTable kNeonTable = SimdKernels<NeonTraits>::MakeTable(KernelPath::kNeon);
+// int8 activations, 16 bytes at a time. NEON multiplies signed by signed bytes, so no sign
+// trick is needed. With the dot-product extension in the target (__ARM_FEATURE_DOTPROD, e.g.
+// -march=armv8.2-a+dotprod), sdot adds four byte products to each int32 lane; otherwise
+// smull gives exact int16 products (|x·w| <= 127·128 = 16256 < 32767) and sadalp adds their
+// pairs into int32 lanes. Both are exact, so both equal the scalar sum.
+struct NeonQuantizedOps {
+  static int32_t Dot(const int8_t* x, const int8_t* w, size_t n) {
+    int32x4_t acc = vdupq_n_s32(0);
+    size_t i = 0;
+    for (; i + 16 <= n; i += 16) {
+      const int8x16_t xv = vld1q_s8(x + i), wv = vld1q_s8(w + i);
+#if defined(__ARM_FEATURE_DOTPROD)
+      acc = vdotq_s32(acc, xv, wv);
+#else
+      acc = vpadalq_s16(acc, vmull_s8(vget_low_s8(xv), vget_low_s8(wv)));
+      acc = vpadalq_s16(acc, vmull_high_s8(xv, wv));
+#endif
+    }
+    return vaddvq_s32(acc) + ScalarQuantizedOps::Dot(x + i, w + i, n - i);
+  }
+  static float MaxAbs(const float* x, size_t n) {
+    float32x4_t max = vdupq_n_f32(0.0f);
+    size_t i = 0;
+    for (; i + 4 <= n; i += 4) max = vmaxq_f32(max, vabsq_f32(vld1q_f32(x + i)));
+    const float lanes = vmaxvq_f32(max);
+    const float tail = ScalarQuantizedOps::MaxAbs(x + i, n - i);
+    return lanes > tail ? lanes : tail;
+  }
+  // 16 values at a time: divide, clamp, convert rounding to nearest even (fcvtns, whatever
+  // FPCR says), then narrow with saturation (in range already).
+  static void Divide(const float* x, float scale, int8_t* q, size_t n) {
+    const float32x4_t s = vdupq_n_f32(scale);
+    const float32x4_t low = vdupq_n_f32(-127.0f), high = vdupq_n_f32(127.0f);
+    auto convert = [&](const float* p) {
+      return vcvtnq_s32_f32(vminq_f32(vmaxq_f32(vdivq_f32(vld1q_f32(p), s), low), high));
+    };
+    size_t i = 0;
+    for (; i + 16 <= n; i += 16) {
+      const int16x8_t ab = vcombine_s16(vqmovn_s32(convert(x + i)), vqmovn_s32(convert(x + i + 4)));
+      const int16x8_t cd =
+          vcombine_s16(vqmovn_s32(convert(x + i + 8)), vqmovn_s32(convert(x + i + 12)));
+      vst1q_s8(q + i, vcombine_s8(vqmovn_s16(ab), vqmovn_s16(cd)));
+    }
+    ScalarQuantizedOps::Divide(x + i, scale, q + i, n - i);
+  }
+};
+
+constexpr KernelTable kNeonTable =
+    WithInt8Activations<NeonQuantizedOps>(SimdKernels<NeonTraits>::MakeTable(KernelPath::kNeon));
 
 }  // namespace
 

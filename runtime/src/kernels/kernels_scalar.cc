@@ -3,6 +3,7 @@
 #include <cmath>
 
 #include "kernels/kernels_internal.h"
+#include "kernels/kernels_quantized.h"
 #include "numeric/half.h"
 
 namespace sprig::kernels {
@@ -182,7 +183,7 @@ constexpr WeightKernels<W> MakeWeightKernels() {
   return {&Dot<Tag, W>, &Gemv<Tag, W>, &GemmRows<Tag, W>, &Axpy<Tag, W>, &AxpyRows<Tag, W>};
 }
 
-constexpr KernelTable kScalarTable = {
+constexpr KernelTable kScalarTable = WithInt8Activations<ScalarQuantizedOps>({
     KernelPath::kScalar,
     MakeWeightKernels<FloatWeights, float>(),
     MakeWeightKernels<HalfWeights, uint16_t>(),
@@ -199,7 +200,7 @@ constexpr KernelTable kScalarTable = {
     &HalfToFloatArray,
     &FloatToBFloat16Array,
     &BFloat16ToFloatArray,
-};
+});
 
 }  // namespace
 

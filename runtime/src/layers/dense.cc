@@ -15,7 +15,7 @@ DenseLayer::DenseLayer(const Binder& binder, const LayerConfig& config) {
 
 void DenseLayer::Forward(const Exec& exec, const float* x, size_t rows, float* y, int32_t*) const {
   if (exec.single_row) {
-    MlpForward(*exec.k, mlp_, x, rows, y, (*exec.scratch)[0], true);
+    MlpForward(*exec.k, mlp_, x, rows, y, (*exec.scratch)[0], true, exec.int8_activations);
     return;
   }
   // Split rows into chunks that are multiples of kRowChunk (see exec.h).
@@ -24,7 +24,8 @@ void DenseLayer::Forward(const Exec& exec, const float* x, size_t rows, float* y
   const size_t tasks = (rows + chunk - 1) / chunk;
   exec.ParallelFor(tasks, [&](size_t task, Scratch& scratch) {
     const size_t first = task * chunk, count = std::min(chunk, rows - first);
-    MlpForward(*exec.k, mlp_, x + first * in_, count, y + first * out_, scratch, false);
+    MlpForward(*exec.k, mlp_, x + first * in_, count, y + first * out_, scratch, false,
+               exec.int8_activations);
   });
 }
 

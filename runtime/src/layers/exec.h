@@ -2,6 +2,7 @@
 #pragma once
 
 #include <cstddef>
+#include <cstdint>
 #include <functional>
 #include <vector>
 
@@ -29,6 +30,10 @@ struct Scratch {
   std::vector<float> shared_output;  // ExpertsLayer, single row: shared experts' outputs, [S, out]
   // The transformer's attention: one (sequence, head)'s scores over the positions it sees.
   std::vector<float> attention_scores;
+  // int8 activations (Exec::int8_activations): the rows a projection reads, quantised, and
+  // their scales (QuantizeRows, quantize.h).
+  std::vector<int8_t> quantized;
+  std::vector<float> quantized_scales;
 };
 
 class ThreadPool;
@@ -43,6 +48,11 @@ struct Exec {
   bool single_row = false;
   // When not null, layers mark every record they read here.
   TouchLog* touched = nullptr;
+  // The opt-in compute mode "i8": a projection whose weights are stored as i8 quantises its
+  // input rows to int8 and runs the integer kernels (quantize.h); projections of other storage
+  // types stay float. Results then differ from the float mode by the activation rounding, but
+  // still do not depend on the batch or the thread count.
+  bool int8_activations = false;
 
   size_t threads() const;
   // body(task, scratch) for task < count, spread over the pool.

@@ -8,6 +8,7 @@
 #include "layers/exec.h"
 #include "layers/grouping.h"
 #include "layers/mlp.h"
+#include "layers/quantize.h"
 
 namespace sprig::layers {
 
@@ -93,7 +94,10 @@ void ExpertsLayer::AddShared(const Exec& exec, const float* x, size_t count, con
   std::vector<float> gate(count, 1.0f);
   if (shared_gate_.data != nullptr) {
     const float* bias = config_.bias ? &shared_gate_bias_ : nullptr;
-    if (exec.single_row) {
+    if (Quantizes(exec, shared_gate_.type)) {
+      const QuantizedRows quantized = QuantizeRows(*exec.k, x, count, in_, (*exec.scratch)[0]);
+      ProjectQuantized(*exec.k, shared_gate_, quantized, bias, gate.data(), count);
+    } else if (exec.single_row) {
       kernels::Gemv(*exec.k, shared_gate_.type, shared_gate_.data, x, bias, gate.data(), 1, in_,
                     shared_gate_.scales);
     } else {
@@ -127,7 +131,12 @@ void ExpertsLayer::Forward(const Exec& exec, const float* x, size_t rows, float*
   std::vector<float> logits(rows * experts);
   std::vector<int32_t> chosen(rows * top);
   std::vector<float> weights(rows * top);
-  if (exec.single_row) {
+  if (Quantizes(exec, router_.type)) {
+    // The router's rows quantised on the calling thread's scratch (the layer's parallel parts
+    // start later); each row's logits are exact sums, the same for any batch.
+    const QuantizedRows quantized = QuantizeRows(k, x, rows, in_, (*exec.scratch)[0]);
+    ProjectQuantized(k, router_, quantized, router_bias_, logits.data(), rows);
+  } else if (exec.single_row) {
     kernels::Gemv(k, router_.type, router_.data, x, router_bias_, logits.data(), experts, in_,
                   router_.scales);
   } else {
@@ -149,14 +158,15 @@ void ExpertsLayer::Forward(const Exec& exec, const float* x, size_t rows, float*
     if (scratch.expert_output.size() < out_) scratch.expert_output.resize(out_);
     float* expert_output = scratch.expert_output.data();
     for (size_t j = 0; j < top; ++j) {
-      MlpForward(k, Expert(chosen[j]), x, 1, expert_output, scratch, true);
+      MlpForward(k, Expert(chosen[j]), x, 1, expert_output, scratch, true, exec.int8_activations);
       for (size_t o = 0; o < out_; ++o) y[o] += weights[j] * expert_output[o];
     }
     if (config_.shared_experts > 0) {
       const size_t size = config_.shared_experts * out_;
       if (scratch.shared_output.size() < size) scratch.shared_output.resize(size);
       for (size_t s = 0; s < config_.shared_experts; ++s) {
-        MlpForward(k, Shared(s), x, 1, scratch.shared_output.data() + s * out_, scratch, true);
+        MlpForward(k, Shared(s), x, 1, scratch.shared_output.data() + s * out_, scratch, true,
+                   exec.int8_activations);
       }
       AddShared(exec, x, 1, scratch.shared_output.data(), y);
     }
@@ -195,7 +205,8 @@ void ExpertsLayer::Forward(const Exec& exec, const float* x, size_t rows, float*
     const size_t s = task / chunks, first = (task % chunks) * chunk;
     const size_t count = std::min(chunk, rows - first);
     MlpForward(k, Shared(s), x + first * in_, count,
-               shared_output.data() + (s * rows + first) * out_, scratch, false);
+               shared_output.data() + (s * rows + first) * out_, scratch, false,
+               exec.int8_activations);
   });
   AddShared(exec, x, rows, shared_output.data(), y);
 }

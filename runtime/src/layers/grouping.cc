@@ -36,7 +36,8 @@ void RunGroups(const Exec& exec, const std::vector<RowGroup>& groups,
       const size_t row = order[group.begin + i] / per_row;
       std::memcpy(input + i * in, x + row * in, in * sizeof(float));
     }
-    MlpForward(*exec.k, unit(group.unit), input, count, output, scratch, false);
+    MlpForward(*exec.k, unit(group.unit), input, count, output, scratch, false,
+               exec.int8_activations);
     for (size_t i = 0; i < count; ++i) {
       std::memcpy(out + order[group.begin + i] * out_width, output + i * out_width,
                   out_width * sizeof(float));

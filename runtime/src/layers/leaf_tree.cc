@@ -6,6 +6,7 @@
 #include "layers/exec.h"
 #include "layers/grouping.h"
 #include "layers/mlp.h"
+#include "layers/quantize.h"
 
 namespace sprig::layers {
 
@@ -21,7 +22,7 @@ LeafTreeLayer::LeafTreeLayer(const Binder& binder, const LayerConfig& config)
 }
 
 uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
-                                bool prefetch) const {
+                                const int8_t* quantized, float scale, bool prefetch) const {
   uint64_t node = 0;
   const uint64_t first_leaf = (uint64_t{1} << config_.depth) - 1;
   for (uint32_t level = 0; level < config_.depth; ++level) {
@@ -36,9 +37,16 @@ uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
         __builtin_prefetch(nodes_.row(2 * node + 2), 0, 1);
       }
     }
-    const float logit =
-        kernels::Dot(k, nodes_.type, x, nodes_.row(node), in_, nodes_.row_scales(node)) +
-        (node_bias_ ? node_bias_[node] : 0.0f);
+    float logit;
+    if (quantized != nullptr) {
+      // The int8 form: the exact integer sum, scaled and biased in one expression.
+      logit = kernels::QuantizedOutput(
+          k.int8_activations.dot(quantized, static_cast<const int8_t*>(nodes_.row(node)), in_),
+          scale, *nodes_.row_scales(node), node_bias_, node);
+    } else {
+      logit = kernels::Dot(k, nodes_.type, x, nodes_.row(node), in_, nodes_.row_scales(node)) +
+              (node_bias_ ? node_bias_[node] : 0.0f);
+    }
     // A logit of exactly 0 (or NaN) goes left.
     node = 2 * node + 1 + (logit > 0.0f ? 1 : 0);
   }
@@ -48,20 +56,28 @@ uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
 void LeafTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float* y,
                             int32_t* routes) const {
   const kernels::KernelTable& k = *exec.k;
+  // In the compute mode "i8" the node logits of i8-stored nodes use the row quantised once.
+  const bool quantize_nodes = config_.depth > 0 && Quantizes(exec, nodes_.type);
+  auto descend = [&](const float* row, Scratch& scratch, bool prefetch) {
+    if (!quantize_nodes) return Descend(k, row, nullptr, 0.0f, prefetch);
+    const QuantizedRows quantized = QuantizeRows(k, row, 1, in_, scratch);
+    return Descend(k, row, quantized.values, quantized.scales[0], prefetch);
+  };
   if (exec.single_row) {
-    const uint32_t leaf = Descend(k, x, true);
+    Scratch& scratch = (*exec.scratch)[0];
+    const uint32_t leaf = descend(x, scratch, true);
     if (routes) routes[0] = static_cast<int32_t>(leaf);
     Touch(exec, leaf);
-    MlpForward(k, Leaf(leaf), x, 1, y, (*exec.scratch)[0], true);
+    MlpForward(k, Leaf(leaf), x, 1, y, scratch, true, exec.int8_activations);
     return;
   }
   // Descend every row (rows are independent), then evaluate each touched leaf once over the
   // rows routed to it, as a small matrix product.
   std::vector<uint32_t> leaf_of(rows);
   const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
-  exec.ParallelFor(chunks, [&](size_t chunk, Scratch&) {
+  exec.ParallelFor(chunks, [&](size_t chunk, Scratch& scratch) {
     for (size_t r = chunk * kRowChunk; r < std::min(rows, (chunk + 1) * kRowChunk); ++r) {
-      leaf_of[r] = Descend(k, x + r * in_, false);
+      leaf_of[r] = descend(x + r * in_, scratch, false);
     }
   });
   if (routes) {

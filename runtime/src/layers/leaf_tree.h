@@ -26,7 +26,10 @@ class LeafTreeLayer final : public FeedForward {
   uint64_t unit_count() const override { return uint64_t{1} << config_.depth; }
 
  private:
-  uint32_t Descend(const kernels::KernelTable& k, const float* x, bool prefetch) const;
+  // The leaf a row reaches. With `quantized` (the row quantised with `scale`, compute mode
+  // "i8", i8-stored nodes) the logits use the int8 kernels; otherwise x in float.
+  uint32_t Descend(const kernels::KernelTable& k, const float* x, const int8_t* quantized,
+                   float scale, bool prefetch) const;
   MlpView Leaf(uint64_t leaf) const {
     return MlpOf(binder_, leaves_, leaf, config_, config_.leaf_width);
   }

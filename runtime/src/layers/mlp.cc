@@ -1,5 +1,7 @@
 #include "layers/mlp.h"
 
+#include "layers/quantize.h"
+
 namespace sprig::layers {
 namespace {
 
@@ -53,18 +55,36 @@ MlpView MlpOf(const Binder& binder, const MlpTensors& tensors, uint64_t unit,
 }
 
 void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* x, size_t rows,
-                float* y, Scratch& scratch, bool vector_kernels) {
+                float* y, Scratch& scratch, bool vector_kernels, bool int8_activations) {
   const size_t size = rows * mlp.width;
   if (scratch.hidden.size() < size) scratch.hidden.resize(size);
   float* hidden = scratch.hidden.data();
-  Project(k, mlp.fc1, x, mlp.fc1_bias, hidden, rows, vector_kernels);
+  // In the compute mode "i8" the input is quantised once for fc1 and the gate, and the hidden
+  // activation once for fc2, each only where that matrix is stored as i8.
+  auto quantizes = [&](const MatrixView& w) {
+    return int8_activations && w.data != nullptr && w.type == DType::kI8;
+  };
+  QuantizedRows quantized_input;
+  if (quantizes(mlp.fc1) || quantizes(mlp.gate)) {
+    quantized_input = QuantizeRows(k, x, rows, mlp.in, scratch);
+  }
+  auto project_input = [&](const MatrixView& w, const float* bias, float* out) {
+    if (quantizes(w)) return ProjectQuantized(k, w, quantized_input, bias, out, rows);
+    Project(k, w, x, bias, out, rows, vector_kernels);
+  };
+  project_input(mlp.fc1, mlp.fc1_bias, hidden);
   if (mlp.gate.data != nullptr) {
     if (scratch.gate.size() < size) scratch.gate.resize(size);
     float* gate = scratch.gate.data();
-    Project(k, mlp.gate, x, mlp.gate_bias, gate, rows, vector_kernels);
+    project_input(mlp.gate, mlp.gate_bias, gate);
     k.gated_activate(mlp.activation, gate, hidden, hidden, size);
   } else {
     k.activate(mlp.activation, hidden, size);
+  }
+  if (quantizes(mlp.fc2)) {
+    const QuantizedRows quantized_hidden = QuantizeRows(k, hidden, rows, mlp.width, scratch);
+    ProjectQuantized(k, mlp.fc2, quantized_hidden, mlp.fc2_bias, y, rows);
+    return;
   }
   Project(k, mlp.fc2, hidden, mlp.fc2_bias, y, rows, vector_kernels);
 }

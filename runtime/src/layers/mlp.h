@@ -39,8 +39,10 @@ MlpView MlpOf(const Binder& binder, const MlpTensors& tensors, uint64_t unit,
 // y[rows, out] = mlp(x[rows, in]). Uses scratch.hidden and scratch.gate. `vector_kernels` picks the
 // matrix-vector kernels (only for calls of one row: the two kernel families round
 // differently, and a row's result must not depend on how its batch was split).
+// `int8_activations` (Exec::int8_activations) runs the i8-stored matrices on int8 activations
+// (quantize.h); it also uses scratch.quantized and scratch.quantized_scales.
 void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* x, size_t rows,
-                float* y, Scratch& scratch, bool vector_kernels);
+                float* y, Scratch& scratch, bool vector_kernels, bool int8_activations);
 
 // Hints the CPU to start loading the first cache lines of a unit's weights.
 void PrefetchMlp(const MlpView& mlp);

@@ -7,6 +7,7 @@
 
 #include "format/row_map.h"
 #include "layers/exec.h"
+#include "layers/quantize.h"
 #include "model/config_check.h"
 
 namespace sprig::layers {
@@ -83,8 +84,16 @@ PathTreeLayer::Neuron PathTreeLayer::LocateEach(uint64_t node) const {
   return neuron;
 }
 
-float PathTreeLayer::Logit(const kernels::KernelTable& k, const Neuron& neuron,
-                           const float* x) const {
+float PathTreeLayer::Logit(const kernels::KernelTable& k, const Neuron& neuron, const float* x,
+                           const QuantizedRows* quantized) const {
+  if (quantized != nullptr) {
+    // Compute mode "i8": the exact integer sum with the row quantised once, scaled and biased
+    // in one expression (kernels::QuantizedOutput).
+    const int32_t sum = k.int8_activations.dot(quantized->values,
+                                               reinterpret_cast<const int8_t*>(neuron.weight), in_);
+    return kernels::QuantizedOutput(sum, quantized->scales[0], *neuron.weight_scale, neuron.bias,
+                                    0);
+  }
   const float dot = kernels::Dot(k, weight_->dtype, x, neuron.weight, in_, neuron.weight_scale);
   return neuron.bias != nullptr ? dot + *neuron.bias : dot;
 }
@@ -124,7 +133,7 @@ void PathTreeLayer::PrefetchOut(const Neuron& neuron) const {
 // to y in one pass (axpy_rows), by which time the output rows have arrived. With the output rows
 // out of the descent, its critical path is the weight rows alone.
 void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& exec, const float* x,
-                               float* y, int32_t* routes) const {
+                               float* y, int32_t* routes, const QuantizedRows* quantized) const {
   const uint32_t depth = config_.depth;
   Neuron path[kMaxPathDepth + 1];
   float a[kMaxPathDepth + 1];
@@ -136,13 +145,13 @@ void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& exec, 
     if (current.record != Neuron::kHot) TouchRecord(exec, current.record);
     path[level] = current;
     if (level == depth) {
-      a[level] = Logit(k, current, x);
+      a[level] = Logit(k, current, x, quantized);
       break;
     }
     const Neuron left = Locate(2 * node + 1), right = Locate(2 * node + 2);
     PrefetchWeight(left);
     PrefetchWeight(right);
-    a[level] = Logit(k, current, x);
+    a[level] = Logit(k, current, x, quantized);
     const bool go_right = a[level] > 0.0f;
     const Neuron& child = go_right ? right : left;
     PrefetchOut(child);
@@ -172,9 +181,10 @@ void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float
       std::fill(y_row, y_row + out_, 0.0f);
     }
   };
+  if (Quantizes(exec, weight_->dtype)) return ForwardQuantized(exec, x, rows, y, routes);
   if (exec.single_row) {
     init(y);
-    ForwardOne(k, exec, x, y, routes);
+    ForwardOne(k, exec, x, y, routes, nullptr);
     return;
   }
   // Level by level for all rows; within a level rows are visited grouped by node, so each
@@ -205,7 +215,7 @@ void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float
           PrefetchOut(next);
         }
         const Neuron neuron = Locate(node[r]);
-        const float a = Logit(k, neuron, x + r * in_);
+        const float a = Logit(k, neuron, x + r * in_, nullptr);
         AddOutput(k, neuron, a, y + r * out_);
         if (level < depth) node[r] = 2 * node[r] + 1 + (a > 0.0f ? 1 : 0);
       }
@@ -214,6 +224,43 @@ void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float
   if (routes) {
     for (size_t r = 0; r < rows; ++r) routes[r] = static_cast<int32_t>(node[r] - first_leaf);
   }
+}
+
+// Compute mode "i8": every row on its own through ForwardOne, with its input quantised once;
+// only the node logits use the int8 kernels, the output rows are still added as float
+// activations times the stored rows (axpy_rows). Rows are independent, so they are spread over
+// the threads in chunks; the records a row read are marked afterwards on this thread (the path
+// is the leaf's ancestors), as TouchLog requires.
+void PathTreeLayer::ForwardQuantized(const Exec& exec, const float* x, size_t rows, float* y,
+                                     int32_t* routes) const {
+  const kernels::KernelTable& k = *exec.k;
+  const uint32_t depth = config_.depth;
+  const uint64_t first_leaf = (uint64_t{1} << depth) - 1;
+  std::vector<int32_t> leaf_of(rows);
+  Exec untouched = exec;
+  untouched.touched = nullptr;
+  const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
+  exec.ParallelFor(chunks, [&](size_t chunk, Scratch& scratch) {
+    for (size_t r = chunk * kRowChunk; r < std::min(rows, (chunk + 1) * kRowChunk); ++r) {
+      float* y_row = y + r * out_;
+      if (out_bias_) {
+        std::memcpy(y_row, out_bias_, out_ * sizeof(float));
+      } else {
+        std::fill(y_row, y_row + out_, 0.0f);
+      }
+      const QuantizedRows quantized = QuantizeRows(k, x + r * in_, 1, in_, scratch);
+      ForwardOne(k, untouched, x + r * in_, y_row, &leaf_of[r], &quantized);
+    }
+  });
+  if (exec.touched) {
+    for (size_t r = 0; r < rows; ++r) {
+      for (uint64_t node = first_leaf + uint64_t(leaf_of[r]);; node = (node - 1) / 2) {
+        Touch(exec, node);
+        if (node == 0) break;
+      }
+    }
+  }
+  if (routes) std::copy(leaf_of.begin(), leaf_of.end(), routes);
 }
 
 }  // namespace sprig::layers

@@ -11,6 +11,7 @@
 #include "layers/binder.h"
 #include "layers/exec.h"
 #include "layers/feed_forward.h"
+#include "layers/quantize.h"
 #include "sprig/config.h"
 
 namespace sprig::layers {
@@ -38,15 +39,20 @@ class PathTreeLayer final : public FeedForward {
   };
   Neuron Locate(uint64_t node) const;
   Neuron LocateEach(uint64_t node) const;
-  // The pre-activation w·x + b of a neuron.
-  float Logit(const kernels::KernelTable& k, const Neuron& neuron, const float* x) const;
+  // The pre-activation w·x + b of a neuron; with `quantized` (compute mode "i8", i8-stored
+  // weights: x quantised once) through the int8 kernels.
+  float Logit(const kernels::KernelTable& k, const Neuron& neuron, const float* x,
+              const QuantizedRows* quantized) const;
   // y += act(a)·out.
   void AddOutput(const kernels::KernelTable& k, const Neuron& neuron, float a, float* y) const;
   // Starts loading a neuron's weight row, or its output row (both with their scales).
   void PrefetchWeight(const Neuron& neuron) const;
   void PrefetchOut(const Neuron& neuron) const;
   void ForwardOne(const kernels::KernelTable& k, const Exec& exec, const float* x, float* y,
-                  int32_t* routes) const;
+                  int32_t* routes, const QuantizedRows* quantized) const;
+  // Compute mode "i8" for any batch: each row through ForwardOne with its quantised input.
+  void ForwardQuantized(const Exec& exec, const float* x, size_t rows, float* y,
+                        int32_t* routes) const;
 
   Binder binder_;
   LayerConfig config_;

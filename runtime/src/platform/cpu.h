@@ -16,7 +16,8 @@ struct CpuFeatures {
   bool avx512bw = false;
   bool avx512dq = false;
   bool avx512vl = false;
-  bool neon = false;  // aarch64 Advanced SIMD
+  bool avx512vnni = false;  // vpdpbusd (int8 dot products), with AVX-512 F
+  bool neon = false;        // aarch64 Advanced SIMD
 };
 
 // Detected on the first call; the same answer after.

@@ -67,6 +67,7 @@ CpuFeatures Detect() {
   f.avx512dq = f.avx512f && Bit(leaf7.ebx, 17);
   f.avx512bw = f.avx512f && Bit(leaf7.ebx, 30);
   f.avx512vl = f.avx512f && Bit(leaf7.ebx, 31);
+  f.avx512vnni = f.avx512f && Bit(leaf7.ecx, 11);
   return f;
 }
 
