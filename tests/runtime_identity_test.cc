@@ -68,9 +68,9 @@ Result<Net> SynthNet(const std::string& json, uint64_t seed) {
   return net;
 }
 
-// Packs `net` (float32 storage) to dir/name and opens it.
+// Packs `net` (every weight stored as `dtype`) to dir/name and opens it.
 Result<std::shared_ptr<const Model>> Pack(const Net& net, const testing::TempDir& dir,
-                                          const std::string& name) {
+                                          const std::string& name, DType dtype = DType::kF32) {
   std::vector<io::NdArray> arrays;
   for (const TensorSpec& t : net.specs) {
     const std::vector<float>& v = net.values.at(t.name);
@@ -80,7 +80,9 @@ Result<std::shared_ptr<const Model>> Pack(const Net& net, const testing::TempDir
   }
   SPRIG_ASSIGN_OR_RETURN(auto matched, convert::MatchTensors(net.config, arrays, name, {}));
   const std::string path = dir.File(name);
-  SPRIG_RETURN_IF_ERROR(convert::PackTensors(net.config, matched, path, {}).status());
+  convert::PackOptions options;
+  options.storage = {dtype, dtype, dtype};
+  SPRIG_RETURN_IF_ERROR(convert::PackTensors(net.config, matched, path, options).status());
   return Model::open(path);
 }
 
@@ -783,6 +785,55 @@ TEST_F(RuntimeIdentityEveryKind, EveryBatchSizeMatchesTheWholeBatch) {
                                            << "from the 40-row call for n =" << output_mismatches;
     EXPECT_TRUE(route_mismatches.empty())
         << name << ": routes of the first n rows differ for n =" << route_mismatches;
+  }
+}
+
+// Batches of several row tiles (a tile holds about 384 KiB of input rows, here 127 rows) in
+// every storage type: the batched path tree (tiles, rows grouped by node, one weight row against
+// several input rows) gives every row the bits and the route of a single-row call, on one
+// thread and two, on every kernel path. The input width is odd, so every kernel has a tail.
+TEST(RuntimeIdentityLargeBatch, PathTreeRowsEqualSingleRowCalls) {
+  constexpr size_t kRows = 300, kIn = 771, kOut = 40;
+  testing::TempDir dir;
+  const std::vector<float> x = RandomRows(kRows, kIn, 71);
+  for (uint32_t depth : {0u, 3u, 6u, 9u}) {
+    const std::string config = R"({"family":"stack","input_dim":)" + std::to_string(kIn) +
+                               R"(,"layers":[{"kind":"tree","mode":"path","depth":)" +
+                               std::to_string(depth) + R"(,"activation":"gelu","out":)" +
+                               std::to_string(kOut) + "}]}";
+    auto net = SynthNet(config, 72 + depth);
+    ASSERT_TRUE(net.ok()) << net.status().message();
+    for (DType dtype : {DType::kF32, DType::kF16, DType::kBF16, DType::kI8}) {
+      const std::string name = "path-d" + std::to_string(depth) + "." + ToString(dtype) + ".sprig";
+      auto model = Pack(*net, dir, name, dtype);
+      ASSERT_TRUE(model.ok()) << model.status().message();
+      for (kernels::KernelPath path : kernels::AvailablePaths()) {
+        const std::string what = name + " on " + kernels::ToString(path);
+        SessionOptions options;
+        options.kernel_path = kernels::ToString(path);
+        auto single = Session::create(*model, options);
+        ASSERT_TRUE(single.ok()) << single.status().message();
+        std::vector<float> want;
+        Routes want_routes;
+        ASSERT_TRUE(ForwardRowByRow(**single, x, &want, &want_routes).ok());
+        ASSERT_EQ(want.size(), kRows * kOut);
+        for (size_t threads : {1, 2}) {
+          options.threads = threads;
+          auto batched = Session::create(*model, options);
+          ASSERT_TRUE(batched.ok()) << batched.status().message();
+          for (const std::vector<size_t>& split :
+               {std::vector<size_t>{kRows}, std::vector<size_t>{129, 2, 169}}) {
+            std::vector<float> y;
+            Routes routes;
+            ASSERT_TRUE(ForwardSplit(**batched, x, split, &y, &routes).ok());
+            EXPECT_TRUE(BitEqual(y, want))
+                << what << ", " << threads << " thread(s), " << split.size() << " call(s)";
+            EXPECT_TRUE(RoutesEqual(routes, want_routes))
+                << what << ", " << threads << " thread(s), " << split.size() << " call(s)";
+          }
+        }
+      }
+    }
   }
 }
 

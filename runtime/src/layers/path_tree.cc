@@ -12,8 +12,14 @@
 namespace sprig::layers {
 namespace {
 
-// How many rows ahead the batched descent prefetches (measured: 1 to 4 at in = out = 768).
+// How many rows ahead the batched descent and sum prefetch (measured: 1 to 4 at
+// in = out = 768).
 constexpr size_t kPrefetchRowsAhead = 2;
+// Rows of a group passed to one dot_rows call.
+constexpr size_t kDotBlock = 16;
+// The input rows of one batched tile, kept in cache while the tile descends, beside the top
+// levels' weight rows that most of its rows read.
+constexpr size_t kTileInputBytes = 384 * 1024;
 
 }  // namespace
 
@@ -89,14 +95,6 @@ float PathTreeLayer::Logit(const kernels::KernelTable& k, const Neuron& neuron,
   return neuron.bias != nullptr ? dot + *neuron.bias : dot;
 }
 
-void PathTreeLayer::AddOutput(const kernels::KernelTable& k, const Neuron& neuron, float a,
-                              float* y) const {
-  // The kernels' activation, one element: the same value it gives inside a vector, so a row's
-  // result does not depend on whether it ran alone (ForwardOne) or in a batch.
-  k.activate(config_.activation, &a, 1);
-  kernels::Axpy(k, out_rows_->dtype, a, neuron.out, y, out_, neuron.out_scale);
-}
-
 void PathTreeLayer::PrefetchWeight(const Neuron& neuron) const {
   for (uint64_t offset = 0; offset < weight_->row_bytes; offset += 64) {
     __builtin_prefetch(neuron.weight + offset, 0, 3);
@@ -160,59 +158,179 @@ void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& exec, 
   if (routes) routes[0] = static_cast<int32_t>(node - ((uint64_t{1} << depth) - 1));
 }
 
+// A batch runs in tiles of rows, each in two phases as ForwardOne (and with its arithmetic, so a
+// row's result does not depend on its batch, its tile or the thread that ran it).
+// The descent, level by level over the tile's rows grouped by node: a node's weight row is read
+// once for all the rows that reach it (the top levels are shared by most of the tile), and
+// rows further on in the order are prefetched (the deep levels, where each row has its own
+// node, are a stream of independent loads). Each row keeps its logits and output rows.
+// The sum, row by row in leaf order (neighbours then share most of their path, whose output
+// rows stay in cache): each row's activations in one vector call and its output rows added to
+// its y in one axpy_rows, while the next row's output rows are requested.
 void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float* y,
                             int32_t* routes) const {
   const kernels::KernelTable& k = *exec.k;
-  const uint32_t depth = config_.depth;
-  const uint64_t first_leaf = (uint64_t{1} << depth) - 1;
-  auto init = [&](float* y_row) {
-    if (out_bias_) {
-      std::memcpy(y_row, out_bias_, out_ * sizeof(float));
-    } else {
-      std::fill(y_row, y_row + out_, 0.0f);
-    }
-  };
   if (exec.single_row) {
-    init(y);
+    InitOutput(y);
     ForwardOne(k, exec, x, y, routes);
     return;
   }
-  // Level by level for all rows; within a level rows are visited grouped by node, so each
-  // neuron's weights are read once per batch and reused from cache for its rows. A row's
-  // arithmetic does not depend on the grouping, so the split over threads is free.
-  std::vector<uint64_t> node(rows, 0);
-  std::vector<std::pair<uint64_t, uint32_t>> order(rows);
-  for (size_t r = 0; r < rows; ++r) init(y + r * out_);
+  // The statistics need every row's path, which its leaf determines.
+  std::vector<int32_t> own_leaves;
+  int32_t* leaves = routes;
+  if (leaves == nullptr && exec.touched != nullptr) {
+    own_leaves.resize(rows);
+    leaves = own_leaves.data();
+  }
+  // As many rows as fit the tile's budget, and at least one tile per thread.
+  const size_t fit = kTileInputBytes / (std::max<size_t>(in_, 1) * sizeof(float));
+  const size_t per_thread = (rows + exec.threads() - 1) / exec.threads();
+  const size_t tile = std::max<size_t>(1, std::min(fit, per_thread));
+  const size_t tiles = (rows + tile - 1) / tile;
+  exec.ParallelFor(tiles, [&](size_t t, Scratch& scratch) {
+    const size_t first = t * tile;
+    ForwardTile(k, x + first * in_, std::min(tile, rows - first), y + first * out_,
+                leaves != nullptr ? leaves + first : nullptr, scratch);
+  });
+  if (exec.touched != nullptr) TouchPaths(exec, leaves, rows);
+}
+
+void PathTreeLayer::InitOutput(float* y) const {
+  if (out_bias_) {
+    std::memcpy(y, out_bias_, out_ * sizeof(float));
+  } else {
+    std::fill(y, y + out_, 0.0f);
+  }
+}
+
+void PathTreeLayer::TouchPaths(const Exec& exec, const int32_t* leaves, size_t rows) const {
+  const uint32_t depth = config_.depth;
+  for (size_t r = 0; r < rows; ++r) {
+    // In heap order, node n's children are 2n + 1 and 2n + 2, so the ancestor of node m at
+    // `level` is ((m + 1) >> (depth - level)) - 1.
+    const uint64_t leaf_node = (uint64_t{1} << depth) + static_cast<uint64_t>(leaves[r]);
+    for (uint32_t level = 0; level <= depth; ++level) {
+      Touch(exec, (leaf_node >> (depth - level)) - 1);
+    }
+  }
+}
+
+void PathTreeLayer::ForwardTile(const kernels::KernelTable& k, const float* x, size_t rows,
+                                float* y, int32_t* leaves, Scratch& scratch) const {
+  const uint32_t depth = config_.depth;
+  const size_t width = depth + 1;
+  scratch.path_node.assign(rows, 0);
+  scratch.path_order.resize(rows);
+  scratch.path_next_order.resize(rows);
+  scratch.path_logits.resize(rows * width);
+  scratch.path_out.resize(rows * width);
+  scratch.path_out_scale.resize(rows * width);
+  for (size_t r = 0; r < rows; ++r) scratch.path_order[r] = static_cast<uint32_t>(r);
   for (uint32_t level = 0; level <= depth; ++level) {
-    for (size_t r = 0; r < rows; ++r) order[r] = {node[r], static_cast<uint32_t>(r)};
-    if (level > 0) std::sort(order.begin(), order.end());
-    if (exec.touched) {
-      // Rows are sorted by node: mark each distinct node's record once.
-      for (size_t i = 0; i < rows; ++i) {
-        if (i == 0 || order[i].first != order[i - 1].first) Touch(exec, order[i].first);
+    DescendLevel(k, x, rows, level, scratch);
+    if (level < depth) Regroup(rows, scratch);
+  }
+  const uint64_t first_leaf = (uint64_t{1} << depth) - 1;
+  if (leaves != nullptr) {
+    for (size_t r = 0; r < rows; ++r) {
+      leaves[r] = static_cast<int32_t>(scratch.path_node[r] - first_leaf);
+    }
+  }
+  SumTile(k, rows, y, scratch);
+}
+
+void PathTreeLayer::DescendLevel(const kernels::KernelTable& k, const float* x, size_t rows,
+                                 uint32_t level, Scratch& scratch) const {
+  const size_t width = config_.depth + 1;
+  uint64_t* node = scratch.path_node.data();
+  const uint32_t* order = scratch.path_order.data();
+  auto starts_group = [&](size_t i) { return i == 0 || node[order[i]] != node[order[i - 1]]; };
+  // Weight rows are requested up to kPrefetchRowsAhead entries past the group being computed.
+  size_t requested = 0;
+  for (size_t i = 0; i < rows;) {
+    const uint64_t current = node[order[i]];
+    size_t end = i + 1;
+    while (end < rows && node[order[end]] == current) ++end;
+    for (; requested < std::min(rows, end + kPrefetchRowsAhead); ++requested) {
+      if (starts_group(requested)) PrefetchWeight(Locate(node[order[requested]]));
+    }
+    const Neuron neuron = Locate(current);
+    // The group's logits, kDotBlock rows per kernel call.
+    for (size_t first = i; first < end; first += kDotBlock) {
+      const size_t count = std::min(kDotBlock, end - first);
+      const float* xs[kDotBlock];
+      float logits[kDotBlock];
+      for (size_t j = 0; j < count; ++j) xs[j] = x + order[first + j] * in_;
+      kernels::DotRows(k, weight_->dtype, neuron.weight, xs, count, in_, logits,
+                       neuron.weight_scale);
+      for (size_t j = 0; j < count; ++j) {
+        const uint32_t r = order[first + j];
+        // Logit's sum: the dot product, then the bias.
+        const float a = neuron.bias != nullptr ? logits[j] + *neuron.bias : logits[j];
+        scratch.path_logits[r * width + level] = a;
+        scratch.path_out[r * width + level] = neuron.out;
+        scratch.path_out_scale[r * width + level] = neuron.out_scale;
+        if (level < config_.depth) node[r] = 2 * current + 1 + (a > 0.0f ? 1 : 0);
       }
     }
-    const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
-    exec.ParallelFor(chunks, [&](size_t chunk, Scratch&) {
-      for (size_t i = chunk * kRowChunk; i < std::min(rows, (chunk + 1) * kRowChunk); ++i) {
-        const uint32_t r = order[i].second;
-        // Rows further on in this order usually need other neurons: fetch them ahead, far
-        // enough that they arrive before they are needed.
-        const size_t ahead = i + kPrefetchRowsAhead;
-        if (ahead < rows && order[ahead].first != order[ahead - 1].first) {
-          const Neuron next = Locate(order[ahead].first);
-          PrefetchWeight(next);
-          PrefetchOut(next);
-        }
-        const Neuron neuron = Locate(node[r]);
-        const float a = Logit(k, neuron, x + r * in_);
-        AddOutput(k, neuron, a, y + r * out_);
-        if (level < depth) node[r] = 2 * node[r] + 1 + (a > 0.0f ? 1 : 0);
-      }
-    });
+    i = end;
   }
-  if (routes) {
-    for (size_t r = 0; r < rows; ++r) routes[r] = static_cast<int32_t>(node[r] - first_leaf);
+}
+
+// The order was grouped by node at the level just done, in ascending node order; the children
+// of ascending nodes ascend too (2n + 1 < 2n + 2 < 2m + 1 for n < m), so splitting each group
+// into its left-going then its right-going rows groups the order by the new nodes.
+void PathTreeLayer::Regroup(size_t rows, Scratch& scratch) const {
+  const uint64_t* node = scratch.path_node.data();
+  const uint32_t* order = scratch.path_order.data();
+  uint32_t* next = scratch.path_next_order.data();
+  size_t n = 0;
+  for (size_t i = 0; i < rows;) {
+    const uint64_t parent = (node[order[i]] - 1) / 2;
+    size_t end = i;
+    while (end < rows && (node[order[end]] - 1) / 2 == parent) ++end;
+    for (size_t j = i; j < end; ++j) {
+      if (node[order[j]] % 2 == 1) next[n++] = order[j];
+    }
+    for (size_t j = i; j < end; ++j) {
+      if (node[order[j]] % 2 == 0) next[n++] = order[j];
+    }
+    i = end;
+  }
+  scratch.path_order.swap(scratch.path_next_order);
+}
+
+void PathTreeLayer::SumTile(const kernels::KernelTable& k, size_t rows, float* y,
+                            Scratch& scratch) const {
+  const size_t width = config_.depth + 1;
+  const uint32_t* order = scratch.path_order.data();
+  const void* const* out = scratch.path_out.data();
+  const float* const* out_scale = scratch.path_out_scale.data();
+  // Requests the output rows of entry i of the order that entry i - 1 does not share (those
+  // are in cache by the time entry i is summed).
+  auto request = [&](size_t i) {
+    const size_t path = order[i] * width;
+    const size_t before = i > 0 ? order[i - 1] * width : 0;
+    for (size_t level = 0; level < width; ++level) {
+      if (i > 0 && out[path + level] == out[before + level]) continue;
+      Neuron neuron;
+      neuron.out = static_cast<const uint8_t*>(out[path + level]);
+      neuron.out_scale = out_scale[path + level];
+      PrefetchOut(neuron);
+    }
+  };
+  for (size_t i = 0; i < std::min(rows, kPrefetchRowsAhead); ++i) request(i);
+  for (size_t i = 0; i < rows; ++i) {
+    if (i + kPrefetchRowsAhead < rows) request(i + kPrefetchRowsAhead);
+    const uint32_t r = order[i];
+    float* a = scratch.path_logits.data() + r * width;
+    k.activate(config_.activation, a, width);
+    for (size_t level = 0; level < width; ++level) {
+      if (out_scale[r * width + level] != nullptr) a[level] *= *out_scale[r * width + level];
+    }
+    float* y_row = y + r * out_;
+    InitOutput(y_row);
+    kernels::AxpyRows(k, out_rows_->dtype, a, out + r * width, width, y_row, out_);
   }
 }
 
