@@ -29,11 +29,12 @@ struct Scratch {
   std::vector<float> shared_output;  // ExpertsLayer, single row: shared experts' outputs, [S, out]
   // The transformer's attention: one (sequence, head)'s scores over the positions it sees.
   std::vector<float> attention_scores;
-  // PathTreeLayer, batched: one tile's descent. Each row's current node, the tile's rows
-  // grouped by node (and the next level's grouping), and each row's path: its logits, then
-  // activations, and the output rows (with their int8 scales) they multiply, [rows, depth + 1].
-  std::vector<uint64_t> path_node;
-  std::vector<uint32_t> path_order, path_next_order;
+  // Path and leaf trees, batched: one tile's descent. Each row's current node, and the tile's
+  // rows grouped by node (and the next level's grouping).
+  std::vector<uint64_t> descent_node;
+  std::vector<uint32_t> descent_order, descent_next_order;
+  // PathTreeLayer, batched: each row's path: its logits, then activations, and the output rows
+  // (with their int8 scales) they multiply, [rows, depth + 1].
   std::vector<float> path_logits;
   std::vector<const void*> path_out;
   std::vector<const float*> path_out_scale;

@@ -26,7 +26,11 @@ class LeafTreeLayer final : public FeedForward {
   uint64_t unit_count() const override { return uint64_t{1} << config_.depth; }
 
  private:
+  // One row's descent (`prefetch`: request the next nodes and leaves as it goes).
   uint32_t Descend(const kernels::KernelTable& k, const float* x, bool prefetch) const;
+  // A batch's tile of rows: leaves[r] for r < rows.
+  void DescendTile(const kernels::KernelTable& k, const float* x, size_t rows, uint32_t* leaves,
+                   Scratch& scratch) const;
   MlpView Leaf(uint64_t leaf) const {
     return MlpOf(binder_, leaves_, leaf, config_, config_.leaf_width);
   }

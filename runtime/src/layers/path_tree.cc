@@ -7,19 +7,15 @@
 
 #include "format/row_map.h"
 #include "layers/exec.h"
+#include "layers/grouping.h"
 #include "model/config_check.h"
 
 namespace sprig::layers {
 namespace {
 
-// How many rows ahead the batched descent and sum prefetch (measured: 1 to 4 at
-// in = out = 768).
+// How many rows ahead the batched sum requests output rows (measured: 1 to 6 at
+// in = out = 768 perform alike).
 constexpr size_t kPrefetchRowsAhead = 2;
-// Rows of a group passed to one dot_rows call.
-constexpr size_t kDotBlock = 16;
-// The input rows of one batched tile, kept in cache while the tile descends, beside the top
-// levels' weight rows that most of its rows read.
-constexpr size_t kTileInputBytes = 384 * 1024;
 
 }  // namespace
 
@@ -182,10 +178,7 @@ void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float
     own_leaves.resize(rows);
     leaves = own_leaves.data();
   }
-  // As many rows as fit the tile's budget, and at least one tile per thread.
-  const size_t fit = kTileInputBytes / (std::max<size_t>(in_, 1) * sizeof(float));
-  const size_t per_thread = (rows + exec.threads() - 1) / exec.threads();
-  const size_t tile = std::max<size_t>(1, std::min(fit, per_thread));
+  const size_t tile = TileRows(rows, in_, exec.threads());
   const size_t tiles = (rows + tile - 1) / tile;
   exec.ParallelFor(tiles, [&](size_t t, Scratch& scratch) {
     const size_t first = t * tile;
@@ -219,21 +212,25 @@ void PathTreeLayer::ForwardTile(const kernels::KernelTable& k, const float* x, s
                                 float* y, int32_t* leaves, Scratch& scratch) const {
   const uint32_t depth = config_.depth;
   const size_t width = depth + 1;
-  scratch.path_node.assign(rows, 0);
-  scratch.path_order.resize(rows);
-  scratch.path_next_order.resize(rows);
+  scratch.descent_node.assign(rows, 0);
+  scratch.descent_order.resize(rows);
+  scratch.descent_next_order.resize(rows);
   scratch.path_logits.resize(rows * width);
   scratch.path_out.resize(rows * width);
   scratch.path_out_scale.resize(rows * width);
-  for (size_t r = 0; r < rows; ++r) scratch.path_order[r] = static_cast<uint32_t>(r);
+  for (size_t r = 0; r < rows; ++r) scratch.descent_order[r] = static_cast<uint32_t>(r);
   for (uint32_t level = 0; level <= depth; ++level) {
     DescendLevel(k, x, rows, level, scratch);
-    if (level < depth) Regroup(rows, scratch);
+    if (level < depth) {
+      RegroupByChild(scratch.descent_node.data(), scratch.descent_order.data(), rows,
+                     scratch.descent_next_order.data());
+      scratch.descent_order.swap(scratch.descent_next_order);
+    }
   }
   const uint64_t first_leaf = (uint64_t{1} << depth) - 1;
   if (leaves != nullptr) {
     for (size_t r = 0; r < rows; ++r) {
-      leaves[r] = static_cast<int32_t>(scratch.path_node[r] - first_leaf);
+      leaves[r] = static_cast<int32_t>(scratch.descent_node[r] - first_leaf);
     }
   }
   SumTile(k, rows, y, scratch);
@@ -242,68 +239,25 @@ void PathTreeLayer::ForwardTile(const kernels::KernelTable& k, const float* x, s
 void PathTreeLayer::DescendLevel(const kernels::KernelTable& k, const float* x, size_t rows,
                                  uint32_t level, Scratch& scratch) const {
   const size_t width = config_.depth + 1;
-  uint64_t* node = scratch.path_node.data();
-  const uint32_t* order = scratch.path_order.data();
-  auto starts_group = [&](size_t i) { return i == 0 || node[order[i]] != node[order[i - 1]]; };
-  // Weight rows are requested up to kPrefetchRowsAhead entries past the group being computed.
-  size_t requested = 0;
-  for (size_t i = 0; i < rows;) {
-    const uint64_t current = node[order[i]];
-    size_t end = i + 1;
-    while (end < rows && node[order[end]] == current) ++end;
-    for (; requested < std::min(rows, end + kPrefetchRowsAhead); ++requested) {
-      if (starts_group(requested)) PrefetchWeight(Locate(node[order[requested]]));
-    }
-    const Neuron neuron = Locate(current);
-    // The group's logits, kDotBlock rows per kernel call.
-    for (size_t first = i; first < end; first += kDotBlock) {
-      const size_t count = std::min(kDotBlock, end - first);
-      const float* xs[kDotBlock];
-      float logits[kDotBlock];
-      for (size_t j = 0; j < count; ++j) xs[j] = x + order[first + j] * in_;
-      kernels::DotRows(k, weight_->dtype, neuron.weight, xs, count, in_, logits,
-                       neuron.weight_scale);
-      for (size_t j = 0; j < count; ++j) {
-        const uint32_t r = order[first + j];
-        // Logit's sum: the dot product, then the bias.
-        const float a = neuron.bias != nullptr ? logits[j] + *neuron.bias : logits[j];
+  uint64_t* node = scratch.descent_node.data();
+  LogitsByNode(
+      k, x, in_, rows, node, scratch.descent_order.data(), [this](uint64_t n) { return Locate(n); },
+      [this](const Neuron& neuron) {
+        return NodeRow{weight_->dtype, neuron.weight, neuron.weight_scale, neuron.bias};
+      },
+      [this](const Neuron& neuron) { PrefetchWeight(neuron); },
+      [&](uint32_t r, const Neuron& neuron, float a) {
         scratch.path_logits[r * width + level] = a;
         scratch.path_out[r * width + level] = neuron.out;
         scratch.path_out_scale[r * width + level] = neuron.out_scale;
-        if (level < config_.depth) node[r] = 2 * current + 1 + (a > 0.0f ? 1 : 0);
-      }
-    }
-    i = end;
-  }
-}
-
-// The order was grouped by node at the level just done, in ascending node order; the children
-// of ascending nodes ascend too (2n + 1 < 2n + 2 < 2m + 1 for n < m), so splitting each group
-// into its left-going then its right-going rows groups the order by the new nodes.
-void PathTreeLayer::Regroup(size_t rows, Scratch& scratch) const {
-  const uint64_t* node = scratch.path_node.data();
-  const uint32_t* order = scratch.path_order.data();
-  uint32_t* next = scratch.path_next_order.data();
-  size_t n = 0;
-  for (size_t i = 0; i < rows;) {
-    const uint64_t parent = (node[order[i]] - 1) / 2;
-    size_t end = i;
-    while (end < rows && (node[order[end]] - 1) / 2 == parent) ++end;
-    for (size_t j = i; j < end; ++j) {
-      if (node[order[j]] % 2 == 1) next[n++] = order[j];
-    }
-    for (size_t j = i; j < end; ++j) {
-      if (node[order[j]] % 2 == 0) next[n++] = order[j];
-    }
-    i = end;
-  }
-  scratch.path_order.swap(scratch.path_next_order);
+        if (level < config_.depth) node[r] = 2 * node[r] + 1 + (a > 0.0f ? 1 : 0);
+      });
 }
 
 void PathTreeLayer::SumTile(const kernels::KernelTable& k, size_t rows, float* y,
                             Scratch& scratch) const {
   const size_t width = config_.depth + 1;
-  const uint32_t* order = scratch.path_order.data();
+  const uint32_t* order = scratch.descent_order.data();
   const void* const* out = scratch.path_out.data();
   const float* const* out_scale = scratch.path_out_scale.data();
   // Requests the output rows of entry i of the order that entry i - 1 does not share (those

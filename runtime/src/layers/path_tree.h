@@ -48,13 +48,12 @@ class PathTreeLayer final : public FeedForward {
   // y = out_bias (or 0).
   void InitOutput(float* y) const;
   // Batches, a tile of rows at a time (see Forward): the descent one level at a time over the
-  // rows grouped by node (Regroup groups them by the next level's nodes), then the sums.
+  // rows grouped by node, then the sums.
   // `leaves` may be null.
   void ForwardTile(const kernels::KernelTable& k, const float* x, size_t rows, float* y,
                    int32_t* leaves, Scratch& scratch) const;
   void DescendLevel(const kernels::KernelTable& k, const float* x, size_t rows, uint32_t level,
                     Scratch& scratch) const;
-  void Regroup(size_t rows, Scratch& scratch) const;
   void SumTile(const kernels::KernelTable& k, size_t rows, float* y, Scratch& scratch) const;
   // Marks the records of every node on the rows' paths (given by their leaves).
   void TouchPaths(const Exec& exec, const int32_t* leaves, size_t rows) const;
