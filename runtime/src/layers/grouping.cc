@@ -32,11 +32,14 @@ void RegroupByChild(const uint64_t* node, const uint32_t* order, size_t rows, ui
     const uint64_t parent = (node[order[i]] - 1) / 2;
     size_t end = i;
     while (end < rows && (node[order[end]] - 1) / 2 == parent) ++end;
+    // Branch-free: which way a row went is as unpredictable as a coin.
     for (size_t j = i; j < end; ++j) {
-      if (node[order[j]] % 2 == 1) next[n++] = order[j];
+      next[n] = order[j];
+      n += node[order[j]] % 2;  // left children are odd
     }
     for (size_t j = i; j < end; ++j) {
-      if (node[order[j]] % 2 == 0) next[n++] = order[j];
+      next[n] = order[j];
+      n += 1 - node[order[j]] % 2;
     }
     i = end;
   }

@@ -48,7 +48,7 @@ size_t TileRows(size_t rows, size_t in, size_t threads);
 // The order was grouped by node at the level just done (node[] now holds each row's child), in
 // ascending node order; the children of ascending nodes ascend too (2n + 1 < 2n + 2 < 2m + 1
 // for n < m), so splitting each group into its left-going then its right-going rows groups
-// `next` by the new nodes. No sort.
+// `next` by the new nodes. No sort. `next` has room for rows + 1 entries (the last is scratch).
 void RegroupByChild(const uint64_t* node, const uint32_t* order, size_t rows, uint32_t* next);
 
 // What a descent needs of one node: its weight row (of `type`; i8 with its scale) and bias.

@@ -50,8 +50,9 @@ uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
 void LeafTreeLayer::DescendTile(const kernels::KernelTable& k, const float* x, size_t rows,
                                 uint32_t* leaves, Scratch& scratch) const {
   scratch.descent_node.assign(rows, 0);
-  scratch.descent_order.resize(rows);
-  scratch.descent_next_order.resize(rows);
+  // Both orders have one entry to spare, as RegroupByChild writes one past (they swap).
+  scratch.descent_order.resize(rows + 1);
+  scratch.descent_next_order.resize(rows + 1);
   uint64_t* node = scratch.descent_node.data();
   for (size_t r = 0; r < rows; ++r) scratch.descent_order[r] = static_cast<uint32_t>(r);
   for (uint32_t level = 0; level < config_.depth; ++level) {

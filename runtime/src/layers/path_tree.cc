@@ -213,8 +213,9 @@ void PathTreeLayer::ForwardTile(const kernels::KernelTable& k, const float* x, s
   const uint32_t depth = config_.depth;
   const size_t width = depth + 1;
   scratch.descent_node.assign(rows, 0);
-  scratch.descent_order.resize(rows);
-  scratch.descent_next_order.resize(rows);
+  // Both orders have one entry to spare, as RegroupByChild writes one past (they swap).
+  scratch.descent_order.resize(rows + 1);
+  scratch.descent_next_order.resize(rows + 1);
   scratch.path_logits.resize(rows * width);
   scratch.path_out.resize(rows * width);
   scratch.path_out_scale.resize(rows * width);
