@@ -333,7 +333,27 @@ struct SimdKernels {
         for (int c = 0; c < C; ++c) acc[r * C + c] = xsimd::fma(xv, wv[c], acc[r * C + c]);
       }
     }
-    Traits::Reduce(acc, R * C, sums);
+    ReducePadded<R * C>(acc, sums);
+  }
+
+  // Traits::Reduce over N vectors padded with zero vectors to a whole number of its groups (4 or
+  // 8 vectors), so that it never takes its remainder path, whose copy through a run-time sized
+  // group costs more than the sums when N is small (a leaf's fc2 has in = leaf width). Every
+  // sum is formed as the remainder path would form it: each lane sum reads its own vector only.
+  template <int N>
+  static void ReducePadded(const F* acc, float* sums) {
+    constexpr int kPadded = (N + 7) / 8 * 8;
+    if constexpr (kPadded == N) {
+      Traits::Reduce(acc, N, sums);
+    } else {
+      F padded[kPadded];
+      float padded_sums[kPadded];
+#pragma GCC unroll 32
+      for (int j = 0; j < kPadded; ++j) padded[j] = j < N ? acc[j] : F(0.0f);
+      Traits::Reduce(padded, kPadded, padded_sums);
+#pragma GCC unroll 32
+      for (int j = 0; j < N; ++j) sums[j] = padded_sums[j];
+    }
   }
 
   // Block for a run-time shape rows <= R, cols <= C (the edges of the output).
