@@ -383,6 +383,9 @@ struct SimdKernels {
   template <class Tag>
   static void GemmRowsScaled(const typename Tag::Storage* w, const float* scales, const float* x,
                              const float* bias, float* y, size_t rows, size_t out, size_t in) {
+    // One row (a leaf or expert reached by one row of a batch): gemv's wider blocks, with the
+    // same bits (a sum depends on its own accumulator only, whatever block it sits in).
+    if (rows == 1) return GemvScaled<Tag>(w, scales, x, bias, y, out, in);
     constexpr size_t R = Traits::kGemmRows;
     constexpr size_t C = Traits::kGemmCols;
     const size_t row_bytes = Max<size_t>(in, 1) * sizeof(float);
