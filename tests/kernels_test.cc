@@ -280,6 +280,36 @@ TEST(KernelDot, EmptyIsZeroAndTypedEntriesMatchErased) {
   }
 }
 
+// dot_rows promises each row's dot, bit for bit, on every path (the batched path tree relies on
+// it for results that do not depend on the batch), whatever the number of rows and wherever a
+// row falls in the register blocks; and the scalar path's dot_rows is its dot.
+TEST(KernelDotRows, EqualsDotOfEachRowOnEveryPath) {
+  for (DType type : kWeightTypes) {
+    for (size_t count : {0, 1, 2, 3, 4, 5, 7, 8, 9, 13}) {
+      for (size_t n : kLengths) {
+        const uint32_t seed = uint32_t(count * 7919 + n);
+        const StoredWeights w(type, RandomVector(n, seed));
+        std::vector<std::vector<float>> x;
+        std::vector<const float*> xs;
+        for (size_t r = 0; r < count; ++r) x.push_back(RandomVector(n, uint32_t(seed + 1 + r)));
+        for (size_t r = 0; r < count; ++r) xs.push_back(x[r].data());
+        for (KernelPath path : AvailablePaths()) {
+          const KernelTable& k = Kernels(path);
+          std::vector<float> sums(count + 1, 12345.0f);  // the last one must stay untouched
+          DotRows(k, type, w.data(), xs.data(), count, n, sums.data(), w.scales());
+          const std::string what = Describe(
+              path, type, "dot_rows count=" + std::to_string(count) + " n=" + std::to_string(n));
+          for (size_t r = 0; r < count; ++r) {
+            ASSERT_EQ(sums[r], Dot(k, type, x[r].data(), w.data(), n, w.scales()))
+                << what << " row " << r;
+          }
+          EXPECT_EQ(sums[count], 12345.0f) << what;
+        }
+      }
+    }
+  }
+}
+
 TEST(KernelAxpy, EveryPathEveryTypeMatchesReference) {
   const float a = -1.75f;
   for (DType type : kWeightTypes) {

@@ -17,6 +17,7 @@
 #include <cmath>
 #include <cstdio>
 #include <cstring>
+#include <functional>
 #include <limits>
 #include <map>
 #include <memory>
@@ -68,9 +69,9 @@ Result<Net> SynthNet(const std::string& json, uint64_t seed) {
   return net;
 }
 
-// Packs `net` (float32 storage) to dir/name and opens it.
+// Packs `net` (every weight stored as `dtype`) to dir/name and opens it.
 Result<std::shared_ptr<const Model>> Pack(const Net& net, const testing::TempDir& dir,
-                                          const std::string& name) {
+                                          const std::string& name, DType dtype = DType::kF32) {
   std::vector<io::NdArray> arrays;
   for (const TensorSpec& t : net.specs) {
     const std::vector<float>& v = net.values.at(t.name);
@@ -80,7 +81,9 @@ Result<std::shared_ptr<const Model>> Pack(const Net& net, const testing::TempDir
   }
   SPRIG_ASSIGN_OR_RETURN(auto matched, convert::MatchTensors(net.config, arrays, name, {}));
   const std::string path = dir.File(name);
-  SPRIG_RETURN_IF_ERROR(convert::PackTensors(net.config, matched, path, {}).status());
+  convert::PackOptions options;
+  options.storage = {dtype, dtype, dtype};
+  SPRIG_RETURN_IF_ERROR(convert::PackTensors(net.config, matched, path, options).status());
   return Model::open(path);
 }
 
@@ -783,6 +786,95 @@ TEST_F(RuntimeIdentityEveryKind, EveryBatchSizeMatchesTheWholeBatch) {
                                            << "from the 40-row call for n =" << output_mismatches;
     EXPECT_TRUE(route_mismatches.empty())
         << name << ": routes of the first n rows differ for n =" << route_mismatches;
+  }
+}
+
+// The large-batch tests: a one-layer stack of input width kWideIn, its layer given as JSON,
+// packed in every storage type and run on every kernel path: body(session options naming the
+// path, model, description).
+constexpr size_t kLargeBatchRows = 300;
+constexpr size_t kWideIn = 771;  // odd, so every kernel has a tail
+void ForEachStorageAndPath(
+    const std::string& layer, uint64_t seed,
+    const std::function<void(SessionOptions, const std::shared_ptr<const Model>&,
+                             const std::string&)>& body) {
+  testing::TempDir dir;
+  const std::string config = R"({"family":"stack","input_dim":)" + std::to_string(kWideIn) +
+                             R"(,"layers":[)" + layer + "]}";
+  auto net = SynthNet(config, seed);
+  ASSERT_TRUE(net.ok()) << net.status().message();
+  for (DType dtype : {DType::kF32, DType::kF16, DType::kBF16, DType::kI8}) {
+    const std::string name = std::string(ToString(dtype)) + ".sprig";
+    auto model = Pack(*net, dir, name, dtype);
+    ASSERT_TRUE(model.ok()) << model.status().message();
+    for (kernels::KernelPath path : kernels::AvailablePaths()) {
+      SessionOptions options;
+      options.kernel_path = kernels::ToString(path);
+      body(options, *model, layer + " as " + name + " on " + kernels::ToString(path));
+    }
+  }
+}
+
+// Batches of several row tiles (a tile holds about 384 KiB of input rows, here 127 rows) in
+// every storage type: the batched path tree (tiles, rows grouped by node, one weight row against
+// several input rows) gives every row the bits and the route of a single-row call, on one
+// thread and two, on every kernel path.
+TEST(RuntimeIdentityLargeBatch, PathTreeRowsEqualSingleRowCalls) {
+  const std::vector<float> x = RandomRows(kLargeBatchRows, kWideIn, 71);
+  for (uint32_t depth : {0u, 3u, 6u, 9u}) {
+    const std::string layer = R"({"kind":"tree","mode":"path","depth":)" + std::to_string(depth) +
+                              R"(,"activation":"gelu","out":40})";
+    ForEachStorageAndPath(
+        layer, 72 + depth, [&](SessionOptions options, const auto& model, const std::string& what) {
+          auto single = Session::create(model, options);
+          ASSERT_TRUE(single.ok()) << single.status().message();
+          std::vector<float> want;
+          Routes want_routes;
+          ASSERT_TRUE(ForwardRowByRow(**single, x, &want, &want_routes).ok());
+          ASSERT_EQ(want.size(), kLargeBatchRows * 40);
+          for (size_t threads : {1, 2}) {
+            options.threads = threads;
+            auto batched = Session::create(model, options);
+            ASSERT_TRUE(batched.ok()) << batched.status().message();
+            for (const std::vector<size_t>& split :
+                 {std::vector<size_t>{kLargeBatchRows}, std::vector<size_t>{129, 2, 169}}) {
+              std::vector<float> y;
+              Routes routes;
+              ASSERT_TRUE(ForwardSplit(**batched, x, split, &y, &routes).ok());
+              const std::string how = what + ", " + std::to_string(threads) + " thread(s), " +
+                                      std::to_string(split.size()) + " call(s)";
+              EXPECT_TRUE(BitEqual(y, want)) << how;
+              EXPECT_TRUE(RoutesEqual(routes, want_routes)) << how;
+            }
+          }
+        });
+  }
+}
+
+// The leaf tree's batched descent (tiles of rows grouped by node) routes every row as a
+// single-row call does, in every storage type; its outputs do not depend on how the batch was
+// split or on the thread count (single-row calls run the leaf with the matrix-vector kernels,
+// which round differently, so outputs are compared between batches only).
+TEST(RuntimeIdentityLargeBatch, LeafTreeRoutesEqualSingleRowCalls) {
+  const std::vector<float> x = RandomRows(kLargeBatchRows, kWideIn, 81);
+  for (uint32_t depth : {0u, 3u, 7u}) {
+    const std::string layer = R"({"kind":"tree","mode":"leaf","depth":)" + std::to_string(depth) +
+                              R"(,"leaf_width":5,"activation":"relu","out":12})";
+    ForEachStorageAndPath(
+        layer, 82 + depth, [&](SessionOptions options, const auto& model, const std::string& what) {
+          auto one = Session::create(model, options);
+          options.threads = 2;
+          auto two = Session::create(model, options);
+          ASSERT_TRUE(one.ok() && two.ok()) << what;
+          std::vector<float> single, whole, split;
+          Routes single_routes, whole_routes, split_routes;
+          ASSERT_TRUE(ForwardRowByRow(**one, x, &single, &single_routes).ok());
+          ASSERT_TRUE(ForwardSplit(**one, x, {kLargeBatchRows}, &whole, &whole_routes).ok());
+          ASSERT_TRUE(ForwardSplit(**two, x, {129, 2, 169}, &split, &split_routes).ok());
+          EXPECT_TRUE(RoutesEqual(whole_routes, single_routes)) << what;
+          EXPECT_TRUE(RoutesEqual(split_routes, single_routes)) << what;
+          EXPECT_TRUE(BitEqual(split, whole)) << what;
+        });
   }
 }
 

@@ -114,6 +114,21 @@ inline float QuantizedOutput(int32_t sum, float x_scale, float w_scale, const fl
   return std::fma(x_scale * w_scale, static_cast<float>(sum), bias != nullptr ? bias[o] : 0.0f);
 }
 
+// Kernels for the batched routed layers, where one weight row meets several input rows (the
+// rows of a batch that reach the same tree node). Each result equals the single-row kernel's,
+// bit for bit, on every path, so a row's result does not depend on its batch; the weight row is
+// loaded (and converted) once for a block of input rows instead of once per row.
+struct SharedRowKernels {
+  // sums[r] = dot(x_r, w, n) of the same path and type, for r < count, where xs[r] points at
+  // x_r. i8 sums are unscaled, as Int8Kernels::dot.
+  void (*dot_rows_f32)(const float* w, const float* const* xs, size_t count, size_t n, float* sums);
+  void (*dot_rows_f16)(const uint16_t* w, const float* const* xs, size_t count, size_t n,
+                       float* sums);
+  void (*dot_rows_bf16)(const uint16_t* w, const float* const* xs, size_t count, size_t n,
+                        float* sums);
+  void (*dot_rows_i8)(const int8_t* w, const float* const* xs, size_t count, size_t n, float* sums);
+};
+
 struct KernelTable {
   KernelPath path;
   WeightKernels<float> f32;
@@ -144,6 +159,9 @@ struct KernelTable {
   void (*f16_to_f32)(const uint16_t* src, float* dst, size_t n);
   void (*f32_to_bf16)(const float* src, uint16_t* dst, size_t n);
   void (*bf16_to_f32)(const uint16_t* src, float* dst, size_t n);
+
+  // Batched tree layers (see SharedRowKernels).
+  SharedRowKernels shared;
 
   // int8 activations with int8 weights (see Int8ActivationKernels). Set by every path's
   // table; the default member initializer only keeps the tables' aggregate lists short.
@@ -239,6 +257,25 @@ inline void Axpy(const KernelTable& k, DType type, float a, const void* w, float
       return k.i8.axpy(a * scales[0], static_cast<const int8_t*>(w), y, n);
     default:
       return k.f32.axpy(a, static_cast<const float*>(w), y, n);
+  }
+}
+
+// sums[r] = Dot(k, type, xs[r], w, n, scales) for r < count (SharedRowKernels), bit for bit.
+inline void DotRows(const KernelTable& k, DType type, const void* w, const float* const* xs,
+                    size_t count, size_t n, float* sums, const float* scales = nullptr) {
+  switch (type) {
+    case DType::kF16:
+      return k.shared.dot_rows_f16(static_cast<const uint16_t*>(w), xs, count, n, sums);
+    case DType::kBF16:
+      return k.shared.dot_rows_bf16(static_cast<const uint16_t*>(w), xs, count, n, sums);
+    case DType::kI8:
+      assert(scales != nullptr);
+      k.shared.dot_rows_i8(static_cast<const int8_t*>(w), xs, count, n, sums);
+      // The same product as Dot's: scale times the unscaled sum.
+      for (size_t r = 0; r < count; ++r) sums[r] = scales[0] * sums[r];
+      return;
+    default:
+      return k.shared.dot_rows_f32(static_cast<const float*>(w), xs, count, n, sums);
   }
 }
 

@@ -193,6 +193,58 @@ struct SimdKernels {
     return xsimd::hadd((a0 + a1) + (a2 + a3));
   }
 
+  // ---- dot_rows: one weight row against several input rows ----
+
+  // Input rows per block: with four accumulators per row, R·4 accumulators and four weight
+  // vectors must fit the register file (16 registers below AVX-512, 32 with it).
+  static constexpr int kDotRows = L >= 16 ? 4 : 2;
+
+  // Dot's arithmetic for R rows at once: each row's accumulators see the same fused
+  // multiply-adds in the same order, and the same final sum, as Dot gives it alone; only the
+  // weight loads are shared.
+  template <class Tag, int R>
+  static void DotBlock(const typename Tag::Storage* w, const float* const* xs, size_t n,
+                       float* sums) {
+    F acc[R][4];
+#pragma GCC unroll 16
+    for (int r = 0; r < R; ++r) acc[r][0] = acc[r][1] = acc[r][2] = acc[r][3] = F(0.0f);
+    size_t i = 0;
+    for (; i + 4 * L <= n; i += 4 * L) {
+      F wv[4];
+#pragma GCC unroll 4
+      for (int j = 0; j < 4; ++j) wv[j] = Load(w + i + j * L, Tag{});
+#pragma GCC unroll 16
+      for (int r = 0; r < R; ++r) {
+#pragma GCC unroll 4
+        for (int j = 0; j < 4; ++j) {
+          acc[r][j] = xsimd::fma(F::load_unaligned(xs[r] + i + j * L), wv[j], acc[r][j]);
+        }
+      }
+    }
+    for (; i + L <= n; i += L) {
+      const F wv = Load(w + i, Tag{});
+      for (int r = 0; r < R; ++r)
+        acc[r][0] = xsimd::fma(F::load_unaligned(xs[r] + i), wv, acc[r][0]);
+    }
+    if (i < n) {
+      const F wv = LoadPartial(w + i, n - i, Tag{});
+      for (int r = 0; r < R; ++r) {
+        acc[r][1] = xsimd::fma(LoadPartial(xs[r] + i, n - i, FloatTag{}), wv, acc[r][1]);
+      }
+    }
+    for (int r = 0; r < R; ++r) {
+      sums[r] = xsimd::hadd((acc[r][0] + acc[r][1]) + (acc[r][2] + acc[r][3]));
+    }
+  }
+
+  template <class Tag>
+  static void DotRows(const typename Tag::Storage* w, const float* const* xs, size_t count,
+                      size_t n, float* sums) {
+    size_t r = 0;
+    for (; r + kDotRows <= count; r += kDotRows) DotBlock<Tag, kDotRows>(w, xs + r, n, sums + r);
+    for (; r < count; ++r) DotBlock<Tag, 1>(w, xs + r, n, sums + r);
+  }
+
   template <class Tag>
   static void Axpy(float a, const typename Tag::Storage* w, float* y, size_t n) {
     const F av(a);
@@ -281,7 +333,27 @@ struct SimdKernels {
         for (int c = 0; c < C; ++c) acc[r * C + c] = xsimd::fma(xv, wv[c], acc[r * C + c]);
       }
     }
-    Traits::Reduce(acc, R * C, sums);
+    ReducePadded<R * C>(acc, sums);
+  }
+
+  // Traits::Reduce over N vectors padded with zero vectors to a whole number of its groups (4 or
+  // 8 vectors), so that it never takes its remainder path, whose copy through a run-time sized
+  // group costs more than the sums when N is small (a leaf's fc2 has in = leaf width). Every
+  // sum is formed as the remainder path would form it: each lane sum reads its own vector only.
+  template <int N>
+  static void ReducePadded(const F* acc, float* sums) {
+    constexpr int kPadded = (N + 7) / 8 * 8;
+    if constexpr (kPadded == N) {
+      Traits::Reduce(acc, N, sums);
+    } else {
+      F padded[kPadded];
+      float padded_sums[kPadded];
+#pragma GCC unroll 32
+      for (int j = 0; j < kPadded; ++j) padded[j] = j < N ? acc[j] : F(0.0f);
+      Traits::Reduce(padded, kPadded, padded_sums);
+#pragma GCC unroll 32
+      for (int j = 0; j < N; ++j) sums[j] = padded_sums[j];
+    }
   }
 
   // Block for a run-time shape rows <= R, cols <= C (the edges of the output).
@@ -311,6 +383,9 @@ struct SimdKernels {
   template <class Tag>
   static void GemmRowsScaled(const typename Tag::Storage* w, const float* scales, const float* x,
                              const float* bias, float* y, size_t rows, size_t out, size_t in) {
+    // One row (a leaf or expert reached by one row of a batch): gemv's wider blocks, with the
+    // same bits (a sum depends on its own accumulator only, whatever block it sits in).
+    if (rows == 1) return GemvScaled<Tag>(w, scales, x, bias, y, out, in);
     constexpr size_t R = Traits::kGemmRows;
     constexpr size_t C = Traits::kGemmCols;
     const size_t row_bytes = Max<size_t>(in, 1) * sizeof(float);
@@ -612,6 +687,7 @@ struct SimdKernels {
         &HalfToFloatArray,
         &FloatToBFloat16Array,
         &BFloat16ToFloatArray,
+        {&DotRows<FloatTag>, &DotRows<HalfTag>, &DotRows<BFloat16Tag>, &DotRows<Int8Tag>},
     };
   }
 };

@@ -34,6 +34,15 @@ struct Scratch {
   // their scales (QuantizeRows, quantize.h).
   std::vector<int8_t> quantized;
   std::vector<float> quantized_scales;
+  // Path and leaf trees, batched: one tile's descent. Each row's current node, and the tile's
+  // rows grouped by node (and the next level's grouping).
+  std::vector<uint64_t> descent_node;
+  std::vector<uint32_t> descent_order, descent_next_order;
+  // PathTreeLayer, batched: each row's path: its logits, then activations, and the output rows
+  // (with their int8 scales) they multiply, [rows, depth + 1].
+  std::vector<float> path_logits;
+  std::vector<const void*> path_out;
+  std::vector<const float*> path_out_scale;
 };
 
 class ThreadPool;

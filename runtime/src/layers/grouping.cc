@@ -20,6 +20,31 @@ void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& o
   }
 }
 
+size_t TileRows(size_t rows, size_t in, size_t threads) {
+  const size_t fit = kTileInputBytes / (std::max<size_t>(in, 1) * sizeof(float));
+  const size_t per_thread = (rows + threads - 1) / std::max<size_t>(threads, 1);
+  return std::max<size_t>(1, std::min(fit, per_thread));
+}
+
+void RegroupByChild(const uint64_t* node, const uint32_t* order, size_t rows, uint32_t* next) {
+  size_t n = 0;
+  for (size_t i = 0; i < rows;) {
+    const uint64_t parent = (node[order[i]] - 1) / 2;
+    size_t end = i;
+    while (end < rows && (node[order[end]] - 1) / 2 == parent) ++end;
+    // Branch-free: which way a row went is as unpredictable as a coin.
+    for (size_t j = i; j < end; ++j) {
+      next[n] = order[j];
+      n += node[order[j]] % 2;  // left children are odd
+    }
+    for (size_t j = i; j < end; ++j) {
+      next[n] = order[j];
+      n += 1 - node[order[j]] % 2;
+    }
+    i = end;
+  }
+}
+
 void RunGroups(const Exec& exec, const std::vector<RowGroup>& groups,
                const std::vector<uint32_t>& order, size_t per_row, const float* x, size_t in,
                float* out, size_t out_width, const std::function<MlpView(uint32_t)>& unit) {

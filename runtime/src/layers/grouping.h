@@ -1,11 +1,17 @@
 // Grouping rows by unit (a leaf of a leaf tree, an expert): each unit touched by a batch runs
 // once over the rows routed to it, as a small matrix product, instead of once per row.
+//
+// And the batched descent of a binary tree (path and leaf trees): level by level over a tile of
+// rows kept grouped by node, so that a node's weight row is read once for all its rows.
 #pragma once
 
+#include <algorithm>
 #include <cstddef>
 #include <cstdint>
 #include <functional>
 #include <vector>
+
+#include "kernels/kernels.h"
 
 #include "layers/exec.h"
 #include "layers/mlp.h"
@@ -27,5 +33,65 @@ void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& o
 void RunGroups(const Exec& exec, const std::vector<RowGroup>& groups,
                const std::vector<uint32_t>& order, size_t per_row, const float* x, size_t in,
                float* out, size_t out_width, const std::function<MlpView(uint32_t)>& unit);
+
+// The input rows of one tile of a batched tree descent, kept in cache while the tile descends,
+// beside the top levels' weight rows that most of its rows read.
+inline constexpr size_t kTileInputBytes = 384 * 1024;
+// How many entries ahead of the group being computed the descent requests weight rows
+// (measured: 1 to 8 at in = out = 768 perform alike).
+inline constexpr size_t kDescentPrefetchAhead = 2;
+
+// Rows per tile for a batch of `rows` rows of `in` floats on `threads` threads: as many as fit
+// kTileInputBytes, but at least one tile per thread.
+size_t TileRows(size_t rows, size_t in, size_t threads);
+
+// The order was grouped by node at the level just done (node[] now holds each row's child), in
+// ascending node order; the children of ascending nodes ascend too (2n + 1 < 2n + 2 < 2m + 1
+// for n < m), so splitting each group into its left-going then its right-going rows groups
+// `next` by the new nodes. No sort. `next` has room for rows + 1 entries (the last is scratch).
+void RegroupByChild(const uint64_t* node, const uint32_t* order, size_t rows, uint32_t* next);
+
+// What a descent needs of one node: its weight row (of `type`; i8 with its scale) and bias.
+struct NodeRow {
+  DType type = DType::kF32;
+  const void* weight = nullptr;
+  const float* scale = nullptr;
+  const float* bias = nullptr;  // null: no bias
+};
+
+// One level of a batched descent over rows grouped by node (order[] lists rows, node[r] is row
+// r's node): each row gets its node's logit w·x + b, with dot's arithmetic (dot_rows), so the
+// logit does not depend on the batch. `locate(node)` returns something `row(located)` turns
+// into a NodeRow; `prefetch(located)` requests its data; `emit(r, located, logit)` receives
+// each row's logit.
+template <class Locate, class Row, class Prefetch, class Emit>
+void LogitsByNode(const kernels::KernelTable& k, const float* x, size_t in, size_t rows,
+                  const uint64_t* node, const uint32_t* order, Locate&& locate, Row&& row,
+                  Prefetch&& prefetch, Emit&& emit) {
+  constexpr size_t kBlock = 16;  // rows of a group per dot_rows call
+  auto starts_group = [&](size_t i) { return i == 0 || node[order[i]] != node[order[i - 1]]; };
+  size_t requested = 0;  // entries whose groups' weight rows have been requested
+  for (size_t i = 0; i < rows;) {
+    const uint64_t current = node[order[i]];
+    size_t end = i + 1;
+    while (end < rows && node[order[end]] == current) ++end;
+    for (; requested < std::min(rows, end + kDescentPrefetchAhead); ++requested) {
+      if (starts_group(requested)) prefetch(locate(node[order[requested]]));
+    }
+    const auto located = locate(current);
+    const NodeRow w = row(located);
+    for (size_t first = i; first < end; first += kBlock) {
+      const size_t count = std::min(kBlock, end - first);
+      const float* xs[kBlock];
+      float logits[kBlock];
+      for (size_t j = 0; j < count; ++j) xs[j] = x + order[first + j] * in;
+      kernels::DotRows(k, w.type, w.weight, xs, count, in, logits, w.scale);
+      for (size_t j = 0; j < count; ++j) {
+        emit(order[first + j], located, w.bias != nullptr ? logits[j] + *w.bias : logits[j]);
+      }
+    }
+    i = end;
+  }
+}
 
 }  // namespace sprig::layers

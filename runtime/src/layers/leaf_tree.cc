@@ -53,6 +53,37 @@ uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
   return static_cast<uint32_t>(node - first_leaf);
 }
 
+// Level by level over the tile's rows grouped by node, as the path tree's batched descent: a
+// node's weight row is read once for all the rows reaching it, with the single-row logits.
+void LeafTreeLayer::DescendTile(const kernels::KernelTable& k, const float* x, size_t rows,
+                                uint32_t* leaves, Scratch& scratch) const {
+  scratch.descent_node.assign(rows, 0);
+  // Both orders have one entry to spare, as RegroupByChild writes one past (they swap).
+  scratch.descent_order.resize(rows + 1);
+  scratch.descent_next_order.resize(rows + 1);
+  uint64_t* node = scratch.descent_node.data();
+  for (size_t r = 0; r < rows; ++r) scratch.descent_order[r] = static_cast<uint32_t>(r);
+  for (uint32_t level = 0; level < config_.depth; ++level) {
+    LogitsByNode(
+        k, x, in_, rows, node, scratch.descent_order.data(), [](uint64_t n) { return n; },
+        [this](uint64_t n) {
+          return NodeRow{nodes_.type, nodes_.row(n), nodes_.row_scales(n),
+                         node_bias_ ? node_bias_ + n : nullptr};
+        },
+        [this](uint64_t n) {
+          for (size_t offset = 0; offset < nodes_.row_bytes; offset += 64) {
+            __builtin_prefetch(static_cast<const uint8_t*>(nodes_.row(n)) + offset, 0, 3);
+          }
+        },
+        // A logit of exactly 0 (or NaN) goes left.
+        [&](uint32_t r, uint64_t n, float logit) { node[r] = 2 * n + 1 + (logit > 0.0f ? 1 : 0); });
+    RegroupByChild(node, scratch.descent_order.data(), rows, scratch.descent_next_order.data());
+    scratch.descent_order.swap(scratch.descent_next_order);
+  }
+  const uint64_t first_leaf = (uint64_t{1} << config_.depth) - 1;
+  for (size_t r = 0; r < rows; ++r) leaves[r] = static_cast<uint32_t>(node[r] - first_leaf);
+}
+
 void LeafTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float* y,
                             int32_t* routes) const {
   const kernels::KernelTable& k = *exec.k;
@@ -71,15 +102,25 @@ void LeafTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float
     MlpForward(k, Leaf(leaf), x, 1, y, scratch, true, exec.int8_activations);
     return;
   }
-  // Descend every row (rows are independent), then evaluate each touched leaf once over the
-  // rows routed to it, as a small matrix product.
+  // Descend every row, in tiles of rows grouped by node (DescendTile), then evaluate each
+  // touched leaf once over the rows routed to it, as a small matrix product.
   std::vector<uint32_t> leaf_of(rows);
-  const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
-  exec.ParallelFor(chunks, [&](size_t chunk, Scratch& scratch) {
-    for (size_t r = chunk * kRowChunk; r < std::min(rows, (chunk + 1) * kRowChunk); ++r) {
-      leaf_of[r] = descend(x + r * in_, scratch, false);
-    }
-  });
+  if (quantize_nodes) {
+    // Compute mode "i8": each row descends alone on its own quantised input.
+    const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
+    exec.ParallelFor(chunks, [&](size_t chunk, Scratch& scratch) {
+      for (size_t r = chunk * kRowChunk; r < std::min(rows, (chunk + 1) * kRowChunk); ++r) {
+        leaf_of[r] = descend(x + r * in_, scratch, false);
+      }
+    });
+  } else {
+    const size_t tile = TileRows(rows, in_, exec.threads());
+    exec.ParallelFor((rows + tile - 1) / tile, [&](size_t t, Scratch& scratch) {
+      const size_t first = t * tile;
+      DescendTile(k, x + first * in_, std::min(tile, rows - first), leaf_of.data() + first,
+                  scratch);
+    });
+  }
   if (routes) {
     for (size_t r = 0; r < rows; ++r) routes[r] = static_cast<int32_t>(leaf_of[r]);
   }

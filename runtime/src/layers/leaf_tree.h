@@ -30,6 +30,9 @@ class LeafTreeLayer final : public FeedForward {
   // "i8", i8-stored nodes) the logits use the int8 kernels; otherwise x in float.
   uint32_t Descend(const kernels::KernelTable& k, const float* x, const int8_t* quantized,
                    float scale, bool prefetch) const;
+  // A batch's tile of rows: leaves[r] for r < rows.
+  void DescendTile(const kernels::KernelTable& k, const float* x, size_t rows, uint32_t* leaves,
+                   Scratch& scratch) const;
   MlpView Leaf(uint64_t leaf) const {
     return MlpOf(binder_, leaves_, leaf, config_, config_.leaf_width);
   }

@@ -7,13 +7,15 @@
 
 #include "format/row_map.h"
 #include "layers/exec.h"
+#include "layers/grouping.h"
 #include "layers/quantize.h"
 #include "model/config_check.h"
 
 namespace sprig::layers {
 namespace {
 
-// How many rows ahead the batched descent prefetches (measured: 1 to 4 at in = out = 768).
+// How many rows ahead the batched sum requests output rows (measured: 1 to 6 at
+// in = out = 768 perform alike).
 constexpr size_t kPrefetchRowsAhead = 2;
 
 }  // namespace
@@ -98,14 +100,6 @@ float PathTreeLayer::Logit(const kernels::KernelTable& k, const Neuron& neuron, 
   return neuron.bias != nullptr ? dot + *neuron.bias : dot;
 }
 
-void PathTreeLayer::AddOutput(const kernels::KernelTable& k, const Neuron& neuron, float a,
-                              float* y) const {
-  // The kernels' activation, one element: the same value it gives inside a vector, so a row's
-  // result does not depend on whether it ran alone (ForwardOne) or in a batch.
-  k.activate(config_.activation, &a, 1);
-  kernels::Axpy(k, out_rows_->dtype, a, neuron.out, y, out_, neuron.out_scale);
-}
-
 void PathTreeLayer::PrefetchWeight(const Neuron& neuron) const {
   for (uint64_t offset = 0; offset < weight_->row_bytes; offset += 64) {
     __builtin_prefetch(neuron.weight + offset, 0, 3);
@@ -169,60 +163,139 @@ void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& exec, 
   if (routes) routes[0] = static_cast<int32_t>(node - ((uint64_t{1} << depth) - 1));
 }
 
+// A batch runs in tiles of rows, each in two phases as ForwardOne (and with its arithmetic, so a
+// row's result does not depend on its batch, its tile or the thread that ran it).
+// The descent, level by level over the tile's rows grouped by node: a node's weight row is read
+// once for all the rows that reach it (the top levels are shared by most of the tile), and
+// rows further on in the order are prefetched (the deep levels, where each row has its own
+// node, are a stream of independent loads). Each row keeps its logits and output rows.
+// The sum, row by row in leaf order (neighbours then share most of their path, whose output
+// rows stay in cache): each row's activations in one vector call and its output rows added to
+// its y in one axpy_rows, while the next row's output rows are requested.
 void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float* y,
                             int32_t* routes) const {
   const kernels::KernelTable& k = *exec.k;
-  const uint32_t depth = config_.depth;
-  const uint64_t first_leaf = (uint64_t{1} << depth) - 1;
-  auto init = [&](float* y_row) {
-    if (out_bias_) {
-      std::memcpy(y_row, out_bias_, out_ * sizeof(float));
-    } else {
-      std::fill(y_row, y_row + out_, 0.0f);
-    }
-  };
   if (Quantizes(exec, weight_->dtype)) return ForwardQuantized(exec, x, rows, y, routes);
   if (exec.single_row) {
-    init(y);
+    InitOutput(y);
     ForwardOne(k, exec, x, y, routes, nullptr);
     return;
   }
-  // Level by level for all rows; within a level rows are visited grouped by node, so each
-  // neuron's weights are read once per batch and reused from cache for its rows. A row's
-  // arithmetic does not depend on the grouping, so the split over threads is free.
-  std::vector<uint64_t> node(rows, 0);
-  std::vector<std::pair<uint64_t, uint32_t>> order(rows);
-  for (size_t r = 0; r < rows; ++r) init(y + r * out_);
-  for (uint32_t level = 0; level <= depth; ++level) {
-    for (size_t r = 0; r < rows; ++r) order[r] = {node[r], static_cast<uint32_t>(r)};
-    if (level > 0) std::sort(order.begin(), order.end());
-    if (exec.touched) {
-      // Rows are sorted by node: mark each distinct node's record once.
-      for (size_t i = 0; i < rows; ++i) {
-        if (i == 0 || order[i].first != order[i - 1].first) Touch(exec, order[i].first);
-      }
-    }
-    const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
-    exec.ParallelFor(chunks, [&](size_t chunk, Scratch&) {
-      for (size_t i = chunk * kRowChunk; i < std::min(rows, (chunk + 1) * kRowChunk); ++i) {
-        const uint32_t r = order[i].second;
-        // Rows further on in this order usually need other neurons: fetch them ahead, far
-        // enough that they arrive before they are needed.
-        const size_t ahead = i + kPrefetchRowsAhead;
-        if (ahead < rows && order[ahead].first != order[ahead - 1].first) {
-          const Neuron next = Locate(order[ahead].first);
-          PrefetchWeight(next);
-          PrefetchOut(next);
-        }
-        const Neuron neuron = Locate(node[r]);
-        const float a = Logit(k, neuron, x + r * in_, nullptr);
-        AddOutput(k, neuron, a, y + r * out_);
-        if (level < depth) node[r] = 2 * node[r] + 1 + (a > 0.0f ? 1 : 0);
-      }
-    });
+  // The statistics need every row's path, which its leaf determines.
+  std::vector<int32_t> own_leaves;
+  int32_t* leaves = routes;
+  if (leaves == nullptr && exec.touched != nullptr) {
+    own_leaves.resize(rows);
+    leaves = own_leaves.data();
   }
-  if (routes) {
-    for (size_t r = 0; r < rows; ++r) routes[r] = static_cast<int32_t>(node[r] - first_leaf);
+  const size_t tile = TileRows(rows, in_, exec.threads());
+  const size_t tiles = (rows + tile - 1) / tile;
+  exec.ParallelFor(tiles, [&](size_t t, Scratch& scratch) {
+    const size_t first = t * tile;
+    ForwardTile(k, x + first * in_, std::min(tile, rows - first), y + first * out_,
+                leaves != nullptr ? leaves + first : nullptr, scratch);
+  });
+  if (exec.touched != nullptr) TouchPaths(exec, leaves, rows);
+}
+
+void PathTreeLayer::InitOutput(float* y) const {
+  if (out_bias_) {
+    std::memcpy(y, out_bias_, out_ * sizeof(float));
+  } else {
+    std::fill(y, y + out_, 0.0f);
+  }
+}
+
+void PathTreeLayer::TouchPaths(const Exec& exec, const int32_t* leaves, size_t rows) const {
+  const uint32_t depth = config_.depth;
+  for (size_t r = 0; r < rows; ++r) {
+    // In heap order, node n's children are 2n + 1 and 2n + 2, so the ancestor of node m at
+    // `level` is ((m + 1) >> (depth - level)) - 1.
+    const uint64_t leaf_node = (uint64_t{1} << depth) + static_cast<uint64_t>(leaves[r]);
+    for (uint32_t level = 0; level <= depth; ++level) {
+      Touch(exec, (leaf_node >> (depth - level)) - 1);
+    }
+  }
+}
+
+void PathTreeLayer::ForwardTile(const kernels::KernelTable& k, const float* x, size_t rows,
+                                float* y, int32_t* leaves, Scratch& scratch) const {
+  const uint32_t depth = config_.depth;
+  const size_t width = depth + 1;
+  scratch.descent_node.assign(rows, 0);
+  // Both orders have one entry to spare, as RegroupByChild writes one past (they swap).
+  scratch.descent_order.resize(rows + 1);
+  scratch.descent_next_order.resize(rows + 1);
+  scratch.path_logits.resize(rows * width);
+  scratch.path_out.resize(rows * width);
+  scratch.path_out_scale.resize(rows * width);
+  for (size_t r = 0; r < rows; ++r) scratch.descent_order[r] = static_cast<uint32_t>(r);
+  for (uint32_t level = 0; level <= depth; ++level) {
+    DescendLevel(k, x, rows, level, scratch);
+    if (level < depth) {
+      RegroupByChild(scratch.descent_node.data(), scratch.descent_order.data(), rows,
+                     scratch.descent_next_order.data());
+      scratch.descent_order.swap(scratch.descent_next_order);
+    }
+  }
+  const uint64_t first_leaf = (uint64_t{1} << depth) - 1;
+  if (leaves != nullptr) {
+    for (size_t r = 0; r < rows; ++r) {
+      leaves[r] = static_cast<int32_t>(scratch.descent_node[r] - first_leaf);
+    }
+  }
+  SumTile(k, rows, y, scratch);
+}
+
+void PathTreeLayer::DescendLevel(const kernels::KernelTable& k, const float* x, size_t rows,
+                                 uint32_t level, Scratch& scratch) const {
+  const size_t width = config_.depth + 1;
+  uint64_t* node = scratch.descent_node.data();
+  LogitsByNode(
+      k, x, in_, rows, node, scratch.descent_order.data(), [this](uint64_t n) { return Locate(n); },
+      [this](const Neuron& neuron) {
+        return NodeRow{weight_->dtype, neuron.weight, neuron.weight_scale, neuron.bias};
+      },
+      [this](const Neuron& neuron) { PrefetchWeight(neuron); },
+      [&](uint32_t r, const Neuron& neuron, float a) {
+        scratch.path_logits[r * width + level] = a;
+        scratch.path_out[r * width + level] = neuron.out;
+        scratch.path_out_scale[r * width + level] = neuron.out_scale;
+        if (level < config_.depth) node[r] = 2 * node[r] + 1 + (a > 0.0f ? 1 : 0);
+      });
+}
+
+void PathTreeLayer::SumTile(const kernels::KernelTable& k, size_t rows, float* y,
+                            Scratch& scratch) const {
+  const size_t width = config_.depth + 1;
+  const uint32_t* order = scratch.descent_order.data();
+  const void* const* out = scratch.path_out.data();
+  const float* const* out_scale = scratch.path_out_scale.data();
+  // Requests the output rows of entry i of the order that entry i - 1 does not share (those
+  // are in cache by the time entry i is summed).
+  auto request = [&](size_t i) {
+    const size_t path = order[i] * width;
+    const size_t before = i > 0 ? order[i - 1] * width : 0;
+    for (size_t level = 0; level < width; ++level) {
+      if (i > 0 && out[path + level] == out[before + level]) continue;
+      Neuron neuron;
+      neuron.out = static_cast<const uint8_t*>(out[path + level]);
+      neuron.out_scale = out_scale[path + level];
+      PrefetchOut(neuron);
+    }
+  };
+  for (size_t i = 0; i < std::min(rows, kPrefetchRowsAhead); ++i) request(i);
+  for (size_t i = 0; i < rows; ++i) {
+    if (i + kPrefetchRowsAhead < rows) request(i + kPrefetchRowsAhead);
+    const uint32_t r = order[i];
+    float* a = scratch.path_logits.data() + r * width;
+    k.activate(config_.activation, a, width);
+    for (size_t level = 0; level < width; ++level) {
+      if (out_scale[r * width + level] != nullptr) a[level] *= *out_scale[r * width + level];
+    }
+    float* y_row = y + r * out_;
+    InitOutput(y_row);
+    kernels::AxpyRows(k, out_rows_->dtype, a, out + r * width, width, y_row, out_);
   }
 }
 
@@ -234,8 +307,6 @@ void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float
 void PathTreeLayer::ForwardQuantized(const Exec& exec, const float* x, size_t rows, float* y,
                                      int32_t* routes) const {
   const kernels::KernelTable& k = *exec.k;
-  const uint32_t depth = config_.depth;
-  const uint64_t first_leaf = (uint64_t{1} << depth) - 1;
   std::vector<int32_t> leaf_of(rows);
   Exec untouched = exec;
   untouched.touched = nullptr;
@@ -243,23 +314,12 @@ void PathTreeLayer::ForwardQuantized(const Exec& exec, const float* x, size_t ro
   exec.ParallelFor(chunks, [&](size_t chunk, Scratch& scratch) {
     for (size_t r = chunk * kRowChunk; r < std::min(rows, (chunk + 1) * kRowChunk); ++r) {
       float* y_row = y + r * out_;
-      if (out_bias_) {
-        std::memcpy(y_row, out_bias_, out_ * sizeof(float));
-      } else {
-        std::fill(y_row, y_row + out_, 0.0f);
-      }
+      InitOutput(y_row);
       const QuantizedRows quantized = QuantizeRows(k, x + r * in_, 1, in_, scratch);
       ForwardOne(k, untouched, x + r * in_, y_row, &leaf_of[r], &quantized);
     }
   });
-  if (exec.touched) {
-    for (size_t r = 0; r < rows; ++r) {
-      for (uint64_t node = first_leaf + uint64_t(leaf_of[r]);; node = (node - 1) / 2) {
-        Touch(exec, node);
-        if (node == 0) break;
-      }
-    }
-  }
+  if (exec.touched) TouchPaths(exec, leaf_of.data(), rows);
   if (routes) std::copy(leaf_of.begin(), leaf_of.end(), routes);
 }
 

@@ -43,8 +43,6 @@ class PathTreeLayer final : public FeedForward {
   // weights: x quantised once) through the int8 kernels.
   float Logit(const kernels::KernelTable& k, const Neuron& neuron, const float* x,
               const QuantizedRows* quantized) const;
-  // y += act(a)·out.
-  void AddOutput(const kernels::KernelTable& k, const Neuron& neuron, float a, float* y) const;
   // Starts loading a neuron's weight row, or its output row (both with their scales).
   void PrefetchWeight(const Neuron& neuron) const;
   void PrefetchOut(const Neuron& neuron) const;
@@ -53,6 +51,18 @@ class PathTreeLayer final : public FeedForward {
   // Compute mode "i8" for any batch: each row through ForwardOne with its quantised input.
   void ForwardQuantized(const Exec& exec, const float* x, size_t rows, float* y,
                         int32_t* routes) const;
+  // y = out_bias (or 0).
+  void InitOutput(float* y) const;
+  // Batches, a tile of rows at a time (see Forward): the descent one level at a time over the
+  // rows grouped by node, then the sums.
+  // `leaves` may be null.
+  void ForwardTile(const kernels::KernelTable& k, const float* x, size_t rows, float* y,
+                   int32_t* leaves, Scratch& scratch) const;
+  void DescendLevel(const kernels::KernelTable& k, const float* x, size_t rows, uint32_t level,
+                    Scratch& scratch) const;
+  void SumTile(const kernels::KernelTable& k, size_t rows, float* y, Scratch& scratch) const;
+  // Marks the records of every node on the rows' paths (given by their leaves).
+  void TouchPaths(const Exec& exec, const int32_t* leaves, size_t rows) const;
 
   Binder binder_;
   LayerConfig config_;
