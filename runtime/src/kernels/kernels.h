@@ -104,14 +104,18 @@ struct Int8ActivationKernels {
                     const float* bias, float* y, size_t rows, size_t out, size_t in);
 };
 
-// The one float expression of an int8-activation output: fma(s_x·s_w, float(sum), bias[o])
-// (bias null: 0), the product s_x·s_w rounded, then one fused multiply-add rounded once. A
-// fused multiply-add is correctly rounded wherever it runs (an instruction where the path has
-// one, the C library's otherwise), and a compiler may not split or contract it differently per
-// file, so every path gives the same bits.
-inline float QuantizedOutput(int32_t sum, float x_scale, float w_scale, const float* bias,
-                             size_t o) {
-  return std::fma(x_scale * w_scale, static_cast<float>(sum), bias != nullptr ? bias[o] : 0.0f);
+// The one float expression of an int8-activation output: s = s_x·s_w rounded to float, then
+// float(double(s)·double(float(sum)) + bias[o]) (bias null: 0). Both factors have at most 24
+// significant bits, so their product is exact in double: the sum with the bias rounds once in
+// double and once more to float, and a compiler that contracts the multiply and the add into a
+// fused multiply-add gets the same bits. No C library function is involved (the fmaf of some C
+// libraries is not correctly rounded), so every path, compiler and system gives the same bits.
+// Internal linkage: each file compiled for its instruction set keeps its own copy.
+static inline float QuantizedOutput(int32_t sum, float x_scale, float w_scale, const float* bias,
+                                    size_t o) {
+  const double scale = static_cast<double>(x_scale * w_scale);
+  const double product = scale * static_cast<double>(static_cast<float>(sum));
+  return static_cast<float>(product + (bias != nullptr ? static_cast<double>(bias[o]) : 0.0));
 }
 
 // Kernels for the batched routed layers, where one weight row meets several input rows (the
