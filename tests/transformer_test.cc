@@ -225,6 +225,43 @@ TEST_F(TransformerTest, BatchOfSequencesEqualsEachAlone) {
   }
 }
 
+// Wide enough that a batch's projections are split between threads by outputs (d_model 128,
+// vocab 160: several pieces per matrix), and, for the long batch, by rows (its input rows pass
+// the column-split size). Every split must give the one-thread bits, and a prefill through the
+// cache the bits of the same tokens without it.
+TEST(TransformerThreads, WideProjectionsGiveTheSameBitsOnAnyThreadCount) {
+  testing::TempDir dir;
+  const std::string path = MakeModel(dir, "wide", R"({"family":"transformer","vocab_size":160,
+    "d_model":128,"n_heads":4,"max_seq":128,"norm":"rmsnorm","positions":"rope","causal":true,
+    "head":{"kind":"lm"},"layers":[{"kind":"tree","mode":"path","depth":3,"activation":"gelu"},
+    {"kind":"dense","width":96,"activation":"silu","gated":true}]})");
+  const size_t v = 160;
+  struct Shape {
+    size_t batch, length;
+  };
+  for (const Shape shape : {Shape{2, 40}, Shape{20, 128}}) {
+    const size_t rows = shape.batch * shape.length;
+    const std::vector<int32_t> tokens = Tokens(rows, 160, 5);
+    std::vector<float> base(rows * v);
+    auto s1 = Open(path, 1);
+    ASSERT_TRUE(s1);
+    ASSERT_TRUE(s1->forward_tokens(tokens.data(), shape.batch, shape.length, base.data()).ok());
+    for (size_t threads : {2, 3}) {
+      auto s = Open(path, threads);
+      ASSERT_TRUE(s);
+      std::vector<float> out(rows * v);
+      ASSERT_TRUE(s->forward_tokens(tokens.data(), shape.batch, shape.length, out.data()).ok());
+      EXPECT_TRUE(out == base) << rows << " rows, " << threads << " threads";
+      // The cached prefill of the first sequence: its last token's logits.
+      std::vector<float> last(v);
+      ASSERT_TRUE(s->append_tokens(tokens.data(), shape.length, last.data()).ok());
+      const float* want = base.data() + (shape.length - 1) * v;
+      EXPECT_TRUE(std::equal(last.begin(), last.end(), want))
+          << "append_tokens of " << shape.length << ", " << threads << " threads";
+    }
+  }
+}
+
 TEST_F(TransformerTest, GenerateIsDeterministicForASeedAndThreadCount) {
   auto collect = [&](size_t threads, uint64_t seed, float top_p) {
     auto s = Open(lm_, threads);

@@ -22,8 +22,11 @@ void GroupByUnit(const uint32_t* unit_of, size_t count, std::vector<uint32_t>& o
 
 size_t TileRows(size_t rows, size_t in, size_t threads) {
   const size_t fit = kTileInputBytes / (std::max<size_t>(in, 1) * sizeof(float));
-  const size_t per_thread = (rows + threads - 1) / std::max<size_t>(threads, 1);
-  return std::max<size_t>(1, std::min(fit, per_thread));
+  // More than one thread: kTilesPerThread tiles each, claimed as threads finish, so that a
+  // core that runs slower takes fewer of them instead of holding up the batch.
+  const size_t tiles = threads > 1 ? threads * kTilesPerThread : 1;
+  const size_t per_tile = (rows + tiles - 1) / tiles;
+  return std::max<size_t>(1, std::min(fit, per_tile));
 }
 
 void RegroupByChild(const uint64_t* node, const uint32_t* order, size_t rows, uint32_t* next) {

@@ -42,7 +42,9 @@ inline constexpr size_t kTileInputBytes = 384 * 1024;
 inline constexpr size_t kDescentPrefetchAhead = 2;
 
 // Rows per tile for a batch of `rows` rows of `in` floats on `threads` threads: as many as fit
-// kTileInputBytes, but at least one tile per thread.
+// kTileInputBytes, but at least one tile per thread, and kTilesPerThread per thread when there
+// are several.
+inline constexpr size_t kTilesPerThread = 2;
 size_t TileRows(size_t rows, size_t in, size_t threads);
 
 // The order was grouped by node at the level just done (node[] now holds each row's child), in

@@ -48,18 +48,28 @@ void TransformerNetwork::Attend(const layers::Exec& exec, TransformerWorkspace& 
     const float* vseq = values + seq * sequence_stride + g * hd;
     if (s.attention_scores.size() < total) s.attention_scores.resize(total);
     float* scores = s.attention_scores.data();
+    // The positions' key and value rows of this head, for the two many-row kernels.
+    s.attention_keys.resize(total);
+    s.attention_values.resize(total);
+    for (size_t j = 0; j < total; ++j) {
+      s.attention_keys[j] = kseq + j * kv_dim;
+      s.attention_values[j] = vseq + j * kv_dim;
+    }
     for (size_t t = 0; t < length; ++t) {
       const size_t row = seq * length + t;
       const float* q = ws.q.data() + row * d + h * hd;
       // Causal: position p sees keys 0..p; otherwise every key of the sequence.
       const size_t visible = config_->causal ? start + t + 1 : total;
-      for (size_t j = 0; j < visible; ++j) {
-        scores[j] = k.f32.dot(q, kseq + j * kv_dim, hd) / scale;
-      }
+      // scores[j] = dot(q, key_j): dot_rows forms each sum exactly as dot does, and a fused
+      // multiply-add's product does not depend on the order of its factors, so passing q as
+      // the shared row gives dot(q, key_j)'s bits while q is loaded once for all the keys.
+      k.shared.dot_rows_f32(q, s.attention_keys.data(), visible, hd, scores);
+      for (size_t j = 0; j < visible; ++j) scores[j] /= scale;
       k.softmax(scores, visible);
       float* out = ws.attn.data() + row * d + h * hd;
       for (size_t i = 0; i < hd; ++i) out[i] = 0.0f;
-      for (size_t j = 0; j < visible; ++j) k.f32.axpy(scores[j], vseq + j * kv_dim, out, hd);
+      // Equal to one axpy per position, in order, with the output kept in registers.
+      k.f32.axpy_rows(scores, s.attention_values.data(), visible, out, hd);
     }
   });
 }

@@ -46,42 +46,77 @@ struct Projection {
   float* y;
 };
 
-// The pieces one projection is split into between threads, and the rows or outputs per piece.
-// One row: the output rows are split (each output is its own dot product, computed the same way
-// whichever thread runs it). Batches: the rows are split in multiples of kRowChunk, so a row's
-// result does not depend on the thread count (see layers/exec.h).
+// The pieces one projection is split into between threads. Each output is its own dot product
+// (or, for a batch, its own accumulator in gemm_rows), computed the same way whichever piece
+// or thread runs it, so the result does not depend on the split.
+// - One thread: one piece, written straight into y.
+// - One row: the outputs are split, one piece per thread.
+// - Batches: kPiecesPerThread pieces per thread, which threads claim as they finish, so that a
+//   core that runs slower (another program on it, a lower clock) takes fewer of them instead
+//   of holding up the job. The outputs are split while the input rows fit kColumnSplitBytes:
+//   each thread then reads only its part of the matrix, and the input rows, which every piece
+//   reads, stay in cache. Longer inputs are split by rows instead, in multiples of kRowChunk.
+constexpr size_t kPiecesPerThread = 4;
+constexpr size_t kColumnSplitBytes = size_t{1} << 20;
+// A batch's piece has at least this many outputs, so that gemm_rows's register blocks stay full.
+constexpr size_t kMinOutputsPerPiece = 32;
+
 struct Split {
+  bool by_rows;
   size_t pieces;
-  size_t per_piece;
+  size_t per_piece;  // outputs, or rows when by_rows
 };
 
 Split SplitOf(const Exec& e, const MatrixView& w, size_t rows) {
+  if (e.threads() == 1) return {false, 1, w.rows};
   if (e.single_row || rows == 1) {
     const size_t pieces = w.rows >= 2 * kMinRowsPerThread ? e.threads() : 1;
-    return {pieces, (w.rows + pieces - 1) / pieces};
+    return {false, pieces, (w.rows + pieces - 1) / pieces};
   }
-  const size_t per_thread = (rows + e.threads() - 1) / e.threads();
-  const size_t chunk = (per_thread + layers::kRowChunk - 1) / layers::kRowChunk * layers::kRowChunk;
-  return {(rows + chunk - 1) / chunk, chunk};
+  const size_t wanted = e.threads() * kPiecesPerThread;
+  if (rows * w.cols * sizeof(float) <= kColumnSplitBytes) {
+    const size_t pieces = std::max<size_t>(1, std::min(wanted, w.rows / kMinOutputsPerPiece));
+    const size_t per_piece = (w.rows + pieces - 1) / pieces;
+    return {false, (w.rows + per_piece - 1) / per_piece, per_piece};
+  }
+  const size_t per_piece = (rows + wanted - 1) / wanted;
+  const size_t chunk = (per_piece + layers::kRowChunk - 1) / layers::kRowChunk * layers::kRowChunk;
+  return {true, (rows + chunk - 1) / chunk, chunk};
 }
 
-void RunPiece(const Exec& e, const Projection& p, const float* x, size_t rows, size_t piece,
-              size_t per_piece) {
+void RunPiece(const Exec& e, const Projection& p, const float* x, size_t rows, const Split& split,
+              size_t piece, layers::Scratch& scratch) {
   const MatrixView& w = *p.weight;
   const size_t out = w.rows, in = w.cols;
+  if (split.by_rows) {
+    const size_t r0 = piece * split.per_piece, n = std::min(split.per_piece, rows - r0);
+    kernels::GemmRows(*e.k, w.type, w.data, x + r0 * in, p.bias, p.y + r0 * out, n, out, in,
+                      w.scales);
+    return;
+  }
+  const size_t o0 = piece * split.per_piece;
+  if (o0 >= out) return;
+  const size_t n = std::min(split.per_piece, out - o0);
+  const float* bias = p.bias ? p.bias + o0 : nullptr;
   if (e.single_row || rows == 1) {
-    const size_t o0 = piece * per_piece;
-    if (o0 >= out) return;
-    const size_t n = std::min(per_piece, out - o0);
     for (size_t r = 0; r < rows; ++r) {
-      kernels::Gemv(*e.k, w.type, w.row(o0), x + r * in, p.bias ? p.bias + o0 : nullptr,
-                    p.y + r * out + o0, n, in, w.row_scales(o0));
+      kernels::Gemv(*e.k, w.type, w.row(o0), x + r * in, bias, p.y + r * out + o0, n, in,
+                    w.row_scales(o0));
     }
     return;
   }
-  const size_t r0 = piece * per_piece, n = std::min(per_piece, rows - r0);
-  kernels::GemmRows(*e.k, w.type, w.data, x + r0 * in, p.bias, p.y + r0 * out, n, out, in,
-                    w.scales);
+  if (n == out) {
+    kernels::GemmRows(*e.k, w.type, w.data, x, bias, p.y, rows, out, in, w.scales);
+    return;
+  }
+  // gemm_rows writes whole rows: the piece's outputs go through the thread's scratch.
+  std::vector<float>& piece_out = scratch.group_output;
+  piece_out.resize(rows * n);
+  kernels::GemmRows(*e.k, w.type, w.row(o0), x, bias, piece_out.data(), rows, n, in,
+                    w.row_scales(o0));
+  for (size_t r = 0; r < rows; ++r) {
+    std::copy_n(piece_out.data() + r * n, n, p.y + r * out + o0);
+  }
 }
 
 // Every projection of the same input in one parallel job: the threads meet once, not once per
@@ -94,10 +129,10 @@ void Project(const Exec& e, const Projection (&projections)[N], const float* x, 
     splits[i] = SplitOf(e, *projections[i].weight, rows);
     tasks += splits[i].pieces;
   }
-  e.ParallelFor(tasks, [&](size_t task, layers::Scratch&) {
+  e.ParallelFor(tasks, [&](size_t task, layers::Scratch& scratch) {
     size_t i = 0;
     while (task >= splits[i].pieces) task -= splits[i++].pieces;
-    RunPiece(e, projections[i], x, rows, task, splits[i].per_piece);
+    RunPiece(e, projections[i], x, rows, splits[i], task, scratch);
   });
 }
 
@@ -113,6 +148,22 @@ void Project(const Exec& e, const Linear& l, const float* x, size_t rows, float*
 
 void AddInPlace(float* x, const float* y, size_t n) {
   for (size_t i = 0; i < n; ++i) x[i] += y[i];
+}
+
+// Runs body(r) for every row r < rows, kRowChunk rows per task: work done row by row between
+// two parallel jobs, which would otherwise run on one thread while the others wait.
+template <typename Body>
+void ForEachRow(const Exec& e, size_t rows, const Body& body) {
+  const size_t tasks = (rows + layers::kRowChunk - 1) / layers::kRowChunk;
+  e.ParallelFor(tasks, [&](size_t task, layers::Scratch&) {
+    const size_t end = std::min(rows, (task + 1) * layers::kRowChunk);
+    for (size_t r = task * layers::kRowChunk; r < end; ++r) body(r);
+  });
+}
+
+// x[rows, width] += y[rows, width].
+void AddRows(const Exec& e, float* x, const float* y, size_t rows, size_t width) {
+  ForEachRow(e, rows, [&](size_t r) { AddInPlace(x + r * width, y + r * width, width); });
 }
 
 void Grow(std::vector<float>& v, size_t n) {
@@ -273,10 +324,10 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
     // One table for the positions of this call, shared by every block, head and sequence.
     ws.rope_cos.resize(length * hd / 2);
     ws.rope_sin.resize(length * hd / 2);
-    for (size_t t = 0; t < length; ++t) {
+    ForEachRow(e, length, [&](size_t t) {
       RopeTable(start + t, hd, config_->rope_base, ws.rope_cos.data() + t * hd / 2,
                 ws.rope_sin.data() + t * hd / 2);
-    }
+    });
   }
   if (cache) {
     cache->keys.resize(blocks_.size());
@@ -296,42 +347,49 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
                               {&b.k.weight, b.k.bias, ws.k.data()},
                               {&b.v.weight, b.v.bias, ws.v.data()}};
     Project(e, qkv, attn_in, rows);
-    if (rope) {
-      for (size_t r = 0; r < rows; ++r) {
-        const float* cs = ws.rope_cos.data() + (r % length) * hd / 2;
-        const float* sn = ws.rope_sin.data() + (r % length) * hd / 2;
-        for (size_t h = 0; h < config_->n_heads; ++h) ApplyRope(&ws.q[r * d + h * hd], hd, cs, sn);
-        for (size_t h = 0; h * hd < kv_dim_; ++h)
-          ApplyRope(&ws.k[r * kv_dim_ + h * hd], hd, cs, sn);
-      }
-    }
     const float *keys = ws.k.data(), *values = ws.v.data();
     size_t stride = length * kv_dim_;
+    float *cached_keys = nullptr, *cached_values = nullptr;
     if (cache) {
       // One sequence: its new keys and values go after those already cached.
       std::vector<float>& ck = cache->keys[i];
       std::vector<float>& cv = cache->values[i];
       ck.resize(total * kv_dim_);
       cv.resize(total * kv_dim_);
-      std::copy(ws.k.begin(), ws.k.begin() + rows * kv_dim_, ck.begin() + start * kv_dim_);
-      std::copy(ws.v.begin(), ws.v.begin() + rows * kv_dim_, cv.begin() + start * kv_dim_);
+      cached_keys = ck.data() + start * kv_dim_;
+      cached_values = cv.data() + start * kv_dim_;
       keys = ck.data();
       values = cv.data();
       stride = total * kv_dim_;
     }
+    // Each row's rotation and its copy into the cache, the rows split between threads.
+    ForEachRow(e, rows, [&](size_t r) {
+      float* q_row = &ws.q[r * d];
+      float* k_row = &ws.k[r * kv_dim_];
+      if (rope) {
+        const float* cs = ws.rope_cos.data() + (r % length) * hd / 2;
+        const float* sn = ws.rope_sin.data() + (r % length) * hd / 2;
+        for (size_t h = 0; h < config_->n_heads; ++h) ApplyRope(q_row + h * hd, hd, cs, sn);
+        for (size_t h = 0; h * hd < kv_dim_; ++h) ApplyRope(k_row + h * hd, hd, cs, sn);
+      }
+      if (cached_keys != nullptr) {
+        std::copy_n(k_row, kv_dim_, cached_keys + r * kv_dim_);
+        std::copy_n(&ws.v[r * kv_dim_], kv_dim_, cached_values + r * kv_dim_);
+      }
+    });
     Attend(e, ws, sequences, length, start, keys, values, stride);
     Project(e, b.o, ws.attn.data(), rows, ws.proj.data());
-    AddInPlace(x, ws.proj.data(), rows * d);
+    AddRows(e, x, ws.proj.data(), rows, d);
     // The feed-forward input: Norm2(x) before it (pre), or h = Norm1(x + Attn(x)) (post).
     NormRows(e, post ? b.norm1 : b.norm2, x, rows, ws.normed.data());
     b.ffn->Forward(e, ws.normed.data(), rows, ws.ffn.data(),
                    recorder.RoutesOf(i, b.ffn->route_width(), rows));
     if (post) {
       // x = Norm2(h + FFN(h)); the sum goes through ws.ffn, since a norm does not run in place.
-      AddInPlace(ws.ffn.data(), ws.normed.data(), rows * d);
+      AddRows(e, ws.ffn.data(), ws.normed.data(), rows, d);
       NormRows(e, b.norm2, ws.ffn.data(), rows, x);
     } else {
-      AddInPlace(x, ws.ffn.data(), rows * d);
+      AddRows(e, x, ws.ffn.data(), rows, d);
     }
     recorder.Trace(i, ws.normed.data(), d, x, d, rows);
   }
