@@ -1,9 +1,11 @@
 #include "bench/kit/machine.h"
 
 #include <algorithm>
+#include <atomic>
 #include <chrono>
 #include <cmath>
 #include <map>
+#include <thread>
 #include <vector>
 
 namespace sprig::bench {
@@ -87,28 +89,90 @@ ReadSample ReadBandwidth(const kernels::KernelTable& k, const float* data, size_
   return out;
 }
 
+namespace {
+
+// The multiply-add loop's data: a 64 × 512 weight matrix and 16 rows, 160 KiB in all.
+struct MaddData {
+  static constexpr size_t kRows = 16, kOut = 64, kIn = 512;
+  // Calls per timed sample.
+  static constexpr size_t kCalls = 64;
+  static constexpr double kSampleMadds = static_cast<double>(kCalls * kRows * kOut * kIn);
+  std::vector<float> w, x, bias, y;
+  MaddData() : w(kOut * kIn), x(kRows * kIn), bias(kOut, 0.5f), y(kRows * kOut) {
+    for (size_t i = 0; i < w.size(); ++i) w[i] = static_cast<float>(i % 7) * 0.01f;
+    for (size_t i = 0; i < x.size(); ++i) x[i] = static_cast<float>(i % 5) * 0.1f;
+  }
+  void Sample(const kernels::KernelTable& k) {
+    for (size_t c = 0; c < kCalls; ++c) {
+      k.f32.gemm_rows(w.data(), x.data(), bias.data(), y.data(), kRows, kOut, kIn);
+    }
+  }
+  // The outputs are read, so the calls have an effect the compiler must keep (they go through
+  // function pointers, which it cannot see through anyway).
+  bool Finite(const kernels::KernelTable& k) const { return k.all_finite(y.data(), y.size()); }
+};
+
+}  // namespace
+
 double MultiplyAddRate(const kernels::KernelTable& k, double min_seconds) {
-  constexpr size_t kRows = 16, kOut = 64, kIn = 512;
-  std::vector<float> w(kOut * kIn), x(kRows * kIn), bias(kOut, 0.5f), y(kRows * kOut);
-  for (size_t i = 0; i < w.size(); ++i) w[i] = static_cast<float>(i % 7) * 0.01f;
-  for (size_t i = 0; i < x.size(); ++i) x[i] = static_cast<float>(i % 5) * 0.1f;
-  constexpr size_t kCalls = 64;
-  const double madds = static_cast<double>(kCalls * kRows * kOut * kIn);
-  k.f32.gemm_rows(w.data(), x.data(), bias.data(), y.data(), kRows, kOut, kIn);
+  MaddData data;
+  data.Sample(k);
   double best = 0;
   const auto start = Clock::now();
   for (size_t samples = 0; samples < kMinSamples || Since(start) < min_seconds; ++samples) {
     const auto t0 = Clock::now();
-    for (size_t c = 0; c < kCalls; ++c) {
-      k.f32.gemm_rows(w.data(), x.data(), bias.data(), y.data(), kRows, kOut, kIn);
-    }
+    data.Sample(k);
     const double seconds = Since(t0);
-    if (seconds > 0) best = std::max(best, madds / seconds);
+    if (seconds > 0) best = std::max(best, MaddData::kSampleMadds / seconds);
   }
-  // The outputs are read, so the calls have an effect the compiler must keep (they go through
-  // function pointers, which it cannot see through anyway).
-  if (!k.all_finite(y.data(), y.size())) return 0;
-  return best;
+  return data.Finite(k) ? best : 0;
+}
+
+double ParallelMultiplyAddRate(const kernels::KernelTable& k, size_t threads, double seconds) {
+  std::atomic<size_t> ready{0};
+  std::atomic<bool> go{false}, stop{false};
+  std::vector<double> rates(threads, 0.0);
+  std::vector<std::thread> workers;
+  for (size_t t = 0; t < threads; ++t) {
+    workers.emplace_back([&, t] {
+      MaddData data;
+      data.Sample(k);  // warm: its data in this core's cache
+      ++ready;
+      while (!go.load()) std::this_thread::yield();
+      size_t samples = 0;
+      const auto t0 = Clock::now();
+      while (!stop.load()) {
+        data.Sample(k);
+        ++samples;
+      }
+      const double elapsed = Since(t0);
+      if (elapsed > 0 && data.Finite(k)) rates[t] = samples * MaddData::kSampleMadds / elapsed;
+    });
+  }
+  while (ready.load() < threads) std::this_thread::yield();
+  go.store(true);
+  std::this_thread::sleep_for(std::chrono::duration<double>(seconds));
+  stop.store(true);
+  for (std::thread& w : workers) w.join();
+  double sum = 0;
+  for (double r : rates) sum += r;
+  return sum;
+}
+
+ThreadScaling MeasureThreadScaling(const kernels::KernelTable& k, size_t threads, double seconds) {
+  // Alternating rounds, so that a change of the machine's state (another program starting)
+  // touches both rates alike.
+  constexpr int kRounds = 3;
+  double one = 0, many = 0;
+  for (int round = 0; round < kRounds; ++round) {
+    one = std::max(one, ParallelMultiplyAddRate(k, 1, seconds));
+    many = std::max(many, ParallelMultiplyAddRate(k, threads, seconds));
+  }
+  ThreadScaling s;
+  s.threads = threads;
+  s.multiply_adds_per_second = many;
+  s.times_one_thread = one > 0 ? many / one : 0;
+  return s;
 }
 
 std::vector<Bandwidth> PlannedSizes(const MachineOptions& options) {
@@ -150,6 +214,16 @@ Machine MeasureMachine(const kernels::KernelTable& k, const MachineOptions& opti
     if (options.step) options.step();
   }
   m.multiply_adds_per_second = MultiplyAddRate(k, options.seconds_per_size);
+  // Long enough for the cores' clocks to settle under the load of all of them.
+  const double scaling_seconds = std::max(0.1, 5 * options.seconds_per_size);
+  for (size_t threads : options.thread_counts) {
+    if (threads < 2) continue;
+    if (std::any_of(m.thread_scaling.begin(), m.thread_scaling.end(),
+                    [&](const ThreadScaling& s) { return s.threads == threads; })) {
+      continue;
+    }
+    m.thread_scaling.push_back(MeasureThreadScaling(k, threads, scaling_seconds));
+  }
   if (options.step) options.step();
   m.seconds = Since(start);
   return m;

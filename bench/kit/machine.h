@@ -22,11 +22,20 @@ struct Bandwidth {
   std::string what;                // why this size: "ladder", "layer 3", "file", ...
 };
 
+// Several threads running the multiply-add loop at once, each on its own cache-resident data:
+// what the machine itself gives when a session's work is split perfectly between threads.
+struct ThreadScaling {
+  size_t threads = 0;
+  double multiply_adds_per_second = 0;  // all the threads together
+  double times_one_thread = 0;          // ÷ one thread's rate, measured the same way alongside
+};
+
 struct Machine {
   std::string kernel_path;
   std::vector<Bandwidth> bandwidth;     // ascending working set, one entry per size
   double multiply_adds_per_second = 0;  // f32 gemm_rows on cache-resident data
-  double seconds = 0;                   // the measurement took
+  std::vector<ThreadScaling> thread_scaling;  // per thread count above 1 that the run uses
+  double seconds = 0;                         // the measurement took
 
   // Bandwidth at `bytes`: the entry of that size when measured, else interpolated linearly in
   // log(size) between the nearest two, or the nearest end's. 0 when nothing was measured.
@@ -63,10 +72,19 @@ ReadSample ReadBandwidth(const kernels::KernelTable& k, const float* data, size_
 // (160 KiB in all, cache-resident), the best of samples taken for `min_seconds`.
 double MultiplyAddRate(const kernels::KernelTable& k, double min_seconds);
 
+// Multiply-adds per second of `threads` threads each running MultiplyAddRate's loop on its own
+// data at the same time, summed, over `seconds` of wall time (a sustained rate, not the best
+// sample: on a machine whose cores slow each other down, that is what a split job gets).
+double ParallelMultiplyAddRate(const kernels::KernelTable& k, size_t threads, double seconds);
+
+// The scaling of `threads` threads against one, each rate the best of a few alternating rounds.
+ThreadScaling MeasureThreadScaling(const kernels::KernelTable& k, size_t threads, double seconds);
+
 struct MachineOptions {
   std::vector<uint64_t> sizes;  // with their reasons in `reasons`, the same length
   std::vector<std::string> reasons;
   double seconds_per_size = 0.02;
+  std::vector<size_t> thread_counts;  // thread counts of the run; those above 1 are measured
   std::function<void()> step;  // called after each size and after the rate
 };
 
@@ -74,7 +92,8 @@ struct MachineOptions {
 // "layer 1", ...); their count plus one (the rate) is the number of `step` calls.
 std::vector<Bandwidth> PlannedSizes(const MachineOptions& options);
 
-// Measures bandwidth at the ladder's sizes and `options.sizes` (deduplicated), and the rate.
+// Measures bandwidth at the ladder's sizes and `options.sizes` (deduplicated), the rate and its
+// scaling over the thread counts above 1.
 Machine MeasureMachine(const kernels::KernelTable& k, const MachineOptions& options);
 
 }  // namespace sprig::bench

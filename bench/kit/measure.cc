@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <chrono>
+#include <thread>
 #include <cstdio>
 
 #include "base/status_macros.h"
@@ -249,6 +250,7 @@ class Runner {
       mo.reasons.push_back(p.phase == "rows" ? "a call of " + std::to_string(p.batch) + " rows"
                                              : "a " + p.phase + " call");
     }
+    mo.thread_counts = o_.threads;
     mo.step = [this] { Step(); };
     SPRIG_ASSIGN_OR_RETURN(const kernels::KernelPath path,
                            kernels::ResolvePath(sessions_[0][kModel]->kernel_path()));
@@ -372,6 +374,61 @@ class Runner {
     return Status::Ok();
   }
 
+  // Point.copies_scaling for every point on more than one thread: per thread count T, T
+  // one-thread sessions of the model run the point's workload at once, in rounds alternating
+  // with one of them alone.
+  Status MeasureCopies(std::vector<Point>* points) {
+    constexpr int kRounds = 3;
+    for (size_t threads : o_.threads) {
+      if (threads < 2) continue;
+      std::vector<std::unique_ptr<Session>> copies;
+      for (size_t t = 0; t < threads; ++t) {
+        SessionOptions so;
+        so.threads = 1;
+        so.compute = o_.compute;
+        SPRIG_ASSIGN_OR_RETURN(auto session, Session::create(models_[kModel], so));
+        copies.push_back(std::move(session));
+      }
+      for (size_t pi = 0; pi < points->size(); ++pi) {
+        Point& p = (*points)[pi];
+        if (p.threads != threads || p.phase == "decode") continue;
+        Point* decode = pi + 1 < points->size() && (*points)[pi + 1].phase == "decode"
+                            ? &(*points)[pi + 1]
+                            : nullptr;
+        // Rates of the point (and of its decode point): alone, and all copies summed.
+        double alone[2] = {0, 0}, together[2] = {0, 0};
+        for (int round = 0; round < kRounds; ++round) {
+          RunOut out;
+          SPRIG_RETURN_IF_ERROR(RunOnce(*copies[0], p.batch, &out, nullptr));
+          alone[0] = std::max(alone[0], Rate(p.units, out.seconds));
+          if (decode) alone[1] = std::max(alone[1], Rate(decode->units, out.decode_seconds));
+          std::vector<RunOut> outs(threads);
+          std::vector<Status> status(threads, Status::Ok());
+          std::vector<std::thread> runners;
+          for (size_t t = 0; t < threads; ++t) {
+            runners.emplace_back([&, t] { status[t] = RunOnce(*copies[t], p.batch, &outs[t], nullptr); });
+          }
+          for (std::thread& r : runners) r.join();
+          double sum[2] = {0, 0};
+          for (size_t t = 0; t < threads; ++t) {
+            SPRIG_RETURN_IF_ERROR(status[t]);
+            sum[0] += Rate(p.units, outs[t].seconds);
+            if (decode) sum[1] += Rate(decode->units, outs[t].decode_seconds);
+          }
+          together[0] = std::max(together[0], sum[0]);
+          together[1] = std::max(together[1], sum[1]);
+        }
+        if (alone[0] > 0) p.copies_scaling = together[0] / alone[0];
+        if (decode && alone[1] > 0) decode->copies_scaling = together[1] / alone[1];
+      }
+    }
+    return Status::Ok();
+  }
+
+  static double Rate(size_t units, double seconds) {
+    return seconds > 0 ? static_cast<double>(units) / seconds : 0;
+  }
+
   void Finish(Measurement* m) {
     m->kernel_path = sessions_[0][0]->kernel_path();
     for (size_t s = 0; s < kSides; ++s) {
@@ -384,8 +441,6 @@ class Runner {
     }
   }
 
-  // Steps reported to the progress callback: the first passes, the warm-up and every
-  // repetition, one per side and point run.
   // Steps reported to the progress callback: the machine's sizes, the first passes, the warm-up
   // and every repetition, one per side and point run and one per point's floors.
   void SetTotalSteps(const std::vector<Point>& points) {
@@ -521,6 +576,7 @@ Result<Measurement> Measure(const std::shared_ptr<const Model> (&models)[kSides]
   SPRIG_RETURN_IF_ERROR(runner.FirstPass(&m));
   SPRIG_RETURN_IF_ERROR(runner.WarmUp(m.points));
   SPRIG_RETURN_IF_ERROR(runner.Repeat(&m.points));
+  SPRIG_RETURN_IF_ERROR(runner.MeasureCopies(&m.points));
   runner.Finish(&m);
   SPRIG_RETURN_IF_ERROR(runner.Usage(&m));
   m.memory_end = ReadProcessMemory();

@@ -125,6 +125,11 @@ struct Point {
   double flops_bound = 0;     // baseline FLOPs / (model FLOPs - routed layers' FLOPs)
   FloorTiming machine_floor;  // the whole model
   std::vector<FloorTiming> layer_floors;  // each routed layer, in model order
+  // threads > 1: `threads` one-thread sessions of the model running this point at the same
+  // time, their rates summed, ÷ one such session's rate alone (the best of alternating rounds).
+  // The ceiling of what splitting the point over `threads` threads can give on this machine,
+  // with the model's own work (memory traffic included); 0 when not measured.
+  double copies_scaling = 0;
 };
 
 struct LayerUsage {

@@ -31,8 +31,16 @@ std::string MachineText(const json& m) {
          BytesLabel(b["working_set_bytes"].get<uint64_t>()) + " " +
          Figure("%.1f", b["bytes_per_second"].get<double>() / 1e9) + " GB/s";
   }
-  return t + "; f32 multiply-adds " +
-         Figure("%.1f", m["multiply_adds_per_second"].get<double>() / 1e9) + " G/s.</p>";
+  t += "; f32 multiply-adds " +
+       Figure("%.1f", m["multiply_adds_per_second"].get<double>() / 1e9) + " G/s";
+  if (m.contains("thread_scaling")) {
+    for (const json& s : m["thread_scaling"]) {
+      t += "; " + std::to_string(s["threads"].get<size_t>()) + " threads at once " +
+           Figure("%.2f", s["times_one_thread"].get<double>()) +
+           "&times; one thread (the ceiling of a split job's speedup)";
+    }
+  }
+  return t + ".</p>";
 }
 
 // A bar as long as time ÷ floor, on a scale of 0 to 10 (longer ratios are cut and say so).

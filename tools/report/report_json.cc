@@ -136,12 +136,19 @@ json MachineJson(const Machine& m, const ReportContext& c) {
                          {"kernel", b.kernel},
                          {"what", b.what}});
   }
+  json scaling = json::array();
+  for (const ThreadScaling& t : m.thread_scaling) {
+    scaling.push_back({{"threads", t.threads},
+                       {"multiply_adds_per_second", t.multiply_adds_per_second},
+                       {"times_one_thread", t.times_one_thread}});
+  }
   return {{"cpus", std::thread::hardware_concurrency()},
           {"load_average_start", c.load_start},
           {"load_average_end", c.load_end},
           {"kernel_path", m.kernel_path},
           {"bandwidth", bandwidth},
           {"multiply_adds_per_second", m.multiply_adds_per_second},
+          {"thread_scaling", scaling},
           {"measure_seconds", m.seconds}};
 }
 
@@ -161,6 +168,7 @@ json PointJson(const Point& p, const Machine& machine) {
   j["flops_bound"] = p.flops_bound > 0 ? json(p.flops_bound) : json(nullptr);
   j["latency_histogram"] = LatencyHistogram(p);
   j["machine_floor"] = MachineFloorJson(p, machine);
+  j["copies_scaling"] = p.copies_scaling > 0 ? json(p.copies_scaling) : json(nullptr);
   return j;
 }
 

@@ -15,6 +15,7 @@
 #include <cmath>
 #include <cstdio>
 #include <memory>
+#include <map>
 #include <string>
 
 #include "base/status_macros.h"
@@ -294,7 +295,54 @@ void PrintMachine(const nlohmann::json& r) {
     std::printf(" %s %.1f GB/s%s", HumanBytes(b["working_set_bytes"].get<uint64_t>()).c_str(),
                 b["bytes_per_second"].get<double>() / 1e9, &b == &m["bandwidth"].back() ? "" : ",");
   }
-  std::printf("; multiply-adds %.1f G/s\n", m["multiply_adds_per_second"].get<double>() / 1e9);
+  std::printf("; multiply-adds %.1f G/s", m["multiply_adds_per_second"].get<double>() / 1e9);
+  for (const auto& t : m["thread_scaling"]) {
+    std::printf("; %zu threads at once %.2fx one thread", t["threads"].get<size_t>(),
+                t["times_one_thread"].get<double>());
+  }
+  std::printf("\n");
+}
+
+// For each point run on several thread counts: the model's rate on T threads ÷ its rate on one;
+// beside it, what T one-thread sessions of the model get at once (their summed rate ÷ one alone)
+// and what T threads of the multiply-add loop get (PrintMachine): the ceilings of that ratio on
+// this machine, with the model's own work and with arithmetic alone.
+void PrintThreadScaling(const nlohmann::json& r) {
+  std::map<std::string, double> one_thread;
+  auto key = [](const nlohmann::json& p) {
+    return p["phase"] == "rows" ? "batch " + std::to_string(p["batch"].get<size_t>())
+                                : p["phase"].get<std::string>();
+  };
+  for (const auto& p : r["results"]) {
+    if (p["threads"] == 1) one_thread[key(p)] = p["model"]["per_second"]["median"].get<double>();
+  }
+  std::map<size_t, double> machine;
+  for (const auto& t : r["machine"]["thread_scaling"]) {
+    machine[t["threads"].get<size_t>()] = t["times_one_thread"].get<double>();
+  }
+  bool header = false;
+  for (const auto& p : r["results"]) {
+    const size_t threads = p["threads"].get<size_t>();
+    if (threads == 1) continue;
+    if (!header) {
+      std::printf("\n%-7s %-14s %20s %24s %24s\n", "threads", "point", "model / one thread",
+                  "copies at once / one", "multiply-adds / one");
+      header = true;
+    }
+    auto figure = [](double v) {
+      char text[32] = "-";
+      if (v > 0) std::snprintf(text, sizeof text, "%.2f", v);
+      return std::string(text);
+    };
+    const auto base = one_thread.find(key(p));
+    const double ratio = base == one_thread.end() || base->second <= 0
+                             ? 0
+                             : p["model"]["per_second"]["median"].get<double>() / base->second;
+    const auto m = machine.find(threads);
+    std::printf("%-7zu %-14s %20s %24s %24s\n", threads, key(p).c_str(), figure(ratio).c_str(),
+                figure(p["copies_scaling"].is_null() ? 0 : p["copies_scaling"].get<double>()).c_str(),
+                figure(m == machine.end() ? 0 : m->second).c_str());
+  }
 }
 
 // One row per point for the whole model and per routed layer: measured time per row or token
@@ -353,6 +401,7 @@ void PrintText(const nlohmann::json& r) {
         Spread(p["cpu_speedup"], "%.2f").c_str(), Spread(p["bound"], "%.2f").c_str(), flops_bound,
         l["median"].get<double>(), l["p95"].get<double>(), l["p99"].get<double>());
   }
+  PrintThreadScaling(r);
   PrintMachineFloors(r);
   std::printf("\n%-9s %12s %12s %14s %14s %12s %s\n", "side", "file", "params", "FLOPs/token",
               "resident", "first call", "records touched");
