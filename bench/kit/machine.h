@@ -32,8 +32,8 @@ struct ThreadScaling {
 
 struct Machine {
   std::string kernel_path;
-  std::vector<Bandwidth> bandwidth;     // ascending working set, one entry per size
-  double multiply_adds_per_second = 0;  // f32 gemm_rows on cache-resident data
+  std::vector<Bandwidth> bandwidth;           // ascending working set, one entry per size
+  double multiply_adds_per_second = 0;        // f32 gemm_rows on cache-resident data
   std::vector<ThreadScaling> thread_scaling;  // per thread count above 1 that the run uses
   double seconds = 0;                         // the measurement took
 
@@ -85,7 +85,7 @@ struct MachineOptions {
   std::vector<std::string> reasons;
   double seconds_per_size = 0.02;
   std::vector<size_t> thread_counts;  // thread counts of the run; those above 1 are measured
-  std::function<void()> step;  // called after each size and after the rate
+  std::function<void()> step;         // called after each size and after the rate
 };
 
 // The sizes MeasureMachine reads, ascending, each once with its reasons joined ("ladder",

@@ -2,8 +2,8 @@
 
 #include <algorithm>
 #include <chrono>
-#include <thread>
 #include <cstdio>
+#include <thread>
 
 #include "base/status_macros.h"
 #include "bench/kit/floor_timer.h"
@@ -406,7 +406,8 @@ class Runner {
           std::vector<Status> status(threads, Status::Ok());
           std::vector<std::thread> runners;
           for (size_t t = 0; t < threads; ++t) {
-            runners.emplace_back([&, t] { status[t] = RunOnce(*copies[t], p.batch, &outs[t], nullptr); });
+            runners.emplace_back(
+                [&, t] { status[t] = RunOnce(*copies[t], p.batch, &outs[t], nullptr); });
           }
           for (std::thread& r : runners) r.join();
           double sum[2] = {0, 0};

@@ -31,8 +31,8 @@ std::string MachineText(const json& m) {
          BytesLabel(b["working_set_bytes"].get<uint64_t>()) + " " +
          Figure("%.1f", b["bytes_per_second"].get<double>() / 1e9) + " GB/s";
   }
-  t += "; f32 multiply-adds " +
-       Figure("%.1f", m["multiply_adds_per_second"].get<double>() / 1e9) + " G/s";
+  t += "; f32 multiply-adds " + Figure("%.1f", m["multiply_adds_per_second"].get<double>() / 1e9) +
+       " G/s";
   if (m.contains("thread_scaling")) {
     for (const json& s : m["thread_scaling"]) {
       t += "; " + std::to_string(s["threads"].get<size_t>()) + " threads at once " +

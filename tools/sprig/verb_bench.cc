@@ -14,8 +14,8 @@
 #include <chrono>
 #include <cmath>
 #include <cstdio>
-#include <memory>
 #include <map>
+#include <memory>
 #include <string>
 
 #include "base/status_macros.h"
@@ -339,9 +339,10 @@ void PrintThreadScaling(const nlohmann::json& r) {
                              ? 0
                              : p["model"]["per_second"]["median"].get<double>() / base->second;
     const auto m = machine.find(threads);
-    std::printf("%-7zu %-14s %20s %24s %24s\n", threads, key(p).c_str(), figure(ratio).c_str(),
-                figure(p["copies_scaling"].is_null() ? 0 : p["copies_scaling"].get<double>()).c_str(),
-                figure(m == machine.end() ? 0 : m->second).c_str());
+    std::printf(
+        "%-7zu %-14s %20s %24s %24s\n", threads, key(p).c_str(), figure(ratio).c_str(),
+        figure(p["copies_scaling"].is_null() ? 0 : p["copies_scaling"].get<double>()).c_str(),
+        figure(m == machine.end() ? 0 : m->second).c_str());
   }
 }
 
