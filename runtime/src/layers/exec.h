@@ -30,8 +30,7 @@ struct Scratch {
   std::vector<float> shared_output;  // ExpertsLayer, single row: shared experts' outputs, [S, out]
   // The transformer's attention: one (sequence, head)'s scores over the positions it sees.
   std::vector<float> attention_scores;
-  // and the key and value rows of its positions.
-  std::vector<const float*> attention_keys;
+  // and the value rows of its positions.
   std::vector<const void*> attention_values;
   // int8 activations (Exec::int8_activations): the rows a projection reads, quantised, and
   // their scales (QuantizeRows, quantize.h).

@@ -39,15 +39,16 @@ class Workspace {
   virtual ~Workspace() = default;
 };
 
-// Keys and values of one sequence, per block: [positions, kv_dim] each, grown as tokens come.
+// Keys and values of one sequence, per block, each laid out [kv head][capacity][head_dim]: one
+// head's keys (and values) are a contiguous run of positions, which attention reads as one
+// stream (a [positions, kv_dim] layout would read a few cache lines per position, each
+// kv_dim apart). Positions [0, length) hold data; the arrays grow (and are laid out again) as
+// tokens come, and are kept for the next sequence.
 struct KvCache {
   std::vector<std::vector<float>> keys, values;
-  size_t length = 0;  // positions held
-  void Clear() {
-    for (auto& k : keys) k.clear();
-    for (auto& v : values) v.clear();
-    length = 0;
-  }
+  size_t length = 0;    // positions held
+  size_t capacity = 0;  // positions each array has room for
+  void Clear() { length = 0; }
 };
 
 // Decoding one sequence token by token with a KV cache (Session::append_tokens).

@@ -30,13 +30,14 @@ void ApplyRope(float* x, size_t head_dim, const float* cos, const float* sin) {
 }
 
 // ws.q holds [sequences · length, d] queries whose token t has position start + t. keys and
-// values hold, for sequence s at s · sequence_stride, rows of kv_dim for positions
-// 0 .. start + length − 1 (already rotated). Writes the concatenated head outputs to ws.attn.
+// values hold, laid out as `layout` says, the head_dim entries of every kv head for positions
+// 0 .. start + length − 1 (keys already rotated). Writes the concatenated head outputs to
+// ws.attn.
 void TransformerNetwork::Attend(const layers::Exec& exec, TransformerWorkspace& ws,
                                 size_t sequences, size_t length, size_t start, const float* keys,
-                                const float* values, size_t sequence_stride) const {
+                                const float* values, const KvLayout& layout) const {
   const kernels::KernelTable& k = *exec.k;
-  const size_t heads = config_->n_heads, hd = head_dim_, d = d_, kv_dim = kv_dim_;
+  const size_t heads = config_->n_heads, hd = head_dim_, d = d_;
   const size_t total = start + length;
   const float scale = std::sqrt(static_cast<float>(hd));
   ws.attn.resize(sequences * length * d);
@@ -44,26 +45,22 @@ void TransformerNetwork::Attend(const layers::Exec& exec, TransformerWorkspace& 
   // fixed order, so the result does not depend on the thread count.
   exec.ParallelFor(sequences * heads, [&](size_t task, layers::Scratch& s) {
     const size_t seq = task / heads, h = task % heads, g = h / group_;
-    const float* kseq = keys + seq * sequence_stride + g * hd;
-    const float* vseq = values + seq * sequence_stride + g * hd;
+    // The head's keys and values: [total, hd] matrices.
+    const float* head_keys = keys + seq * layout.sequence + g * layout.head;
+    const float* head_values = values + seq * layout.sequence + g * layout.head;
     if (s.attention_scores.size() < total) s.attention_scores.resize(total);
     float* scores = s.attention_scores.data();
-    // The positions' key and value rows of this head, for the two many-row kernels.
-    s.attention_keys.resize(total);
     s.attention_values.resize(total);
-    for (size_t j = 0; j < total; ++j) {
-      s.attention_keys[j] = kseq + j * kv_dim;
-      s.attention_values[j] = vseq + j * kv_dim;
-    }
+    for (size_t j = 0; j < total; ++j) s.attention_values[j] = head_values + j * hd;
     for (size_t t = 0; t < length; ++t) {
       const size_t row = seq * length + t;
       const float* q = ws.q.data() + row * d + h * hd;
       // Causal: position p sees keys 0..p; otherwise every key of the sequence.
       const size_t visible = config_->causal ? start + t + 1 : total;
-      // scores[j] = dot(q, key_j): dot_rows forms each sum exactly as dot does, and a fused
-      // multiply-add's product does not depend on the order of its factors, so passing q as
-      // the shared row gives dot(q, key_j)'s bits while q is loaded once for all the keys.
-      k.shared.dot_rows_f32(q, s.attention_keys.data(), visible, hd, scores);
+      // scores = K q over the visible positions: the matrix-vector kernel sums several keys'
+      // products at once, each with its own accumulators, so a score does not depend on how
+      // many positions are visible.
+      k.f32.gemv(head_keys, q, nullptr, scores, visible, hd);
       for (size_t j = 0; j < visible; ++j) scores[j] /= scale;
       k.softmax(scores, visible);
       float* out = ws.attn.data() + row * d + h * hd;

@@ -301,6 +301,27 @@ void TransformerNetwork::NormRows(const Exec& e, const Norm& n, const float* x, 
   });
 }
 
+void TransformerNetwork::Reserve(network::KvCache& cache, size_t positions) const {
+  cache.keys.resize(blocks_.size());
+  cache.values.resize(blocks_.size());
+  if (positions <= cache.capacity) return;
+  // Doubling keeps the copies of a long decode to a constant per token; max_seq bounds it.
+  const size_t capacity =
+      std::max(positions, std::min<size_t>(2 * cache.capacity, config_->max_seq));
+  const size_t hd = head_dim_, kv_heads = kv_dim_ / hd;
+  for (auto* arrays : {&cache.keys, &cache.values}) {
+    for (std::vector<float>& old : *arrays) {
+      std::vector<float> grown(kv_heads * capacity * hd);
+      for (size_t g = 0; g < kv_heads && cache.length > 0; ++g) {
+        std::copy_n(old.data() + g * cache.capacity * hd, cache.length * hd,
+                    grown.data() + g * capacity * hd);
+      }
+      old.swap(grown);
+    }
+  }
+  cache.capacity = capacity;
+}
+
 void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, const int32_t* tokens,
                                    size_t sequences, size_t length, size_t start,
                                    network::KvCache* cache, network::Recorder& recorder) const {
@@ -329,10 +350,7 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
                 ws.rope_sin.data() + t * hd / 2);
     });
   }
-  if (cache) {
-    cache->keys.resize(blocks_.size());
-    cache->values.resize(blocks_.size());
-  }
+  if (cache) Reserve(*cache, total);
   recorder.Begin();
   for (size_t i = 0; i < blocks_.size(); ++i) {
     const Block& b = blocks_[i];
@@ -347,22 +365,24 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
                               {&b.k.weight, b.k.bias, ws.k.data()},
                               {&b.v.weight, b.v.bias, ws.v.data()}};
     Project(e, qkv, attn_in, rows);
-    const float *keys = ws.k.data(), *values = ws.v.data();
-    size_t stride = length * kv_dim_;
-    float *cached_keys = nullptr, *cached_values = nullptr;
+    // Keys and values go per kv head into the cache, or without one into the workspace's
+    // arrays of the same layout, so that attention reads each head's positions as one matrix.
+    const size_t kv_heads = kv_dim_ / hd;
+    float *keys = nullptr, *values = nullptr;
+    KvLayout layout{};
     if (cache) {
       // One sequence: its new keys and values go after those already cached.
-      std::vector<float>& ck = cache->keys[i];
-      std::vector<float>& cv = cache->values[i];
-      ck.resize(total * kv_dim_);
-      cv.resize(total * kv_dim_);
-      cached_keys = ck.data() + start * kv_dim_;
-      cached_values = cv.data() + start * kv_dim_;
-      keys = ck.data();
-      values = cv.data();
-      stride = total * kv_dim_;
+      keys = cache->keys[i].data();
+      values = cache->values[i].data();
+      layout = {0, cache->capacity * hd};
+    } else {
+      Grow(ws.head_keys, rows * kv_dim_);
+      Grow(ws.head_values, rows * kv_dim_);
+      keys = ws.head_keys.data();
+      values = ws.head_values.data();
+      layout = {length * kv_dim_, length * hd};
     }
-    // Each row's rotation and its copy into the cache, the rows split between threads.
+    // Each row's rotation and its copy, the rows split between threads.
     ForEachRow(e, rows, [&](size_t r) {
       float* q_row = &ws.q[r * d];
       float* k_row = &ws.k[r * kv_dim_];
@@ -370,14 +390,17 @@ void TransformerNetwork::RunBlocks(const Exec& e, TransformerWorkspace& ws, cons
         const float* cs = ws.rope_cos.data() + (r % length) * hd / 2;
         const float* sn = ws.rope_sin.data() + (r % length) * hd / 2;
         for (size_t h = 0; h < config_->n_heads; ++h) ApplyRope(q_row + h * hd, hd, cs, sn);
-        for (size_t h = 0; h * hd < kv_dim_; ++h) ApplyRope(k_row + h * hd, hd, cs, sn);
+        for (size_t h = 0; h < kv_heads; ++h) ApplyRope(k_row + h * hd, hd, cs, sn);
       }
-      if (cached_keys != nullptr) {
-        std::copy_n(k_row, kv_dim_, cached_keys + r * kv_dim_);
-        std::copy_n(&ws.v[r * kv_dim_], kv_dim_, cached_values + r * kv_dim_);
+      const float* v_row = &ws.v[r * kv_dim_];
+      const size_t seq = r / length, position = start + r % length;
+      for (size_t g = 0; g < kv_heads; ++g) {
+        const size_t at = seq * layout.sequence + g * layout.head + position * hd;
+        std::copy_n(k_row + g * hd, hd, keys + at);
+        std::copy_n(v_row + g * hd, hd, values + at);
       }
     });
-    Attend(e, ws, sequences, length, start, keys, values, stride);
+    Attend(e, ws, sequences, length, start, keys, values, layout);
     Project(e, b.o, ws.attn.data(), rows, ws.proj.data());
     AddRows(e, x, ws.proj.data(), rows, d);
     // The feed-forward input: Norm2(x) before it (pre), or h = Norm1(x + Attn(x)) (post).

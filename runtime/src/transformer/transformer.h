@@ -45,6 +45,9 @@ struct Block {
 struct TransformerWorkspace final : network::Workspace {
   std::vector<float> x, normed, q, k, v, attn, proj, ffn, out;
   std::vector<float> rope_cos, rope_sin;
+  // Without a cache: the batch's keys and values laid out per kv head as the cache lays them
+  // out (network::KvCache), [sequences, kv heads, length, head_dim].
+  std::vector<float> head_keys, head_values;
 };
 
 // Fills cos[i], sin[i] (i < head_dim / 2) for a token at `position`: angle
@@ -92,8 +95,15 @@ class TransformerNetwork final : public network::Network, public network::Decode
                  network::Recorder& recorder) const;
   void Embed(const layers::Exec& exec, const int32_t* tokens, size_t rows, size_t length,
              size_t start, float* x) const;
+  // Where position p of kv head g of sequence s starts in a keys or values array:
+  // s·sequence + g·head + p·head_dim floats (a head's positions are contiguous).
+  struct KvLayout {
+    size_t sequence, head;
+  };
   void Attend(const layers::Exec& exec, TransformerWorkspace& ws, size_t sequences, size_t length,
-              size_t start, const float* keys, const float* values, size_t sequence_stride) const;
+              size_t start, const float* keys, const float* values, const KvLayout& layout) const;
+  // Gives every block's cache arrays room for `positions` positions, keeping those held.
+  void Reserve(network::KvCache& cache, size_t positions) const;
   void NormRows(const layers::Exec& exec, const Norm& n, const float* x, size_t rows,
                 float* y) const;
   void Head(const layers::Exec& exec, TransformerWorkspace& ws, size_t sequences, size_t length,
