@@ -15,6 +15,7 @@
 
 #include "layers/exec.h"
 #include "layers/mlp.h"
+#include "layers/quantize.h"
 
 namespace sprig::layers {
 
@@ -65,11 +66,13 @@ struct NodeRow {
 // r's node): each row gets its node's logit w·x + b, with dot's arithmetic (dot_rows), so the
 // logit does not depend on the batch. `locate(node)` returns something `row(located)` turns
 // into a NodeRow; `prefetch(located)` requests its data; `emit(r, located, logit)` receives
-// each row's logit.
+// each row's logit. With `quantized` (compute mode "i8", i8 nodes; row r of x quantised as its
+// row r) the logit is the single-row form's: the exact integer sum, then
+// kernels::QuantizedOutput.
 template <class Locate, class Row, class Prefetch, class Emit>
 void LogitsByNode(const kernels::KernelTable& k, const float* x, size_t in, size_t rows,
-                  const uint64_t* node, const uint32_t* order, Locate&& locate, Row&& row,
-                  Prefetch&& prefetch, Emit&& emit) {
+                  const uint64_t* node, const uint32_t* order, const QuantizedRows* quantized,
+                  Locate&& locate, Row&& row, Prefetch&& prefetch, Emit&& emit) {
   constexpr size_t kBlock = 16;  // rows of a group per dot_rows call
   auto starts_group = [&](size_t i) { return i == 0 || node[order[i]] != node[order[i - 1]]; };
   size_t requested = 0;  // entries whose groups' weight rows have been requested
@@ -82,6 +85,16 @@ void LogitsByNode(const kernels::KernelTable& k, const float* x, size_t in, size
     }
     const auto located = locate(current);
     const NodeRow w = row(located);
+    if (quantized != nullptr) {
+      for (size_t j = i; j < end; ++j) {
+        const uint32_t r = order[j];
+        const int32_t sum =
+            k.int8_activations.dot(quantized->row(r), static_cast<const int8_t*>(w.weight), in);
+        emit(r, located, kernels::QuantizedOutput(sum, quantized->scales[r], *w.scale, w.bias, 0));
+      }
+      i = end;
+      continue;
+    }
     for (size_t first = i; first < end; first += kBlock) {
       const size_t count = std::min(kBlock, end - first);
       const float* xs[kBlock];

@@ -22,20 +22,18 @@ LeafTreeLayer::LeafTreeLayer(const Binder& binder, const LayerConfig& config)
 }
 
 uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
-                                const int8_t* quantized, float scale, bool prefetch) const {
+                                const int8_t* quantized, float scale) const {
   uint64_t node = 0;
   const uint64_t first_leaf = (uint64_t{1} << config_.depth) - 1;
   for (uint32_t level = 0; level < config_.depth; ++level) {
-    if (prefetch) {
-      // While this node's dot product runs, start loading whichever comes next: both child
-      // nodes, or at the last level both candidate leaves.
-      if (level + 1 == config_.depth) {
-        PrefetchMlp(Leaf(2 * node + 1 - first_leaf));
-        PrefetchMlp(Leaf(2 * node + 2 - first_leaf));
-      } else {
-        __builtin_prefetch(nodes_.row(2 * node + 1), 0, 1);
-        __builtin_prefetch(nodes_.row(2 * node + 2), 0, 1);
-      }
+    // While this node's dot product runs, start loading whichever comes next: both child
+    // nodes, or at the last level both candidate leaves.
+    if (level + 1 == config_.depth) {
+      PrefetchMlp(Leaf(2 * node + 1 - first_leaf));
+      PrefetchMlp(Leaf(2 * node + 2 - first_leaf));
+    } else {
+      __builtin_prefetch(nodes_.row(2 * node + 1), 0, 1);
+      __builtin_prefetch(nodes_.row(2 * node + 2), 0, 1);
     }
     float logit;
     if (quantized != nullptr) {
@@ -56,7 +54,8 @@ uint32_t LeafTreeLayer::Descend(const kernels::KernelTable& k, const float* x,
 // Level by level over the tile's rows grouped by node, as the path tree's batched descent: a
 // node's weight row is read once for all the rows reaching it, with the single-row logits.
 void LeafTreeLayer::DescendTile(const kernels::KernelTable& k, const float* x, size_t rows,
-                                uint32_t* leaves, Scratch& scratch) const {
+                                uint32_t* leaves, const QuantizedRows* quantized,
+                                Scratch& scratch) const {
   scratch.descent_node.assign(rows, 0);
   // Both orders have one entry to spare, as RegroupByChild writes one past (they swap).
   scratch.descent_order.resize(rows + 1);
@@ -65,7 +64,8 @@ void LeafTreeLayer::DescendTile(const kernels::KernelTable& k, const float* x, s
   for (size_t r = 0; r < rows; ++r) scratch.descent_order[r] = static_cast<uint32_t>(r);
   for (uint32_t level = 0; level < config_.depth; ++level) {
     LogitsByNode(
-        k, x, in_, rows, node, scratch.descent_order.data(), [](uint64_t n) { return n; },
+        k, x, in_, rows, node, scratch.descent_order.data(), quantized,
+        [](uint64_t n) { return n; },
         [this](uint64_t n) {
           return NodeRow{nodes_.type, nodes_.row(n), nodes_.row_scales(n),
                          node_bias_ ? node_bias_ + n : nullptr};
@@ -89,38 +89,32 @@ void LeafTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float
   const kernels::KernelTable& k = *exec.k;
   // In the compute mode "i8" the node logits of i8-stored nodes use the row quantised once.
   const bool quantize_nodes = config_.depth > 0 && Quantizes(exec, nodes_.type);
-  auto descend = [&](const float* row, Scratch& scratch, bool prefetch) {
-    if (!quantize_nodes) return Descend(k, row, nullptr, 0.0f, prefetch);
-    const QuantizedRows quantized = QuantizeRows(k, row, 1, in_, scratch);
-    return Descend(k, row, quantized.values, quantized.scales[0], prefetch);
-  };
   if (exec.single_row) {
     Scratch& scratch = (*exec.scratch)[0];
-    const uint32_t leaf = descend(x, scratch, true);
+    uint32_t leaf = 0;
+    if (quantize_nodes) {
+      const QuantizedRows quantized = QuantizeRows(k, x, 1, in_, scratch);
+      leaf = Descend(k, x, quantized.values, quantized.scales[0]);
+    } else {
+      leaf = Descend(k, x, nullptr, 0.0f);
+    }
     if (routes) routes[0] = static_cast<int32_t>(leaf);
     Touch(exec, leaf);
     MlpForward(k, Leaf(leaf), x, 1, y, scratch, true, exec.int8_activations);
     return;
   }
-  // Descend every row, in tiles of rows grouped by node (DescendTile), then evaluate each
-  // touched leaf once over the rows routed to it, as a small matrix product.
+  // Descend every row, in tiles of rows grouped by node (DescendTile; in the compute mode "i8"
+  // on the tile's rows quantised once), then evaluate each touched leaf once over the rows
+  // routed to it, as a small matrix product.
   std::vector<uint32_t> leaf_of(rows);
-  if (quantize_nodes) {
-    // Compute mode "i8": each row descends alone on its own quantised input.
-    const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
-    exec.ParallelFor(chunks, [&](size_t chunk, Scratch& scratch) {
-      for (size_t r = chunk * kRowChunk; r < std::min(rows, (chunk + 1) * kRowChunk); ++r) {
-        leaf_of[r] = descend(x + r * in_, scratch, false);
-      }
-    });
-  } else {
-    const size_t tile = TileRows(rows, in_, exec.threads());
-    exec.ParallelFor((rows + tile - 1) / tile, [&](size_t t, Scratch& scratch) {
-      const size_t first = t * tile;
-      DescendTile(k, x + first * in_, std::min(tile, rows - first), leaf_of.data() + first,
-                  scratch);
-    });
-  }
+  const size_t tile = TileRows(rows, in_, exec.threads());
+  exec.ParallelFor((rows + tile - 1) / tile, [&](size_t t, Scratch& scratch) {
+    const size_t first = t * tile, count = std::min(tile, rows - first);
+    QuantizedRows quantized;
+    if (quantize_nodes) quantized = QuantizeRows(k, x + first * in_, count, in_, scratch);
+    DescendTile(k, x + first * in_, count, leaf_of.data() + first,
+                quantize_nodes ? &quantized : nullptr, scratch);
+  });
   if (routes) {
     for (size_t r = 0; r < rows; ++r) routes[r] = static_cast<int32_t>(leaf_of[r]);
   }

@@ -12,6 +12,7 @@
 #include "layers/feed_forward.h"
 #include "layers/matrix_view.h"
 #include "layers/mlp.h"
+#include "layers/quantize.h"
 #include "sprig/config.h"
 
 namespace sprig::layers {
@@ -26,13 +27,15 @@ class LeafTreeLayer final : public FeedForward {
   uint64_t unit_count() const override { return uint64_t{1} << config_.depth; }
 
  private:
-  // The leaf a row reaches. With `quantized` (the row quantised with `scale`, compute mode
-  // "i8", i8-stored nodes) the logits use the int8 kernels; otherwise x in float.
+  // The leaf one row reaches (the single-row form, which prefetches what comes next). With
+  // `quantized` (the row quantised with `scale`, compute mode "i8", i8-stored nodes) the logits
+  // use the int8 kernels; otherwise x in float.
   uint32_t Descend(const kernels::KernelTable& k, const float* x, const int8_t* quantized,
-                   float scale, bool prefetch) const;
-  // A batch's tile of rows: leaves[r] for r < rows.
+                   float scale) const;
+  // A batch's tile of rows: leaves[r] for r < rows. `quantized` (compute mode "i8", i8 nodes):
+  // the tile's rows quantised, or null.
   void DescendTile(const kernels::KernelTable& k, const float* x, size_t rows, uint32_t* leaves,
-                   Scratch& scratch) const;
+                   const QuantizedRows* quantized, Scratch& scratch) const;
   MlpView Leaf(uint64_t leaf) const {
     return MlpOf(binder_, leaves_, leaf, config_, config_.leaf_width);
   }

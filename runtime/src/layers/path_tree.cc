@@ -172,13 +172,18 @@ void PathTreeLayer::ForwardOne(const kernels::KernelTable& k, const Exec& exec, 
 // The sum, row by row in leaf order (neighbours then share most of their path, whose output
 // rows stay in cache): each row's activations in one vector call and its output rows added to
 // its y in one axpy_rows, while the next row's output rows are requested.
+// In the compute mode "i8" (i8 nodes) the node logits read each row quantised once, through the
+// int8 kernels, in both forms; the output rows are still added as float activations times the
+// stored rows (axpy_rows).
 void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float* y,
                             int32_t* routes) const {
   const kernels::KernelTable& k = *exec.k;
-  if (Quantizes(exec, weight_->dtype)) return ForwardQuantized(exec, x, rows, y, routes);
+  const bool quantize = Quantizes(exec, weight_->dtype);
   if (exec.single_row) {
     InitOutput(y);
-    ForwardOne(k, exec, x, y, routes, nullptr);
+    QuantizedRows quantized;
+    if (quantize) quantized = QuantizeRows(k, x, 1, in_, (*exec.scratch)[0]);
+    ForwardOne(k, exec, x, y, routes, quantize ? &quantized : nullptr);
     return;
   }
   // The statistics need every row's path, which its leaf determines.
@@ -191,9 +196,12 @@ void PathTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float
   const size_t tile = TileRows(rows, in_, exec.threads());
   const size_t tiles = (rows + tile - 1) / tile;
   exec.ParallelFor(tiles, [&](size_t t, Scratch& scratch) {
-    const size_t first = t * tile;
-    ForwardTile(k, x + first * in_, std::min(tile, rows - first), y + first * out_,
-                leaves != nullptr ? leaves + first : nullptr, scratch);
+    const size_t first = t * tile, count = std::min(tile, rows - first);
+    QuantizedRows quantized;
+    if (quantize) quantized = QuantizeRows(k, x + first * in_, count, in_, scratch);
+    ForwardTile(k, x + first * in_, count, y + first * out_,
+                leaves != nullptr ? leaves + first : nullptr, quantize ? &quantized : nullptr,
+                scratch);
   });
   if (exec.touched != nullptr) TouchPaths(exec, leaves, rows);
 }
@@ -219,7 +227,8 @@ void PathTreeLayer::TouchPaths(const Exec& exec, const int32_t* leaves, size_t r
 }
 
 void PathTreeLayer::ForwardTile(const kernels::KernelTable& k, const float* x, size_t rows,
-                                float* y, int32_t* leaves, Scratch& scratch) const {
+                                float* y, int32_t* leaves, const QuantizedRows* quantized,
+                                Scratch& scratch) const {
   const uint32_t depth = config_.depth;
   const size_t width = depth + 1;
   scratch.descent_node.assign(rows, 0);
@@ -231,7 +240,7 @@ void PathTreeLayer::ForwardTile(const kernels::KernelTable& k, const float* x, s
   scratch.path_out_scale.resize(rows * width);
   for (size_t r = 0; r < rows; ++r) scratch.descent_order[r] = static_cast<uint32_t>(r);
   for (uint32_t level = 0; level <= depth; ++level) {
-    DescendLevel(k, x, rows, level, scratch);
+    DescendLevel(k, x, rows, level, quantized, scratch);
     if (level < depth) {
       RegroupByChild(scratch.descent_node.data(), scratch.descent_order.data(), rows,
                      scratch.descent_next_order.data());
@@ -248,11 +257,13 @@ void PathTreeLayer::ForwardTile(const kernels::KernelTable& k, const float* x, s
 }
 
 void PathTreeLayer::DescendLevel(const kernels::KernelTable& k, const float* x, size_t rows,
-                                 uint32_t level, Scratch& scratch) const {
+                                 uint32_t level, const QuantizedRows* quantized,
+                                 Scratch& scratch) const {
   const size_t width = config_.depth + 1;
   uint64_t* node = scratch.descent_node.data();
   LogitsByNode(
-      k, x, in_, rows, node, scratch.descent_order.data(), [this](uint64_t n) { return Locate(n); },
+      k, x, in_, rows, node, scratch.descent_order.data(), quantized,
+      [this](uint64_t n) { return Locate(n); },
       [this](const Neuron& neuron) {
         return NodeRow{weight_->dtype, neuron.weight, neuron.weight_scale, neuron.bias};
       },
@@ -297,30 +308,6 @@ void PathTreeLayer::SumTile(const kernels::KernelTable& k, size_t rows, float* y
     InitOutput(y_row);
     kernels::AxpyRows(k, out_rows_->dtype, a, out + r * width, width, y_row, out_);
   }
-}
-
-// Compute mode "i8": every row on its own through ForwardOne, with its input quantised once;
-// only the node logits use the int8 kernels, the output rows are still added as float
-// activations times the stored rows (axpy_rows). Rows are independent, so they are spread over
-// the threads in chunks; the records a row read are marked afterwards on this thread (the path
-// is the leaf's ancestors), as TouchLog requires.
-void PathTreeLayer::ForwardQuantized(const Exec& exec, const float* x, size_t rows, float* y,
-                                     int32_t* routes) const {
-  const kernels::KernelTable& k = *exec.k;
-  std::vector<int32_t> leaf_of(rows);
-  Exec untouched = exec;
-  untouched.touched = nullptr;
-  const size_t chunks = (rows + kRowChunk - 1) / kRowChunk;
-  exec.ParallelFor(chunks, [&](size_t chunk, Scratch& scratch) {
-    for (size_t r = chunk * kRowChunk; r < std::min(rows, (chunk + 1) * kRowChunk); ++r) {
-      float* y_row = y + r * out_;
-      InitOutput(y_row);
-      const QuantizedRows quantized = QuantizeRows(k, x + r * in_, 1, in_, scratch);
-      ForwardOne(k, untouched, x + r * in_, y_row, &leaf_of[r], &quantized);
-    }
-  });
-  if (exec.touched) TouchPaths(exec, leaf_of.data(), rows);
-  if (routes) std::copy(leaf_of.begin(), leaf_of.end(), routes);
 }
 
 }  // namespace sprig::layers

@@ -48,18 +48,15 @@ class PathTreeLayer final : public FeedForward {
   void PrefetchOut(const Neuron& neuron) const;
   void ForwardOne(const kernels::KernelTable& k, const Exec& exec, const float* x, float* y,
                   int32_t* routes, const QuantizedRows* quantized) const;
-  // Compute mode "i8" for any batch: each row through ForwardOne with its quantised input.
-  void ForwardQuantized(const Exec& exec, const float* x, size_t rows, float* y,
-                        int32_t* routes) const;
   // y = out_bias (or 0).
   void InitOutput(float* y) const;
   // Batches, a tile of rows at a time (see Forward): the descent one level at a time over the
   // rows grouped by node, then the sums.
-  // `leaves` may be null.
+  // `leaves` may be null; `quantized` (compute mode "i8"): the tile's rows quantised, or null.
   void ForwardTile(const kernels::KernelTable& k, const float* x, size_t rows, float* y,
-                   int32_t* leaves, Scratch& scratch) const;
+                   int32_t* leaves, const QuantizedRows* quantized, Scratch& scratch) const;
   void DescendLevel(const kernels::KernelTable& k, const float* x, size_t rows, uint32_t level,
-                    Scratch& scratch) const;
+                    const QuantizedRows* quantized, Scratch& scratch) const;
   void SumTile(const kernels::KernelTable& k, size_t rows, float* y, Scratch& scratch) const;
   // Marks the records of every node on the rows' paths (given by their leaves).
   void TouchPaths(const Exec& exec, const int32_t* leaves, size_t rows) const;
