@@ -37,7 +37,7 @@ std::string MachineText(const json& m) {
     for (const json& s : m["thread_scaling"]) {
       t += "; " + std::to_string(s["threads"].get<size_t>()) + " threads at once " +
            Figure("%.2f", s["times_one_thread"].get<double>()) +
-           "&times; one thread (the ceiling of a split job's speedup)";
+           "&times; one thread (arithmetic alone)";
     }
   }
   return t + ".</p>";
