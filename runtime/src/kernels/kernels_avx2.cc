@@ -68,18 +68,7 @@ struct Avx2QuantizedOps {
     }
     return Sum(acc) + ScalarQuantizedOps::Dot(x + i, w + i, n - i);
   }
-  static float MaxAbs(const float* x, size_t n) {
-    const __m256 sign = _mm256_set1_ps(-0.0f);
-    __m256 max = _mm256_setzero_ps();
-    size_t i = 0;
-    for (; i + 8 <= n; i += 8)
-      max = _mm256_max_ps(max, _mm256_andnot_ps(sign, _mm256_loadu_ps(x + i)));
-    alignas(32) float lanes[8];
-    _mm256_store_ps(lanes, max);
-    float result = ScalarQuantizedOps::MaxAbs(x + i, n - i);
-    for (float lane : lanes) result = lane > result ? lane : result;
-    return result;
-  }
+  static float MaxAbs(const float* x, size_t n) { return SimdKernels<Avx2Traits>::MaxAbs(x, n); }
   // 32 values at a time: divide, round to nearest even (the MXCSR default), clamp, then narrow
   // int32 -> int16 -> int8 with saturating packs (in range already) and undo their lane order.
   static void Divide(const float* x, float scale, int8_t* q, size_t n) {

@@ -90,14 +90,7 @@ struct Avx512QuantizedBase {
   static __m512i SignedActivation(__m512i xv, __m512i wv) {
     return _mm512_mask_sub_epi8(xv, _mm512_movepi8_mask(wv), _mm512_setzero_si512(), xv);
   }
-  static float MaxAbs(const float* x, size_t n) {
-    __m512 max = _mm512_setzero_ps();
-    size_t i = 0;
-    for (; i + 16 <= n; i += 16) max = _mm512_max_ps(max, _mm512_abs_ps(_mm512_loadu_ps(x + i)));
-    const float lanes = _mm512_reduce_max_ps(max);
-    const float tail = ScalarQuantizedOps::MaxAbs(x + i, n - i);
-    return lanes > tail ? lanes : tail;
-  }
+  static float MaxAbs(const float* x, size_t n) { return SimdKernels<Avx512Traits>::MaxAbs(x, n); }
   // 16 values at a time: divide, clamp, round to nearest even and narrow with a saturating
   // int32 -> int8 conversion (in range already). Clamping before rounding gives the same
   // integers as rounding first: the bounds are integers.

@@ -49,12 +49,7 @@ struct NeonQuantizedOps {
     return vaddvq_s32(acc) + ScalarQuantizedOps::Dot(x + i, w + i, n - i);
   }
   static float MaxAbs(const float* x, size_t n) {
-    float32x4_t max = vdupq_n_f32(0.0f);
-    size_t i = 0;
-    for (; i + 4 <= n; i += 4) max = vmaxq_f32(max, vabsq_f32(vld1q_f32(x + i)));
-    const float lanes = vmaxvq_f32(max);
-    const float tail = ScalarQuantizedOps::MaxAbs(x + i, n - i);
-    return lanes > tail ? lanes : tail;
+    return SimdKernels<NeonTraits>::MaxAbs(x, n);
   }
   // 16 values at a time: divide, clamp, convert rounding to nearest even (fcvtns, whatever
   // FPCR says), then narrow with saturation (in range already).

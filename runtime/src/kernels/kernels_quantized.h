@@ -5,7 +5,8 @@
 //                                                              // q[i] = QuantizeValue(x[i], scale)
 //   static int32_t Dot(const int8_t* x, const int8_t* w, size_t n);  // exact Σ x[i]·w[i]
 // The scalar forms below are the reference; a vector path implements the same functions with
-// its instructions and uses the scalar forms for its tails, so every path gives the same bits
+// its instructions (MaxAbs once for all of them, SimdKernels::MaxAbs in kernels_simd.h) and
+// uses the scalar forms for its tails, so every path gives the same bits
 // (integer sums are exact in any order; the maximum is exact in any order; the division and
 // the rounding are IEEE operations, correctly rounded on every path).
 //

@@ -651,6 +651,21 @@ struct SimdKernels {
 
   // ---- checks ----
 
+  // max_i |x[i]|, 0 for n = 0: the scale of the int8-activation kernels (kernels_quantized.h,
+  // whose Ops of every vector path call this). The maximum is exact in any order and the tail's
+  // zero lanes cannot raise it, so every path gives ScalarQuantizedOps::MaxAbs's value.
+  static float MaxAbs(const float* x, size_t n) {
+    F max(0.0f);
+    size_t i = 0;
+    for (; i + L <= n; i += L) max = xsimd::max(max, xsimd::abs(F::load_unaligned(x + i)));
+    if (i < n) max = xsimd::max(max, xsimd::abs(LoadPartial(x + i, n - i, FloatTag{})));
+    alignas(64) float lanes[L];
+    max.store_aligned(lanes);
+    float result = 0.0f;
+    for (float lane : lanes) result = lane > result ? lane : result;
+    return result;
+  }
+
   // A float is an infinity or a NaN exactly when its exponent bits are all ones.
   static bool AllFinite(const float* x, size_t n) {
     const I exponent(0x7f800000);

@@ -55,17 +55,7 @@ struct Sse42QuantizedOps {
     acc = _mm_add_epi32(acc, _mm_shuffle_epi32(acc, 0xb1));
     return _mm_cvtsi128_si32(acc) + ScalarQuantizedOps::Dot(x + i, w + i, n - i);
   }
-  static float MaxAbs(const float* x, size_t n) {
-    const __m128 sign = _mm_set1_ps(-0.0f);
-    __m128 max = _mm_setzero_ps();
-    size_t i = 0;
-    for (; i + 4 <= n; i += 4) max = _mm_max_ps(max, _mm_andnot_ps(sign, _mm_loadu_ps(x + i)));
-    alignas(16) float lanes[4];
-    _mm_store_ps(lanes, max);
-    float result = ScalarQuantizedOps::MaxAbs(x + i, n - i);
-    for (float lane : lanes) result = lane > result ? lane : result;
-    return result;
-  }
+  static float MaxAbs(const float* x, size_t n) { return SimdKernels<Sse42Traits>::MaxAbs(x, n); }
   static void Divide(const float* x, float scale, int8_t* q, size_t n) {
     const __m128 s = _mm_set1_ps(scale);
     const __m128 low = _mm_set1_ps(-127.0f), high = _mm_set1_ps(127.0f);
