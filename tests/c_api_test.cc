@@ -91,10 +91,6 @@ std::vector<int32_t> Tokens(size_t n, uint32_t vocab, uint32_t seed) {
   return t;
 }
 
-bool SameBits(const std::vector<float>& a, const std::vector<float>& b) {
-  return a.size() == b.size() && std::memcmp(a.data(), b.data(), a.size() * sizeof(float)) == 0;
-}
-
 class CApiTest : public ::testing::Test {
  protected:
   static void SetUpTestSuite() {
@@ -153,7 +149,7 @@ TEST_F(CApiTest, ForwardIsBitIdenticalToTheSession) {
     ASSERT_TRUE(cpp->forward(x.data(), rows, want.data()).ok());
     ASSERT_EQ(sprig_session_forward(c.session, x.data(), rows, got.data(), &c.err), SPRIG_OK)
         << c.message();
-    EXPECT_TRUE(SameBits(got, want));
+    EXPECT_TRUE(testing::BitEqual(got, want));
     // Zero rows with no arrays is a valid, empty call.
     EXPECT_EQ(sprig_session_forward(c.session, nullptr, 0, nullptr, &c.err), SPRIG_OK);
   }
@@ -171,7 +167,7 @@ TEST_F(CApiTest, TokenCallsAreBitIdenticalToTheSession) {
   ASSERT_EQ(sprig_session_forward_tokens(c.session, tokens.data(), b, t, got.data(), &c.err),
             SPRIG_OK)
       << c.message();
-  EXPECT_TRUE(SameBits(got, want));
+  EXPECT_TRUE(testing::BitEqual(got, want));
   EXPECT_EQ(sprig_session_position(c.session), 0u) << "forward_tokens must not touch the cache";
 
   // Decoding one token at a time, then a batched append on top.
@@ -180,14 +176,14 @@ TEST_F(CApiTest, TokenCallsAreBitIdenticalToTheSession) {
     ASSERT_TRUE(cpp->append_token(tokens[i], cpp_logits.data()).ok());
     ASSERT_EQ(sprig_session_append_token(c.session, tokens[i], c_logits.data(), &c.err), SPRIG_OK)
         << c.message();
-    EXPECT_TRUE(SameBits(c_logits, cpp_logits)) << "position " << i;
+    EXPECT_TRUE(testing::BitEqual(c_logits, cpp_logits)) << "position " << i;
     EXPECT_EQ(sprig_session_position(c.session), i + 1);
   }
   ASSERT_TRUE(cpp->append_tokens(tokens.data() + t, t, cpp_logits.data()).ok());
   ASSERT_EQ(sprig_session_append_tokens(c.session, tokens.data() + t, t, c_logits.data(), &c.err),
             SPRIG_OK)
       << c.message();
-  EXPECT_TRUE(SameBits(c_logits, cpp_logits));
+  EXPECT_TRUE(testing::BitEqual(c_logits, cpp_logits));
   EXPECT_EQ(sprig_session_position(c.session), 2 * t);
   // Logits are optional; reset empties the cache.
   EXPECT_EQ(sprig_session_append_token(c.session, 1, nullptr, &c.err), SPRIG_OK) << c.message();
@@ -196,7 +192,7 @@ TEST_F(CApiTest, TokenCallsAreBitIdenticalToTheSession) {
   cpp->reset();
   ASSERT_TRUE(cpp->append_token(tokens[3], cpp_logits.data()).ok());
   ASSERT_EQ(sprig_session_append_token(c.session, tokens[3], c_logits.data(), &c.err), SPRIG_OK);
-  EXPECT_TRUE(SameBits(c_logits, cpp_logits)) << "after reset";
+  EXPECT_TRUE(testing::BitEqual(c_logits, cpp_logits)) << "after reset";
 }
 
 // Collects tokens through the C callback, stopping after `limit` when it is not 0.
@@ -285,7 +281,7 @@ TEST_F(CApiTest, SessionKeepsItsModelAlive) {
   ASSERT_TRUE(cpp->forward(x.data(), 5, want.data()).ok());
   ASSERT_EQ(sprig_session_forward(c.session, x.data(), 5, got.data(), &c.err), SPRIG_OK)
       << c.message();
-  EXPECT_TRUE(SameBits(got, want));
+  EXPECT_TRUE(testing::BitEqual(got, want));
 }
 
 TEST_F(CApiTest, FailuresGiveTheirCodeAndAMessage) {

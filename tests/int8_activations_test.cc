@@ -94,10 +94,6 @@ Outcome Forward(Session& session, const std::vector<float>& x, const std::vector
   return run;
 }
 
-bool BitEqual(const std::vector<float>& a, const std::vector<float>& b) {
-  return a.size() == b.size() && std::memcmp(a.data(), b.data(), a.size() * sizeof(float)) == 0;
-}
-
 class Int8Activations : public ::testing::Test {
  protected:
   static void SetUpTestSuite() {
@@ -183,7 +179,7 @@ TEST_F(Int8Activations, ChangesResultsWithinTheActivationRounding) {
   const std::vector<float> x = RandomRows(kRows, 3);
   const Outcome f = Forward(*NewSession(*i8_, 1, "f32"), x, {kRows});
   const Outcome q = Forward(*NewSession(*i8_, 1, "i8"), x, {kRows});
-  EXPECT_FALSE(BitEqual(f.y, q.y));
+  EXPECT_FALSE(testing::BitEqual(f.y, q.y));
   double diff = 0, norm = 0;
   for (size_t i = 0; i < f.y.size(); ++i) {
     diff += (double(f.y[i]) - q.y[i]) * (double(f.y[i]) - q.y[i]);
@@ -221,7 +217,7 @@ TEST_F(Int8Activations, BitIdenticalAcrossBatchesSplitsSingleRowsAndThreads) {
         const Outcome run = Forward(*s, x, split);
         std::string what = name + ", " + std::to_string(s->threads()) + " thread(s), calls of";
         for (size_t n : split) what.append(" ").append(std::to_string(n));
-        EXPECT_TRUE(BitEqual(run.y, base.y)) << what;
+        EXPECT_TRUE(testing::BitEqual(run.y, base.y)) << what;
         EXPECT_EQ(run.routes, base.routes) << what;
       }
     }
@@ -253,7 +249,8 @@ TEST_F(Int8Activations, RunAndBenchTakeTheComputeOption) {
     const io::NdArray& y = archive->arrays()[0];
     std::vector<float> got(y.elements());
     std::memcpy(got.data(), y.data, y.nbytes());
-    EXPECT_TRUE(BitEqual(got, Forward(*NewSession(*i8_, 1, compute), x, {kRows}).y)) << compute;
+    EXPECT_TRUE(testing::BitEqual(got, Forward(*NewSession(*i8_, 1, compute), x, {kRows}).y))
+        << compute;
   }
   const auto refused =
       testing::Run(testing::SprigCli() + " run " + Quote((*f32_)->path()) + " --input " +
@@ -303,7 +300,7 @@ TEST(Int8ActivationsTransformer, SequencesIndependentOfTheirBatch) {
   ASSERT_TRUE(session->forward_tokens(tokens.data(), 1, length, first.data()).ok());
   ASSERT_TRUE(session->forward_tokens(tokens.data() + length, 1, length, second.data()).ok());
   first.insert(first.end(), second.begin(), second.end());
-  EXPECT_TRUE(BitEqual(both, first));
+  EXPECT_TRUE(testing::BitEqual(both, first));
 }
 
 }  // namespace

@@ -168,10 +168,6 @@ double MaxAbs(const std::vector<float>& v) {
   return m;
 }
 
-bool BitEqual(const std::vector<float>& a, const std::vector<float>& b) {
-  return a.size() == b.size() && std::memcmp(a.data(), b.data(), a.size() * sizeof(float)) == 0;
-}
-
 ::testing::AssertionResult RoutesEqual(const Routes& a, const Routes& b) {
   if (a.layers.size() != b.layers.size()) {
     return ::testing::AssertionFailure()
@@ -736,7 +732,7 @@ TEST_F(RuntimeIdentityEveryKind, BitIdenticalAcrossThreadsAndBatchSplits) {
         std::string what = "\n  ";
         what.append(std::to_string(s->threads())).append(" thread(s), calls of");
         for (size_t n : split) what.append(" ").append(std::to_string(n));
-        if (!BitEqual(y, base)) output_mismatches += what;
+        if (!testing::BitEqual(y, base)) output_mismatches += what;
         if (!RoutesEqual(routes, base_routes)) route_mismatches += what;
       }
     }
@@ -748,7 +744,7 @@ TEST_F(RuntimeIdentityEveryKind, BitIdenticalAcrossThreadsAndBatchSplits) {
     Routes r1, r2;
     ASSERT_TRUE(ForwardRowByRow(*one, x, &y1, &r1).ok());
     ASSERT_TRUE(ForwardRowByRow(*two, x, &y2, &r2).ok());
-    EXPECT_TRUE(BitEqual(y1, y2)) << name << ": single-row calls, 1 vs 2 threads";
+    EXPECT_TRUE(testing::BitEqual(y1, y2)) << name << ": single-row calls, 1 vs 2 threads";
     EXPECT_TRUE(RoutesEqual(r1, r2)) << name << ": single-row calls, 1 vs 2 threads";
   }
 }
@@ -772,7 +768,7 @@ TEST_F(RuntimeIdentityEveryKind, EveryBatchSizeMatchesTheWholeBatch) {
       Routes routes;
       ASSERT_TRUE(ForwardSplit(*two, part, {n}, &y, &routes).ok());
       const std::vector<float> want(base.begin(), base.begin() + n * kOut);
-      if (!BitEqual(y, want)) output_mismatches.append(" ").append(std::to_string(n));
+      if (!testing::BitEqual(y, want)) output_mismatches.append(" ").append(std::to_string(n));
       for (size_t l = 0; l < routes.layers.size(); ++l) {
         const auto& b = base_routes.layers[l];
         const std::vector<int32_t> w(b.choices.begin(), b.choices.begin() + n * b.width);
@@ -843,7 +839,7 @@ TEST(RuntimeIdentityLargeBatch, PathTreeRowsEqualSingleRowCalls) {
               ASSERT_TRUE(ForwardSplit(**batched, x, split, &y, &routes).ok());
               const std::string how = what + ", " + std::to_string(threads) + " thread(s), " +
                                       std::to_string(split.size()) + " call(s)";
-              EXPECT_TRUE(BitEqual(y, want)) << how;
+              EXPECT_TRUE(testing::BitEqual(y, want)) << how;
               EXPECT_TRUE(RoutesEqual(routes, want_routes)) << how;
             }
           }
@@ -873,7 +869,7 @@ TEST(RuntimeIdentityLargeBatch, LeafTreeRoutesEqualSingleRowCalls) {
           ASSERT_TRUE(ForwardSplit(**two, x, {129, 2, 169}, &split, &split_routes).ok());
           EXPECT_TRUE(RoutesEqual(whole_routes, single_routes)) << what;
           EXPECT_TRUE(RoutesEqual(split_routes, single_routes)) << what;
-          EXPECT_TRUE(BitEqual(split, whole)) << what;
+          EXPECT_TRUE(testing::BitEqual(split, whole)) << what;
         });
   }
 }

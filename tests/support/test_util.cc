@@ -178,6 +178,10 @@ std::string PackSynthesized(const TempDir& dir, const std::string& name, const s
   return model;
 }
 
+bool BitEqual(const std::vector<float>& a, const std::vector<float>& b) {
+  return a.size() == b.size() && std::memcmp(a.data(), b.data(), a.size() * sizeof(float)) == 0;
+}
+
 std::unique_ptr<Session> OpenSession(const std::string& path, size_t threads) {
   auto model = Model::open(path);
   EXPECT_TRUE(model.ok()) << model.status().message();

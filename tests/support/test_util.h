@@ -57,6 +57,10 @@ std::string PackSynthesized(const TempDir& dir, const std::string& name, const s
 // either fails.
 std::unique_ptr<Session> OpenSession(const std::string& path, size_t threads = 1);
 
+// True when both arrays hold the same floats bit for bit (a NaN equals the same NaN; 0 and -0
+// differ).
+bool BitEqual(const std::vector<float>& a, const std::vector<float>& b);
+
 std::string Quote(const std::string& s);
 // Sets or removes an environment variable of this process (setenv/unsetenv, or _putenv_s on
 // Windows), for the programs it starts and for the library's own reads.
