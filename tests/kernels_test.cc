@@ -310,6 +310,43 @@ TEST(KernelDotRows, EqualsDotOfEachRowOnEveryPath) {
   }
 }
 
+// dot_pairs promises each pair's dot, bit for bit, on every path (the batched descent computes
+// the deep levels' nodes as pairs), wherever a pair falls in the register blocks.
+TEST(KernelDotPairs, EqualsDotOfEachPairOnEveryPath) {
+  for (DType type : kWeightTypes) {
+    for (size_t count : {0, 1, 2, 3, 4, 5, 7, 8, 9}) {
+      for (size_t n : kLengths) {
+        const uint32_t seed = uint32_t(count * 6151 + n);
+        std::vector<StoredWeights> w;
+        std::vector<std::vector<float>> x;
+        std::vector<const void*> ws;
+        std::vector<const float*> xs, scales;
+        for (size_t r = 0; r < count; ++r) {
+          w.emplace_back(type, RandomVector(n, uint32_t(seed + 2 * r)));
+          x.push_back(RandomVector(n, uint32_t(seed + 2 * r + 1)));
+        }
+        for (size_t r = 0; r < count; ++r) {
+          ws.push_back(w[r].data());
+          xs.push_back(x[r].data());
+          scales.push_back(w[r].scales());
+        }
+        for (KernelPath path : AvailablePaths()) {
+          const KernelTable& k = Kernels(path);
+          std::vector<float> sums(count + 1, 12345.0f);  // the last one must stay untouched
+          DotPairs(k, type, ws.data(), xs.data(), count, n, sums.data(), scales.data());
+          const std::string what = Describe(
+              path, type, "dot_pairs count=" + std::to_string(count) + " n=" + std::to_string(n));
+          for (size_t r = 0; r < count; ++r) {
+            ASSERT_EQ(sums[r], Dot(k, type, x[r].data(), w[r].data(), n, w[r].scales()))
+                << what << " pair " << r;
+          }
+          EXPECT_EQ(sums[count], 12345.0f) << what;
+        }
+      }
+    }
+  }
+}
+
 TEST(KernelAxpy, EveryPathEveryTypeMatchesReference) {
   const float a = -1.75f;
   for (DType type : kWeightTypes) {

@@ -131,6 +131,18 @@ struct SharedRowKernels {
   void (*dot_rows_bf16)(const uint16_t* w, const float* const* xs, size_t count, size_t n,
                         float* sums);
   void (*dot_rows_i8)(const int8_t* w, const float* const* xs, size_t count, size_t n, float* sums);
+  // sums[r] = dot(x_r, w_r, n) of the same path and type, for r < count: each input row with its
+  // own weight row (ws[r], of the type's storage), computed side by side so that their loads
+  // and sums overlap (the deep levels of a batched descent, where each row reaches its own
+  // node). i8 sums are unscaled.
+  void (*dot_pairs_f32)(const void* const* ws, const float* const* xs, size_t count, size_t n,
+                        float* sums);
+  void (*dot_pairs_f16)(const void* const* ws, const float* const* xs, size_t count, size_t n,
+                        float* sums);
+  void (*dot_pairs_bf16)(const void* const* ws, const float* const* xs, size_t count, size_t n,
+                         float* sums);
+  void (*dot_pairs_i8)(const void* const* ws, const float* const* xs, size_t count, size_t n,
+                       float* sums);
 };
 
 struct KernelTable {
@@ -280,6 +292,27 @@ inline void DotRows(const KernelTable& k, DType type, const void* w, const float
       return;
     default:
       return k.shared.dot_rows_f32(static_cast<const float*>(w), xs, count, n, sums);
+  }
+}
+
+// sums[r] = Dot(k, type, xs[r], ws[r], n, scales[r]) for r < count (SharedRowKernels), bit for
+// bit; `scales` (one pointer per pair) is read for kI8 only.
+inline void DotPairs(const KernelTable& k, DType type, const void* const* ws,
+                     const float* const* xs, size_t count, size_t n, float* sums,
+                     const float* const* scales = nullptr) {
+  switch (type) {
+    case DType::kF16:
+      return k.shared.dot_pairs_f16(ws, xs, count, n, sums);
+    case DType::kBF16:
+      return k.shared.dot_pairs_bf16(ws, xs, count, n, sums);
+    case DType::kI8:
+      assert(scales != nullptr);
+      k.shared.dot_pairs_i8(ws, xs, count, n, sums);
+      // The same product as Dot's: scale times the unscaled sum.
+      for (size_t r = 0; r < count; ++r) sums[r] = scales[r][0] * sums[r];
+      return;
+    default:
+      return k.shared.dot_pairs_f32(ws, xs, count, n, sums);
   }
 }
 

@@ -36,6 +36,11 @@ void DotRows(const W* w, const float* const* xs, size_t count, size_t n, float* 
 }
 
 template <typename Tag, typename W>
+void DotPairs(const void* const* ws, const float* const* xs, size_t count, size_t n, float* sums) {
+  for (size_t r = 0; r < count; ++r) sums[r] = Dot<Tag>(xs[r], static_cast<const W*>(ws[r]), n);
+}
+
+template <typename Tag, typename W>
 void Gemv(const W* w, const float* x, const float* bias, float* y, size_t out, size_t in) {
   for (size_t o = 0; o < out; ++o) {
     y[o] = Dot<Tag>(x, w + o * in, in) + (bias != nullptr ? bias[o] : 0.0f);
@@ -206,7 +211,9 @@ constexpr KernelTable kScalarTable = WithInt8Activations<ScalarQuantizedOps>({
     &FloatToBFloat16Array,
     &BFloat16ToFloatArray,
     {&DotRows<FloatWeights, float>, &DotRows<HalfWeights, uint16_t>,
-     &DotRows<BFloat16Weights, uint16_t>, &DotRows<Int8Weights, int8_t>},
+     &DotRows<BFloat16Weights, uint16_t>, &DotRows<Int8Weights, int8_t>,
+     &DotPairs<FloatWeights, float>, &DotPairs<HalfWeights, uint16_t>,
+     &DotPairs<BFloat16Weights, uint16_t>, &DotPairs<Int8Weights, int8_t>},
 });
 
 }  // namespace

@@ -200,21 +200,30 @@ struct SimdKernels {
   static constexpr int kDotRows = L >= 16 ? 4 : 2;
 
   // Dot's arithmetic for R rows at once: each row's accumulators see the same fused
-  // multiply-adds in the same order, and the same final sum, as Dot gives it alone; only the
-  // weight loads are shared.
-  template <class Tag, int R>
-  static void DotBlock(const typename Tag::Storage* w, const float* const* xs, size_t n,
+  // multiply-adds in the same order, and the same final sum, as Dot gives it alone. With
+  // kOwnWeights each row reads its own weight row ws[r] (dot_pairs: R independent dot products
+  // side by side); without, all rows read ws[0], loaded (and converted) once for all of them.
+  template <class Tag, int R, bool kOwnWeights>
+  static void DotBlock(const typename Tag::Storage* const* ws, const float* const* xs, size_t n,
                        float* sums) {
+    using W = typename Tag::Storage;
+    auto weights = [&](int r) -> const W* { return ws[kOwnWeights ? r : 0]; };
     F acc[R][4];
 #pragma GCC unroll 16
     for (int r = 0; r < R; ++r) acc[r][0] = acc[r][1] = acc[r][2] = acc[r][3] = F(0.0f);
     size_t i = 0;
     for (; i + 4 * L <= n; i += 4 * L) {
       F wv[4];
+      if constexpr (!kOwnWeights) {
 #pragma GCC unroll 4
-      for (int j = 0; j < 4; ++j) wv[j] = Load(w + i + j * L, Tag{});
+        for (int j = 0; j < 4; ++j) wv[j] = Load(weights(0) + i + j * L, Tag{});
+      }
 #pragma GCC unroll 16
       for (int r = 0; r < R; ++r) {
+        if constexpr (kOwnWeights) {
+#pragma GCC unroll 4
+          for (int j = 0; j < 4; ++j) wv[j] = Load(weights(r) + i + j * L, Tag{});
+        }
 #pragma GCC unroll 4
         for (int j = 0; j < 4; ++j) {
           acc[r][j] = xsimd::fma(F::load_unaligned(xs[r] + i + j * L), wv[j], acc[r][j]);
@@ -222,14 +231,15 @@ struct SimdKernels {
       }
     }
     for (; i + L <= n; i += L) {
-      const F wv = Load(w + i, Tag{});
-      for (int r = 0; r < R; ++r)
-        acc[r][0] = xsimd::fma(F::load_unaligned(xs[r] + i), wv, acc[r][0]);
+      for (int r = 0; r < R; ++r) {
+        acc[r][0] =
+            xsimd::fma(F::load_unaligned(xs[r] + i), Load(weights(r) + i, Tag{}), acc[r][0]);
+      }
     }
     if (i < n) {
-      const F wv = LoadPartial(w + i, n - i, Tag{});
       for (int r = 0; r < R; ++r) {
-        acc[r][1] = xsimd::fma(LoadPartial(xs[r] + i, n - i, FloatTag{}), wv, acc[r][1]);
+        acc[r][1] = xsimd::fma(LoadPartial(xs[r] + i, n - i, FloatTag{}),
+                               LoadPartial(weights(r) + i, n - i, Tag{}), acc[r][1]);
       }
     }
     for (int r = 0; r < R; ++r) {
@@ -240,9 +250,28 @@ struct SimdKernels {
   template <class Tag>
   static void DotRows(const typename Tag::Storage* w, const float* const* xs, size_t count,
                       size_t n, float* sums) {
+    const typename Tag::Storage* const ws[1] = {w};
     size_t r = 0;
-    for (; r + kDotRows <= count; r += kDotRows) DotBlock<Tag, kDotRows>(w, xs + r, n, sums + r);
-    for (; r < count; ++r) DotBlock<Tag, 1>(w, xs + r, n, sums + r);
+    for (; r + kDotRows <= count; r += kDotRows) {
+      DotBlock<Tag, kDotRows, false>(ws, xs + r, n, sums + r);
+    }
+    for (; r < count; ++r) DotBlock<Tag, 1, false>(ws, xs + r, n, sums + r);
+  }
+
+  template <class Tag>
+  static void DotPairs(const void* const* ws, const float* const* xs, size_t count, size_t n,
+                       float* sums) {
+    using W = typename Tag::Storage;
+    const W* rows[kDotRows];
+    size_t r = 0;
+    for (; r + kDotRows <= count; r += kDotRows) {
+      for (int j = 0; j < kDotRows; ++j) rows[j] = static_cast<const W*>(ws[r + j]);
+      DotBlock<Tag, kDotRows, true>(rows, xs + r, n, sums + r);
+    }
+    for (; r < count; ++r) {
+      rows[0] = static_cast<const W*>(ws[r]);
+      DotBlock<Tag, 1, true>(rows, xs + r, n, sums + r);
+    }
   }
 
   template <class Tag>
@@ -706,7 +735,8 @@ struct SimdKernels {
         &HalfToFloatArray,
         &FloatToBFloat16Array,
         &BFloat16ToFloatArray,
-        {&DotRows<FloatTag>, &DotRows<HalfTag>, &DotRows<BFloat16Tag>, &DotRows<Int8Tag>},
+        {&DotRows<FloatTag>, &DotRows<HalfTag>, &DotRows<BFloat16Tag>, &DotRows<Int8Tag>,
+         &DotPairs<FloatTag>, &DotPairs<HalfTag>, &DotPairs<BFloat16Tag>, &DotPairs<Int8Tag>},
     };
   }
 };

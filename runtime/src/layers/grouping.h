@@ -9,6 +9,7 @@
 #include <cstddef>
 #include <cstdint>
 #include <functional>
+#include <type_traits>
 #include <vector>
 
 #include "kernels/kernels.h"
@@ -63,17 +64,48 @@ struct NodeRow {
 };
 
 // One level of a batched descent over rows grouped by node (order[] lists rows, node[r] is row
-// r's node): each row gets its node's logit w·x + b, with dot's arithmetic (dot_rows), so the
-// logit does not depend on the batch. `locate(node)` returns something `row(located)` turns
-// into a NodeRow; `prefetch(located)` requests its data; `emit(r, located, logit)` receives
-// each row's logit. With `quantized` (compute mode "i8", i8 nodes; row r of x quantised as its
-// row r) the logit is the single-row form's: the exact integer sum, then
-// kernels::QuantizedOutput.
+// r's node): each row gets its node's logit w·x + b, with dot's arithmetic (dot_rows,
+// dot_pairs), so the logit does not depend on the batch. `locate(node)` returns something
+// `row(located)` turns into a NodeRow; `prefetch(located)` requests its data; `emit(r, located,
+// logit)` receives each row's logit (not necessarily in order: the rows left over from a
+// group's blocks wait to be computed as pairs). With `quantized` (compute mode "i8", i8 nodes;
+// row r of x quantised as its row r) the logit is the single-row form's: the exact integer
+// sum, then kernels::QuantizedOutput.
 template <class Locate, class Row, class Prefetch, class Emit>
 void LogitsByNode(const kernels::KernelTable& k, const float* x, size_t in, size_t rows,
                   const uint64_t* node, const uint32_t* order, const QuantizedRows* quantized,
                   Locate&& locate, Row&& row, Prefetch&& prefetch, Emit&& emit) {
   constexpr size_t kBlock = 16;  // rows of a group per dot_rows call
+  // Rows of a group beyond its last whole block of kPairs go to dot_pairs, kPairs at a time
+  // with other groups' leftovers: in the deep levels, where most groups hold one row, the
+  // dot products of several nodes then run side by side instead of one after another.
+  constexpr size_t kPairs = 4;
+  using Located = std::decay_t<decltype(locate(uint64_t{0}))>;
+  struct Pending {
+    uint32_t r;
+    Located located;
+    NodeRow w;
+  };
+  Pending pending[kPairs];
+  size_t waiting = 0;
+  auto flush = [&] {
+    const void* ws[kPairs];
+    const float* xs[kPairs];
+    const float* scales[kPairs];
+    float logits[kPairs];
+    for (size_t j = 0; j < waiting; ++j) {
+      ws[j] = pending[j].w.weight;
+      xs[j] = x + pending[j].r * in;
+      scales[j] = pending[j].w.scale;
+    }
+    // A layer's nodes share one storage type, so the pairs do too.
+    kernels::DotPairs(k, pending[0].w.type, ws, xs, waiting, in, logits, scales);
+    for (size_t j = 0; j < waiting; ++j) {
+      const float* bias = pending[j].w.bias;
+      emit(pending[j].r, pending[j].located, bias != nullptr ? logits[j] + *bias : logits[j]);
+    }
+    waiting = 0;
+  };
   auto starts_group = [&](size_t i) { return i == 0 || node[order[i]] != node[order[i - 1]]; };
   size_t requested = 0;  // entries whose groups' weight rows have been requested
   for (size_t i = 0; i < rows;) {
@@ -95,8 +127,9 @@ void LogitsByNode(const kernels::KernelTable& k, const float* x, size_t in, size
       i = end;
       continue;
     }
-    for (size_t first = i; first < end; first += kBlock) {
-      const size_t count = std::min(kBlock, end - first);
+    const size_t blocked = i + (end - i) / kPairs * kPairs;
+    for (size_t first = i; first < blocked; first += kBlock) {
+      const size_t count = std::min(kBlock, blocked - first);
       const float* xs[kBlock];
       float logits[kBlock];
       for (size_t j = 0; j < count; ++j) xs[j] = x + order[first + j] * in;
@@ -105,8 +138,13 @@ void LogitsByNode(const kernels::KernelTable& k, const float* x, size_t in, size
         emit(order[first + j], located, w.bias != nullptr ? logits[j] + *w.bias : logits[j]);
       }
     }
+    for (size_t j = blocked; j < end; ++j) {
+      pending[waiting++] = {order[j], located, w};
+      if (waiting == kPairs) flush();
+    }
     i = end;
   }
+  if (waiting > 0) flush();
 }
 
 }  // namespace sprig::layers
