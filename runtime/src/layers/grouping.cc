@@ -53,6 +53,9 @@ void RunGroups(const Exec& exec, const std::vector<RowGroup>& groups,
                float* out, size_t out_width, const std::function<MlpView(uint32_t)>& unit) {
   exec.ParallelFor(groups.size(), [&](size_t task, Scratch& scratch) {
     const RowGroup& group = groups[task];
+    // The next unit's matrices start loading while this one computes (a leaf's are read from
+    // memory as a rule).
+    if (task + 1 < groups.size()) PrefetchMlp(unit(groups[task + 1].unit));
     const size_t count = group.end - group.begin;
     if (scratch.group_input.size() < count * in) scratch.group_input.resize(count * in);
     if (scratch.group_output.size() < count * out_width) {

@@ -1,5 +1,8 @@
 #include "layers/mlp.h"
 
+#include <algorithm>
+#include <cstdint>
+
 #include "layers/quantize.h"
 
 namespace sprig::layers {
@@ -91,10 +94,21 @@ void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* 
 
 void PrefetchMlp(const MlpView& mlp) {
   // A few lines at the start of each matrix: enough for the hardware prefetcher to take over
-  // the sequential stream while the current node's dot product finishes.
+  // the sequential stream while the current node's dot product finishes. That prefetcher stops
+  // at each 4 KiB page, and a page's first touch may need a page walk: one line at the start of
+  // each further page (up to kPagedBytes of a matrix, which bounds the instructions spent on a
+  // large expert) starts both early. Measured on AVX-512 with the caches flushed: a leaf tree
+  // d8 ℓ16 ran 4% faster at batch 1 and, with RunGroups requesting the next leaf, 5-9% at
+  // batch 128; with warm caches and for experts 8×512, no change.
+  constexpr uintptr_t kPage = 4096, kPagedBytes = 128 * 1024;
   for (const MatrixView* matrix : {&mlp.fc1, &mlp.gate, &mlp.fc2}) {
     if (matrix->data == nullptr) continue;
     for (int line = 0; line < 4; ++line) __builtin_prefetch(matrix->data + 64 * line, 0, 1);
+    const uintptr_t start = reinterpret_cast<uintptr_t>(matrix->data);
+    const uintptr_t end = start + std::min<uint64_t>(matrix->rows * matrix->row_bytes, kPagedBytes);
+    for (uintptr_t page = (start + kPage) & ~(kPage - 1); page < end; page += kPage) {
+      __builtin_prefetch(reinterpret_cast<const void*>(page), 0, 1);
+    }
   }
 }
 

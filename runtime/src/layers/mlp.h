@@ -44,7 +44,8 @@ MlpView MlpOf(const Binder& binder, const MlpTensors& tensors, uint64_t unit,
 void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* x, size_t rows,
                 float* y, Scratch& scratch, bool vector_kernels, bool int8_activations);
 
-// Hints the CPU to start loading the first cache lines of a unit's weights.
+// Hints the CPU to start loading a unit's weights: the first cache lines of each matrix and the
+// first line of each of its next pages.
 void PrefetchMlp(const MlpView& mlp);
 
 }  // namespace sprig::layers
