@@ -135,6 +135,19 @@ TEST(QuantizedKernels, DotOfExtremesCannotSaturateOrOverflow) {
             << Describe(path, "n=" + std::to_string(n));
         EXPECT_EQ(k.dot(x.data(), mixed_w.data(), n), ExactDot(x.data(), mixed_w.data(), n))
             << Describe(path, "alternating n=" + std::to_string(n));
+        // gemv over five such rows (a block of four and one more), unscaled: each output is
+        // its exact sum (the four-row form's partial sums wrap around int32 on the way).
+        std::vector<int8_t> rows;
+        for (int r = 0; r < 5; ++r)
+          rows.insert(rows.end(), (r % 2 ? mixed_w : w).begin(), (r % 2 ? mixed_w : w).end());
+        const std::vector<float> ones(5, 1.0f);
+        std::vector<float> y(5);
+        k.gemv(rows.data(), ones.data(), x.data(), 1.0f, nullptr, y.data(), 5, n);
+        for (int r = 0; r < 5; ++r) {
+          const float exact = static_cast<float>(ExactDot(x.data(), rows.data() + r * n, n));
+          EXPECT_EQ(y[r], exact) << Describe(
+              path, "gemv row " + std::to_string(r) + " n=" + std::to_string(n));
+        }
       }
     }
   }
@@ -144,7 +157,8 @@ TEST(QuantizedKernels, GemvAndGemmRowsEqualTheDefinitionOnEveryPath) {
   for (size_t in : {size_t{1}, size_t{17}, size_t{64}, size_t{100}, size_t{768}}) {
     for (size_t out : {size_t{1}, size_t{3}, size_t{9}}) {
       const size_t rows = 5;
-      const std::vector<int8_t> w = RandomBytes(out * in, uint32_t(in * 31 + out));
+      // -128 included, as in a file that is untrusted.
+      const std::vector<int8_t> w = RandomBytes(out * in, uint32_t(in * 31 + out), -128, 127);
       const std::vector<float> w_scales = RandomFloats(out, uint32_t(in + out));
       const std::vector<float> bias = RandomFloats(out, uint32_t(7 * out));
       const std::vector<float> x = RandomFloats(rows * in, uint32_t(in * 7 + out));

@@ -140,6 +140,73 @@ struct Avx512VnniQuantizedOps : Avx512QuantizedBase {
     }
     return _mm512_reduce_add_epi32(acc);
   }
+
+  // R activation rows against four weight rows (gemv: R = 1; gemm_rows: R = kGemmRows):
+  // sums[a·4 + r] = Dot(x[a], w[r], n). Here the activation is offset instead of each weight's
+  // sign moved onto it: x + 128 (x XOR 0x80 read as unsigned, in [1, 255]; a masked-off lane
+  // meets a zero weight) times w sums to Σx·w + 128·Σw, and a vpdpbusd of ones against w gives
+  // Σw, once for all R activation rows. Either sum may wrap around in int32, but the arithmetic
+  // is exact modulo 2^32 and |Σx·w| <= 127·128·n < 2^31, so the difference is the exact sum, as
+  // Dot gives it. Per 64 bytes: four weight loads and R offset activations feed 4·R + 4
+  // vpdpbusd, where Dot's sign trick takes two loads and four more operations per product
+  // vector; the sums are reduced four at a time.
+  template <int R>
+  __attribute__((target("avx512vnni"))) static void DotBlock(const int8_t* const* x,
+                                                             const int8_t* const* w, size_t n,
+                                                             int32_t* sums) {
+    const __m512i flip = _mm512_set1_epi8(static_cast<char>(0x80));
+    const __m512i ones = _mm512_set1_epi8(1);
+    // Every loop over a register array is unrolled: GCC keeps an array it indexes in a loop in
+    // memory, with a store after every vpdpbusd.
+    __m512i acc[R][4], weight_sum[4];
+#pragma GCC unroll 4
+    for (int r = 0; r < 4; ++r) weight_sum[r] = _mm512_setzero_si512();
+#pragma GCC unroll 4
+    for (int a = 0; a < R; ++a) {
+#pragma GCC unroll 4
+      for (int r = 0; r < 4; ++r) acc[a][r] = _mm512_setzero_si512();
+    }
+    for (size_t i = 0; i < n; i += 64) {
+      const __mmask64 mask = TailMask(n - i);
+      __m512i offset_x[R];
+#pragma GCC unroll 4
+      for (int a = 0; a < R; ++a) {
+        offset_x[a] = _mm512_xor_si512(_mm512_maskz_loadu_epi8(mask, x[a] + i), flip);
+      }
+#pragma GCC unroll 4
+      for (int r = 0; r < 4; ++r) {
+        const __m512i wv = _mm512_maskz_loadu_epi8(mask, w[r] + i);
+        weight_sum[r] = _mm512_dpbusd_epi32(weight_sum[r], ones, wv);
+#pragma GCC unroll 4
+        for (int a = 0; a < R; ++a) acc[a][r] = _mm512_dpbusd_epi32(acc[a][r], offset_x[a], wv);
+      }
+    }
+#pragma GCC unroll 4
+    for (int r = 0; r < 4; ++r) weight_sum[r] = _mm512_slli_epi32(weight_sum[r], 7);
+#pragma GCC unroll 4
+    for (int a = 0; a < R; ++a) {
+      ReduceFour(_mm512_sub_epi32(acc[a][0], weight_sum[0]),
+                 _mm512_sub_epi32(acc[a][1], weight_sum[1]),
+                 _mm512_sub_epi32(acc[a][2], weight_sum[2]),
+                 _mm512_sub_epi32(acc[a][3], weight_sum[3]), sums + a * 4);
+    }
+  }
+
+  // sums = the sums of the lanes of v0, v1, v2 and v3: integer sums, exact in any order.
+  static void ReduceFour(__m512i v0, __m512i v1, __m512i v2, __m512i v3, int32_t* sums) {
+    const __m512i v01 =
+        _mm512_add_epi32(_mm512_unpacklo_epi32(v0, v1), _mm512_unpackhi_epi32(v0, v1));
+    const __m512i v23 =
+        _mm512_add_epi32(_mm512_unpacklo_epi32(v2, v3), _mm512_unpackhi_epi32(v2, v3));
+    // Each 128-bit lane now holds one partial sum of v0, v1, v2, v3 in that order.
+    const __m512i lanes =
+        _mm512_add_epi32(_mm512_unpacklo_epi64(v01, v23), _mm512_unpackhi_epi64(v01, v23));
+    const __m256i halves =
+        _mm256_add_epi32(_mm512_castsi512_si256(lanes), _mm512_extracti64x4_epi64(lanes, 1));
+    const __m128i quarters =
+        _mm_add_epi32(_mm256_castsi256_si128(halves), _mm256_extracti128_si256(halves, 1));
+    _mm_storeu_si128(reinterpret_cast<__m128i*>(sums), quarters);
+  }
 };
 
 constexpr KernelTable kAvx512Table = WithInt8Activations<Avx512QuantizedOps>(

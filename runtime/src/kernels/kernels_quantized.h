@@ -4,6 +4,11 @@
 //   static void Divide(const float* x, float scale, int8_t* q, size_t n);
 //                                                              // q[i] = QuantizeValue(x[i], scale)
 //   static int32_t Dot(const int8_t* x, const int8_t* w, size_t n);  // exact Σ x[i]·w[i]
+// and, optionally, a blocked form that gemv (R = 1) and gemm_rows (R = kGemmRows) then use
+// for blocks of four outputs:
+//   template <int R> static void DotBlock(const int8_t* const* x, const int8_t* const* w,
+//                                         size_t n, int32_t* sums);
+//                                                // sums[a·4 + r] = Dot(x[a], w[r], n), a < R
 // The scalar forms below are the reference; a vector path implements the same functions with
 // its instructions (MaxAbs once for all of them, SimdKernels::MaxAbs in kernels_simd.h) and
 // uses the scalar forms for its tails, so every path gives the same bits
@@ -65,19 +70,85 @@ struct QuantizedLoops {
     return scale;
   }
 
-  static void Gemv(const int8_t* w, const float* w_scales, const int8_t* x, float x_scale,
-                   const float* bias, float* y, size_t out, size_t in) {
-    for (size_t o = 0; o < out; ++o) {
-      y[o] = QuantizedOutput(Ops::Dot(x, w + o * in, in), x_scale, w_scales[o], bias, o);
+  // The outputs o .. o + count of one activation row from their exact sums: a loop over arrays
+  // (with the bias test outside it), which vectorises; the same expression, the same bits.
+  static void Outputs(const int32_t* sums, float x_scale, const float* w_scales, const float* bias,
+                      float* y, size_t o, size_t count) {
+    if (bias == nullptr) {
+      for (size_t j = 0; j < count; ++j) {
+        y[o + j] = QuantizedOutput(sums[j], x_scale, w_scales[o + j], nullptr, 0);
+      }
+    } else {
+      for (size_t j = 0; j < count; ++j) {
+        y[o + j] = QuantizedOutput(sums[j], x_scale, w_scales[o + j], bias, o + j);
+      }
     }
   }
 
-  // Row by row over the whole weight matrix: meant for the small groups of rows that reach a
-  // leaf or an expert, whose weights stay in cache between rows.
+  static constexpr bool kBlocked = requires(const int8_t* const* p, int32_t* sums) {
+    Ops::template DotBlock<1>(p, p, size_t{0}, sums);
+  };
+  // Activation rows per pass of gemm_rows: 2 on AVX-512 VNNI keeps the block's 8 + 4 sums in
+  // registers; with 3 or 4, GCC 12 stores an accumulator after every vpdpbusd.
+  static constexpr int kGemmRows = 2;
+
+  // All `out` outputs of activation rows x[0 .. R), four outputs at a time through
+  // Ops::DotBlock<R> where the path has it, the rest through Ops::Dot.
+  template <int R>
+  static void Rows(const int8_t* w, const float* w_scales, const int8_t* const* x,
+                   const float* x_scales, const float* bias, float* const* y, size_t out,
+                   size_t in) {
+    constexpr size_t kChunk = 64;  // outputs whose sums are formed before they are scaled
+    int32_t sums[R][kChunk];
+    for (size_t o0 = 0; o0 < out; o0 += kChunk) {
+      const size_t count = out - o0 < kChunk ? out - o0 : kChunk;
+      size_t j = 0;
+      if constexpr (kBlocked) {
+        for (; j + 4 <= count; j += 4) {
+          const size_t o = o0 + j;
+          const int8_t* const rows[4] = {w + o * in, w + (o + 1) * in, w + (o + 2) * in,
+                                         w + (o + 3) * in};
+          int32_t block[R * 4];
+          Ops::template DotBlock<R>(x, rows, in, block);
+          for (int a = 0; a < R; ++a) {
+            for (int r = 0; r < 4; ++r) sums[a][j + r] = block[a * 4 + r];
+          }
+        }
+      }
+      for (; j < count; ++j) {
+        for (int a = 0; a < R; ++a) sums[a][j] = Ops::Dot(x[a], w + (o0 + j) * in, in);
+      }
+      for (int a = 0; a < R; ++a) Outputs(sums[a], x_scales[a], w_scales, bias, y[a], o0, count);
+    }
+  }
+
+  static void Gemv(const int8_t* w, const float* w_scales, const int8_t* x, float x_scale,
+                   const float* bias, float* y, size_t out, size_t in) {
+    const int8_t* const xs[1] = {x};
+    float* const ys[1] = {y};
+    Rows<1>(w, w_scales, xs, &x_scale, bias, ys, out, in);
+  }
+
+  // Meant for the small groups of rows that reach a leaf or an expert: where the path has the
+  // blocked form, kGemmRows activation rows share each pass over the weights (and each weight
+  // row's Σw); every output is the same exact sum as gemv's, so the bits do not depend on the
+  // blocking.
   static void GemmRows(const int8_t* w, const float* w_scales, const int8_t* x,
                        const float* x_scales, const float* bias, float* y, size_t rows, size_t out,
                        size_t in) {
-    for (size_t r = 0; r < rows; ++r) {
+    size_t r = 0;
+    if constexpr (kBlocked) {
+      for (; r + kGemmRows <= rows; r += kGemmRows) {
+        const int8_t* xs[kGemmRows];
+        float* ys[kGemmRows];
+        for (int a = 0; a < kGemmRows; ++a) {
+          xs[a] = x + (r + a) * in;
+          ys[a] = y + (r + a) * out;
+        }
+        Rows<kGemmRows>(w, w_scales, xs, x_scales + r, bias, ys, out, in);
+      }
+    }
+    for (; r < rows; ++r) {
       Gemv(w, w_scales, x + r * in, x_scales[r], bias, y + r * out, out, in);
     }
   }
