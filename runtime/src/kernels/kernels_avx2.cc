@@ -68,7 +68,70 @@ struct Avx2QuantizedOps {
     }
     return Sum(acc) + ScalarQuantizedOps::Dot(x + i, w + i, n - i);
   }
-  static float MaxAbs(const float* x, size_t n) { return SimdKernels<Avx2Traits>::MaxAbs(x, n); }
+  // R activation rows against four weight rows (gemv: R = 1; gemm_rows: R = kGemmRows):
+  // sums[a·4 + r] = Dot(x[a], w[r], n), with Dot's sign trick. Each weight vector is loaded
+  // and made absolute once for the R activation rows, and the 4·R sums are reduced four at a
+  // time. A tail of 16 bytes or more takes one half-width step (a leaf's fc2 has in = leaf
+  // width, often 16), the last bytes the scalar form. Integer sums: the same bits as Dot.
+  template <int R>
+  static void DotBlock(const int8_t* const* x, const int8_t* const* w, size_t n, int32_t* sums) {
+    const __m256i ones = _mm256_set1_epi16(1);
+    __m256i acc[R][4];
+#pragma GCC unroll 4
+    for (int a = 0; a < R; ++a) {
+#pragma GCC unroll 4
+      for (int r = 0; r < 4; ++r) acc[a][r] = _mm256_setzero_si256();
+    }
+    // One step over 32 bytes from `load(p)`; a zero byte adds nothing.
+    auto step = [&](auto load, size_t i) {
+      __m256i xv[R];
+#pragma GCC unroll 4
+      for (int a = 0; a < R; ++a) xv[a] = load(x[a] + i);
+#pragma GCC unroll 4
+      for (int r = 0; r < 4; ++r) {
+        const __m256i wv = load(w[r] + i);
+        const __m256i magnitude = _mm256_abs_epi8(wv);
+#pragma GCC unroll 4
+        for (int a = 0; a < R; ++a) {
+          const __m256i pairs = _mm256_maddubs_epi16(magnitude, _mm256_sign_epi8(xv[a], wv));
+          acc[a][r] = _mm256_add_epi32(acc[a][r], _mm256_madd_epi16(pairs, ones));
+        }
+      }
+    };
+    size_t i = 0;
+    for (; i + 32 <= n; i += 32) {
+      step([](const int8_t* p) { return _mm256_loadu_si256(reinterpret_cast<const __m256i*>(p)); },
+           i);
+    }
+    if (i + 16 <= n) {
+      step(
+          [](const int8_t* p) {
+            return _mm256_zextsi128_si256(_mm_loadu_si128(reinterpret_cast<const __m128i*>(p)));
+          },
+          i);
+      i += 16;
+    }
+#pragma GCC unroll 4
+    for (int a = 0; a < R; ++a) {
+      ReduceFour(acc[a][0], acc[a][1], acc[a][2], acc[a][3], sums + a * 4);
+      if (i == n) continue;
+      for (int r = 0; r < 4; ++r)
+        sums[a * 4 + r] += ScalarQuantizedOps::Dot(x[a] + i, w[r] + i, n - i);
+    }
+  }
+
+  // sums = the sums of the lanes of v0, v1, v2 and v3: integer sums, exact in any order.
+  static void ReduceFour(__m256i v0, __m256i v1, __m256i v2, __m256i v3, int32_t* sums) {
+    // After two rounds of pairwise sums each 128-bit half holds one partial sum of v0 .. v3.
+    const __m256i pairs = _mm256_hadd_epi32(_mm256_hadd_epi32(v0, v1), _mm256_hadd_epi32(v2, v3));
+    const __m128i total =
+        _mm_add_epi32(_mm256_castsi256_si128(pairs), _mm256_extracti128_si256(pairs, 1));
+    _mm_storeu_si128(reinterpret_cast<__m128i*>(sums), total);
+  }
+
+  static float MaxAbs(const float* x, size_t n) {
+    return SimdKernels<Avx2Traits>::MaxAbs(x, n);
+  }
   // 32 values at a time: divide, round to nearest even (the MXCSR default), clamp, then narrow
   // int32 -> int16 -> int8 with saturating packs (in range already) and undo their lane order.
   static void Divide(const float* x, float scale, int8_t* q, size_t n) {
