@@ -33,9 +33,13 @@ struct Scratch {
   // and the value rows of its positions.
   std::vector<const void*> attention_values;
   // int8 activations (Exec::int8_activations): the rows a projection reads, quantised, and
-  // their scales (QuantizeRows, quantize.h).
+  // their scales (QuantizeRows, quantize.h); and MlpForward's hidden activations, quantised
+  // apart so that an input quantised once serves several MLPs (a leaf after its tree's nodes,
+  // the experts a row chooses).
   std::vector<int8_t> quantized;
   std::vector<float> quantized_scales;
+  std::vector<int8_t> quantized_hidden;
+  std::vector<float> quantized_hidden_scales;
   // Path and leaf trees, batched: one tile's descent. Each row's current node, and the tile's
   // rows grouped by node (and the next level's grouping).
   std::vector<uint64_t> descent_node;

@@ -131,10 +131,11 @@ void ExpertsLayer::Forward(const Exec& exec, const float* x, size_t rows, float*
   std::vector<float> logits(rows * experts);
   std::vector<int32_t> chosen(rows * top);
   std::vector<float> weights(rows * top);
+  QuantizedRows quantized;  // the rows, quantised: set when the router quantises them
   if (Quantizes(exec, router_.type)) {
     // The router's rows quantised on the calling thread's scratch (the layer's parallel parts
     // start later); each row's logits are exact sums, the same for any batch.
-    const QuantizedRows quantized = QuantizeRows(k, x, rows, in_, (*exec.scratch)[0]);
+    quantized = QuantizeRows(k, x, rows, in_, (*exec.scratch)[0]);
     ProjectQuantized(k, router_, quantized, router_bias_, logits.data(), rows);
   } else if (exec.single_row) {
     kernels::Gemv(k, router_.type, router_.data, x, router_bias_, logits.data(), experts, in_,
@@ -157,8 +158,15 @@ void ExpertsLayer::Forward(const Exec& exec, const float* x, size_t rows, float*
     Scratch& scratch = (*exec.scratch)[0];
     if (scratch.expert_output.size() < out_) scratch.expert_output.resize(out_);
     float* expert_output = scratch.expert_output.data();
+    // In the compute mode "i8" the row is quantised once for every MLP it meets (MlpForward
+    // keeps its hidden activations apart): the router's, or else the first expert's.
+    if (quantized.values == nullptr && top > 0 && Quantizes(exec, Expert(chosen[0]).fc1.type)) {
+      quantized = QuantizeRows(k, x, 1, in_, scratch);
+    }
+    const QuantizedRows* row = quantized.values != nullptr ? &quantized : nullptr;
     for (size_t j = 0; j < top; ++j) {
-      MlpForward(k, Expert(chosen[j]), x, 1, expert_output, scratch, true, exec.int8_activations);
+      MlpForward(k, Expert(chosen[j]), x, 1, expert_output, scratch, true, exec.int8_activations,
+                 row);
       for (size_t o = 0; o < out_; ++o) y[o] += weights[j] * expert_output[o];
     }
     if (config_.shared_experts > 0) {
@@ -166,7 +174,7 @@ void ExpertsLayer::Forward(const Exec& exec, const float* x, size_t rows, float*
       if (scratch.shared_output.size() < size) scratch.shared_output.resize(size);
       for (size_t s = 0; s < config_.shared_experts; ++s) {
         MlpForward(k, Shared(s), x, 1, scratch.shared_output.data() + s * out_, scratch, true,
-                   exec.int8_activations);
+                   exec.int8_activations, row);
       }
       AddShared(exec, x, 1, scratch.shared_output.data(), y);
     }

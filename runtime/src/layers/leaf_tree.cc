@@ -91,16 +91,15 @@ void LeafTreeLayer::Forward(const Exec& exec, const float* x, size_t rows, float
   const bool quantize_nodes = config_.depth > 0 && Quantizes(exec, nodes_.type);
   if (exec.single_row) {
     Scratch& scratch = (*exec.scratch)[0];
-    uint32_t leaf = 0;
-    if (quantize_nodes) {
-      const QuantizedRows quantized = QuantizeRows(k, x, 1, in_, scratch);
-      leaf = Descend(k, x, quantized.values, quantized.scales[0]);
-    } else {
-      leaf = Descend(k, x, nullptr, 0.0f);
-    }
+    // The row quantised for the nodes serves the leaf's fc1 too.
+    QuantizedRows quantized;
+    if (quantize_nodes) quantized = QuantizeRows(k, x, 1, in_, scratch);
+    const uint32_t leaf = quantize_nodes ? Descend(k, x, quantized.values, quantized.scales[0])
+                                         : Descend(k, x, nullptr, 0.0f);
     if (routes) routes[0] = static_cast<int32_t>(leaf);
     Touch(exec, leaf);
-    MlpForward(k, Leaf(leaf), x, 1, y, scratch, true, exec.int8_activations);
+    MlpForward(k, Leaf(leaf), x, 1, y, scratch, true, exec.int8_activations,
+               quantize_nodes ? &quantized : nullptr);
     return;
   }
   // Descend every row, in tiles of rows grouped by node (DescendTile; in the compute mode "i8"

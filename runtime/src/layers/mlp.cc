@@ -58,7 +58,8 @@ MlpView MlpOf(const Binder& binder, const MlpTensors& tensors, uint64_t unit,
 }
 
 void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* x, size_t rows,
-                float* y, Scratch& scratch, bool vector_kernels, bool int8_activations) {
+                float* y, Scratch& scratch, bool vector_kernels, bool int8_activations,
+                const QuantizedRows* quantized_x) {
   const size_t size = rows * mlp.width;
   if (scratch.hidden.size() < size) scratch.hidden.resize(size);
   float* hidden = scratch.hidden.data();
@@ -68,7 +69,9 @@ void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* 
     return int8_activations && w.data != nullptr && w.type == DType::kI8;
   };
   QuantizedRows quantized_input;
-  if (quantizes(mlp.fc1) || quantizes(mlp.gate)) {
+  if (quantized_x != nullptr) {
+    quantized_input = *quantized_x;
+  } else if (quantizes(mlp.fc1) || quantizes(mlp.gate)) {
     quantized_input = QuantizeRows(k, x, rows, mlp.in, scratch);
   }
   auto project_input = [&](const MatrixView& w, const float* bias, float* out) {
@@ -85,7 +88,8 @@ void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* 
     k.activate(mlp.activation, hidden, size);
   }
   if (quantizes(mlp.fc2)) {
-    const QuantizedRows quantized_hidden = QuantizeRows(k, hidden, rows, mlp.width, scratch);
+    const QuantizedRows quantized_hidden = QuantizeRowsInto(
+        k, hidden, rows, mlp.width, scratch.quantized_hidden, scratch.quantized_hidden_scales);
     ProjectQuantized(k, mlp.fc2, quantized_hidden, mlp.fc2_bias, y, rows);
     return;
   }

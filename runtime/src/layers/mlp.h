@@ -12,6 +12,7 @@
 #include "layers/binder.h"
 #include "layers/exec.h"
 #include "layers/matrix_view.h"
+#include "layers/quantize.h"
 #include "sprig/config.h"
 
 namespace sprig::layers {
@@ -40,9 +41,11 @@ MlpView MlpOf(const Binder& binder, const MlpTensors& tensors, uint64_t unit,
 // matrix-vector kernels (only for calls of one row: the two kernel families round
 // differently, and a row's result must not depend on how its batch was split).
 // `int8_activations` (Exec::int8_activations) runs the i8-stored matrices on int8 activations
-// (quantize.h); it also uses scratch.quantized and scratch.quantized_scales.
+// (quantize.h): x quantised into scratch.quantized unless `quantized_x` holds it already (x's
+// rows, quantised by QuantizeRows), the hidden activations into scratch.quantized_hidden.
 void MlpForward(const kernels::KernelTable& k, const MlpView& mlp, const float* x, size_t rows,
-                float* y, Scratch& scratch, bool vector_kernels, bool int8_activations);
+                float* y, Scratch& scratch, bool vector_kernels, bool int8_activations,
+                const QuantizedRows* quantized_x = nullptr);
 
 // Hints the CPU to start loading a unit's weights: the first cache lines of each matrix and the
 // first line of each of its next pages.

@@ -2,15 +2,20 @@
 
 namespace sprig::layers {
 
+QuantizedRows QuantizeRowsInto(const kernels::KernelTable& k, const float* x, size_t rows,
+                               size_t width, std::vector<int8_t>& values,
+                               std::vector<float>& scales) {
+  if (values.size() < rows * width) values.resize(rows * width);
+  if (scales.size() < rows) scales.resize(rows);
+  for (size_t r = 0; r < rows; ++r) {
+    scales[r] = k.int8_activations.quantize(x + r * width, values.data() + r * width, width);
+  }
+  return {values.data(), scales.data(), width};
+}
+
 QuantizedRows QuantizeRows(const kernels::KernelTable& k, const float* x, size_t rows, size_t width,
                            Scratch& scratch) {
-  if (scratch.quantized.size() < rows * width) scratch.quantized.resize(rows * width);
-  if (scratch.quantized_scales.size() < rows) scratch.quantized_scales.resize(rows);
-  for (size_t r = 0; r < rows; ++r) {
-    scratch.quantized_scales[r] =
-        k.int8_activations.quantize(x + r * width, scratch.quantized.data() + r * width, width);
-  }
-  return {scratch.quantized.data(), scratch.quantized_scales.data(), width};
+  return QuantizeRowsInto(k, x, rows, width, scratch.quantized, scratch.quantized_scales);
 }
 
 void ProjectQuantized(const kernels::KernelTable& k, const MatrixView& w, const QuantizedRows& x,

@@ -28,8 +28,12 @@ inline bool Quantizes(const Exec& exec, DType type) {
   return exec.int8_activations && type == DType::kI8;
 }
 
-// Quantises x[rows, width] into scratch.quantized and scratch.quantized_scales (each row on
-// its own: the same values whatever else is in the batch).
+// Quantises x[rows, width] into `values` and `scales` (each row on its own: the same values
+// whatever else is in the batch).
+QuantizedRows QuantizeRowsInto(const kernels::KernelTable& k, const float* x, size_t rows,
+                               size_t width, std::vector<int8_t>& values,
+                               std::vector<float>& scales);
+// The same into scratch.quantized and scratch.quantized_scales.
 QuantizedRows QuantizeRows(const kernels::KernelTable& k, const float* x, size_t rows, size_t width,
                            Scratch& scratch);
 
