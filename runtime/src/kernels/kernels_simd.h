@@ -230,16 +230,19 @@ struct SimdKernels {
         }
       }
     }
+    // The tails: a shared weight vector is loaded (and converted) once for all rows.
     for (; i + L <= n; i += L) {
+      const F shared = kOwnWeights ? F(0.0f) : Load(weights(0) + i, Tag{});
       for (int r = 0; r < R; ++r) {
-        acc[r][0] =
-            xsimd::fma(F::load_unaligned(xs[r] + i), Load(weights(r) + i, Tag{}), acc[r][0]);
+        const F wv = kOwnWeights ? Load(weights(r) + i, Tag{}) : shared;
+        acc[r][0] = xsimd::fma(F::load_unaligned(xs[r] + i), wv, acc[r][0]);
       }
     }
     if (i < n) {
+      const F shared = kOwnWeights ? F(0.0f) : LoadPartial(weights(0) + i, n - i, Tag{});
       for (int r = 0; r < R; ++r) {
-        acc[r][1] = xsimd::fma(LoadPartial(xs[r] + i, n - i, FloatTag{}),
-                               LoadPartial(weights(r) + i, n - i, Tag{}), acc[r][1]);
+        const F wv = kOwnWeights ? LoadPartial(weights(r) + i, n - i, Tag{}) : shared;
+        acc[r][1] = xsimd::fma(LoadPartial(xs[r] + i, n - i, FloatTag{}), wv, acc[r][1]);
       }
     }
     for (int r = 0; r < R; ++r) {
