@@ -159,8 +159,11 @@ void ExpertsLayer::Forward(const Exec& exec, const float* x, size_t rows, float*
     if (scratch.expert_output.size() < out_) scratch.expert_output.resize(out_);
     float* expert_output = scratch.expert_output.data();
     // In the compute mode "i8" the row is quantised once for every MLP it meets (MlpForward
-    // keeps its hidden activations apart): the router's, or else the first expert's.
-    if (quantized.values == nullptr && top > 0 && Quantizes(exec, Expert(chosen[0]).fc1.type)) {
+    // keeps its hidden activations apart): the router's, or else here for the experts.
+    auto quantizes = [&](const format::TensorInfo* w) {
+      return w != nullptr && Quantizes(exec, w->dtype);
+    };
+    if (quantized.values == nullptr && (quantizes(experts_.fc1) || quantizes(experts_.gate))) {
       quantized = QuantizeRows(k, x, 1, in_, scratch);
     }
     const QuantizedRows* row = quantized.values != nullptr ? &quantized : nullptr;
